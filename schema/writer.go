@@ -1,0 +1,246 @@
+package schema
+
+import (
+	"context"
+	"database/sql"
+	"database/sql/driver"
+	"errors"
+	"fmt"
+	"maps"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+
+	"github.com/apache/arrow-go/v18/arrow"
+	"github.com/apache/arrow-go/v18/arrow/array"
+	"github.com/apache/arrow-go/v18/parquet"
+	"github.com/apache/arrow-go/v18/parquet/compress"
+	"github.com/apache/arrow-go/v18/parquet/pqarrow"
+	"github.com/marcboeker/go-duckdb"
+)
+
+// Writer writes one analysis inside a single DuckDB transaction: either the
+// whole analysis is committed or the file is left as it was.
+type Writer struct {
+	ID   int    // analysis_id of the analysis being written
+	Name string // its name
+
+	conn       *sql.Conn
+	done       bool
+	parquetDir string
+	pq         map[string]*parquetFile
+	views      int
+}
+
+type parquetFile struct {
+	f *os.File
+	w *pqarrow.FileWriter
+}
+
+// ErrAnalysisExists is returned when the name is already taken.
+var ErrAnalysisExists = errors.New("an analysis with this name already exists")
+
+// Begin opens a transaction for a new analysis called name. The layout is
+// created or checked first. An empty name gets "analysis-<id>". When
+// parquetDir is not empty every appended batch is also written to
+// parquetDir/<table>.parquet.
+func Begin(ctx context.Context, db *sql.DB, name, parquetDir string) (*Writer, error) {
+	conn, err := db.Conn(ctx)
+	if err != nil {
+		return nil, fmt.Errorf("schema: %w", classify(err))
+	}
+	w := &Writer{conn: conn, Name: name, parquetDir: parquetDir, pq: map[string]*parquetFile{}}
+	if err := w.begin(ctx); err != nil {
+		w.Rollback()
+		return nil, err
+	}
+	return w, nil
+}
+
+func (w *Writer) begin(ctx context.Context) error {
+	if _, err := w.conn.ExecContext(ctx, "BEGIN TRANSACTION"); err != nil {
+		return fmt.Errorf("schema: begin: %w", classify(err))
+	}
+	if err := Migrate(ctx, w.conn); err != nil {
+		return err
+	}
+	if err := w.conn.QueryRowContext(ctx, `SELECT coalesce(max(analysis_id), 0) + 1 FROM analyses`).Scan(&w.ID); err != nil {
+		return fmt.Errorf("schema: next analysis id: %w", err)
+	}
+	if w.Name == "" {
+		w.Name = fmt.Sprintf("analysis-%d", w.ID)
+	}
+	var n int
+	if err := w.conn.QueryRowContext(ctx, `SELECT count(*) FROM analyses WHERE name = ?`, w.Name).Scan(&n); err != nil {
+		return fmt.Errorf("schema: %w", err)
+	}
+	if n > 0 {
+		return fmt.Errorf("schema: %q: %w; choose another --analysis name or remove the old one with 'topostate drop'", w.Name, ErrAnalysisExists)
+	}
+	if w.parquetDir != "" {
+		if err := os.MkdirAll(w.parquetDir, 0o755); err != nil {
+			return fmt.Errorf("schema: parquet folder: %w", err)
+		}
+	}
+	return nil
+}
+
+// Column is a covariate column of the subjects table.
+type Column struct {
+	Name string
+	Type string // DuckDB type: DOUBLE, BIGINT or VARCHAR
+}
+
+// EnsureSubjectColumns adds the covariate columns of this cohort to the
+// subjects table. A column that exists with another type is an error, as
+// mixing types would change earlier analyses' values.
+func (w *Writer) EnsureSubjectColumns(ctx context.Context, cols []Column) error {
+	rows, err := w.conn.QueryContext(ctx,
+		`SELECT column_name, data_type FROM information_schema.columns WHERE table_name = 'subjects'`)
+	if err != nil {
+		return fmt.Errorf("schema: %w", err)
+	}
+	have := map[string]string{}
+	for rows.Next() {
+		var n, t string
+		if err := rows.Scan(&n, &t); err != nil {
+			rows.Close()
+			return fmt.Errorf("schema: %w", err)
+		}
+		have[strings.ToLower(n)] = t
+	}
+	rows.Close()
+	for _, c := range cols {
+		t, ok := have[strings.ToLower(c.Name)]
+		if ok {
+			if !strings.EqualFold(t, c.Type) {
+				return fmt.Errorf("schema: participants column %q is %s in this cohort but %s in the warehouse; rename the column or use another database file", c.Name, c.Type, t)
+			}
+			continue
+		}
+		if _, err := w.conn.ExecContext(ctx, fmt.Sprintf("ALTER TABLE subjects ADD COLUMN %s %s", Quote(c.Name), c.Type)); err != nil {
+			return fmt.Errorf("schema: add subjects column %q: %w", c.Name, err)
+		}
+	}
+	return nil
+}
+
+// Exec runs a statement inside the analysis's transaction.
+func (w *Writer) Exec(ctx context.Context, query string, args ...any) error {
+	_, err := w.conn.ExecContext(ctx, query, args...)
+	return err
+}
+
+// Append inserts a batch's rows into its table (by column name) and, when
+// Parquet output is on, writes them there too. The batch is reset.
+func (w *Writer) Append(ctx context.Context, b *Batch) error {
+	if b.Len() == 0 {
+		return nil
+	}
+	rec := b.Record()
+	defer rec.Release()
+	return w.AppendRecord(ctx, b.Table, rec)
+}
+
+// AppendRecord inserts an Arrow record into table.
+func (w *Writer) AppendRecord(ctx context.Context, table string, rec arrow.Record) error {
+	if w.done {
+		return errors.New("schema: writer already finished")
+	}
+	w.views++
+	view := fmt.Sprintf("topostate_batch_%d", w.views)
+	err := w.conn.Raw(func(dc any) error {
+		ar, err := duckdb.NewArrowFromConn(dc.(driver.Conn))
+		if err != nil {
+			return err
+		}
+		rdr, err := array.NewRecordReader(rec.Schema(), []arrow.Record{rec})
+		if err != nil {
+			return err
+		}
+		defer rdr.Release()
+		release, err := ar.RegisterView(rdr, view)
+		if err != nil {
+			return err
+		}
+		defer release()
+		ex := dc.(driver.ExecerContext)
+		if _, err := ex.ExecContext(ctx, fmt.Sprintf("INSERT INTO %s BY NAME SELECT * FROM %s", Quote(table), view), nil); err != nil {
+			return err
+		}
+		_, err = ex.ExecContext(ctx, "DROP VIEW "+view, nil)
+		return err
+	})
+	if err != nil {
+		return fmt.Errorf("schema: insert into %s: %w", table, err)
+	}
+	if w.parquetDir != "" {
+		return w.writeParquet(table, rec)
+	}
+	return nil
+}
+
+func (w *Writer) writeParquet(table string, rec arrow.Record) error {
+	pf, ok := w.pq[table]
+	if !ok {
+		f, err := os.Create(filepath.Join(w.parquetDir, table+".parquet"))
+		if err != nil {
+			return fmt.Errorf("schema: parquet: %w", err)
+		}
+		props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd))
+		fw, err := pqarrow.NewFileWriter(rec.Schema(), f, props, pqarrow.DefaultWriterProps())
+		if err != nil {
+			f.Close()
+			return fmt.Errorf("schema: parquet %s: %w", table, err)
+		}
+		pf = &parquetFile{f: f, w: fw}
+		w.pq[table] = pf
+	}
+	if err := pf.w.Write(rec); err != nil {
+		return fmt.Errorf("schema: parquet %s: %w", table, err)
+	}
+	return nil
+}
+
+// Commit makes the analysis visible. The analyses row must have been
+// inserted with Exec beforehand.
+func (w *Writer) Commit(ctx context.Context) error {
+	if w.done {
+		return errors.New("schema: writer already finished")
+	}
+	var errs []error
+	for _, t := range slices.Sorted(maps.Keys(w.pq)) {
+		if err := w.pq[t].w.Close(); err != nil {
+			errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
+		}
+	}
+	w.pq = map[string]*parquetFile{}
+	if err := errors.Join(errs...); err != nil {
+		w.Rollback()
+		return err
+	}
+	_, err := w.conn.ExecContext(ctx, "COMMIT")
+	w.done = true
+	w.conn.Close()
+	if err != nil {
+		return fmt.Errorf("schema: commit: %w", err)
+	}
+	return nil
+}
+
+// Rollback abandons the analysis; the file keeps its earlier contents and
+// any Parquet files of this analysis are removed. Safe to call twice.
+func (w *Writer) Rollback() {
+	for t, pf := range w.pq {
+		pf.w.Close()
+		os.Remove(filepath.Join(w.parquetDir, t+".parquet"))
+	}
+	w.pq = map[string]*parquetFile{}
+	if w.done {
+		return
+	}
+	w.done = true
+	w.conn.ExecContext(context.Background(), "ROLLBACK")
+	w.conn.Close()
+}
