@@ -30,7 +30,7 @@ func (s Series) Column(j int) []float64 {
 // Window correlation vectors and state centroids are stored this way.
 type Matrix32 struct {
 	Rows, Cols int
-	Data []float32
+	Data       []float32
 }
 
 // NewMatrix32 returns a zero rows x cols matrix.
