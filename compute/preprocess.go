@@ -73,8 +73,8 @@ func (o PreprocessOptions) Validate(t int) error {
 	return nil
 }
 
-// validSeries checks the shape of y and that every value is finite.
-func validSeries(y Series) error {
+// checkSeriesValues checks the shape of y and that every value is finite.
+func checkSeriesValues(y Series) error {
 	if y.T < 0 || y.P < 0 || len(y.Data) != y.T*y.P {
 		return fmt.Errorf("compute: series holds %d values, want T*P = %d*%d", len(y.Data), y.T, y.P)
 	}
@@ -139,11 +139,12 @@ const leftoverRatio = 1e-20
 // PreprocessOptions.Validate); a NaN or infinite value (a *RegionError naming
 // region and time point, wrapping ErrNonFinite); a region constant over the
 // whole series (a *RegionError wrapping ErrZeroVariance, naming the first such
-// region; ConstantRegions lists them all); and a region with no variance
+// region; ConstantRegions lists them all); values so large that their sums
+// overflow float64 (ErrNonFinite); and a region with no variance
 // left after steps 2-3, i.e. a sum of squares below 1e-20 times its demeaned
 // sum of squares (also ErrZeroVariance).
 func Preprocess(y Series, opt PreprocessOptions) (Series, error) {
-	if err := validSeries(y); err != nil {
+	if err := checkSeriesValues(y); err != nil {
 		return Series{}, err
 	}
 	if err := opt.Validate(y.T); err != nil {
@@ -195,6 +196,10 @@ func Preprocess(y Series, opt PreprocessOptions) (Series, error) {
 		for t, v := range res {
 			ss += v * v
 			out.Data[t*P+j] = v
+		}
+		if math.IsNaN(ss0) || math.IsInf(ss0, 0) || math.IsNaN(ss) || math.IsInf(ss, 0) {
+			return Series{}, &RegionError{Region: j, Time: -1, Window: -1,
+				Err: fmt.Errorf("%w: values too large for float64 sums", ErrNonFinite)}
 		}
 		if ss <= leftoverRatio*ss0 {
 			return Series{}, &RegionError{Region: j, Time: -1, Window: -1,

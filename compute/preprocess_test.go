@@ -11,7 +11,7 @@ import (
 	"gonum.org/v1/gonum/stat"
 )
 
-func randomColumn(rng *rand.Rand, n int) []float64 {
+func ppNormColumn(rng *rand.Rand, n int) []float64 {
 	y := make([]float64, n)
 	for i := range y {
 		y[i] = rng.NormFloat64()
@@ -19,8 +19,8 @@ func randomColumn(rng *rand.Rand, n int) []float64 {
 	return y
 }
 
-// seriesFromColumns builds a T x P series from region columns.
-func seriesFromColumns(cols ...[]float64) Series {
+// ppSeriesOf builds a T x P series from region columns.
+func ppSeriesOf(cols ...[]float64) Series {
 	s := NewSeries(len(cols[0]), len(cols))
 	for j, c := range cols {
 		for t, v := range c {
@@ -30,9 +30,9 @@ func seriesFromColumns(cols ...[]float64) Series {
 	return s
 }
 
-func maxAbsDiff(a, b []float64) float64 {
+func ppMaxAbsDiff(a, b []float64) float64 {
 	if len(a) != len(b) {
-		panic("maxAbsDiff: length mismatch")
+		panic("ppMaxAbsDiff: length mismatch")
 	}
 	var m float64
 	for i := range a {
@@ -66,7 +66,7 @@ func TestCosineCoefficientsMatchGonumDCTII(t *testing.T) {
 		{"T1200_K40", 1200, 40},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			y := randomColumn(rng, tc.n)
+			y := ppNormColumn(rng, tc.n)
 			got := CosineCoefficients(y, tc.k)
 			if len(got) != tc.k+1 {
 				t.Fatalf("got %d coefficients, want K+1 = %d", len(got), tc.k+1)
@@ -90,12 +90,12 @@ func TestCosineCoefficientsMatchGonumDCTII(t *testing.T) {
 func TestCosineSmoothFullOrderReproduces(t *testing.T) {
 	rng := rand.New(rand.NewPCG(2, 2))
 	for _, n := range []int{2, 3, 10, 64, 333} {
-		y := randomColumn(rng, n)
+		y := ppNormColumn(rng, n)
 		for i := range y {
 			y[i] += 1000 // an offset must survive too
 		}
 		got := CosineSmooth(y, n-1, 0)
-		if d := maxAbsDiff(got, y); d > 1e-9 {
+		if d := ppMaxAbsDiff(got, y); d > 1e-9 {
 			t.Errorf("T=%d: K=T-1, sigma=0 differs from y by %g", n, d)
 		}
 	}
@@ -122,7 +122,7 @@ func TestCosineSmoothMatchesGonumDCTIII(t *testing.T) {
 		{"T7_K3_heat", 7, 3, 0.01},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			y := randomColumn(rng, tc.n)
+			y := ppNormColumn(rng, tc.n)
 			c := CosineCoefficients(y, tc.k)
 			x := make([]float64, tc.n)
 			for k := 0; k <= tc.k; k++ {
@@ -133,7 +133,7 @@ func TestCosineSmoothMatchesGonumDCTIII(t *testing.T) {
 				}
 			}
 			want := fourier.NewQuarterWaveFFT(tc.n).CosCoefficients(nil, x)
-			if d := maxAbsDiff(CosineSmooth(y, tc.k, tc.sigma), want); d > 1e-12 {
+			if d := ppMaxAbsDiff(CosineSmooth(y, tc.k, tc.sigma), want); d > 1e-12 {
 				t.Errorf("CosineSmooth differs from gonum DCT-III by %g", d)
 			}
 		})
@@ -179,12 +179,12 @@ func TestPreprocessDetrendMatchesLinearRegression(t *testing.T) {
 	}
 	// Region 0: exact line plus a sine; region 1: noise plus a steep line on a
 	// large offset; region 2: noise only.
-	r0, r1, r2 := make([]float64, n), make([]float64, n), randomColumn(rng, n)
+	r0, r1, r2 := make([]float64, n), make([]float64, n), ppNormColumn(rng, n)
 	for i := range r0 {
 		r0[i] = 3 - 0.02*float64(i) + math.Sin(float64(i)/7)
 		r1[i] = 1000 + 0.5*float64(i) + rng.NormFloat64()
 	}
-	y := seriesFromColumns(r0, r1, r2)
+	y := ppSeriesOf(r0, r1, r2)
 	got, err := Preprocess(y, PreprocessOptions{Detrend: true})
 	if err != nil {
 		t.Fatal(err)
@@ -195,7 +195,7 @@ func TestPreprocessDetrendMatchesLinearRegression(t *testing.T) {
 		for i := range want {
 			want[i] = col[i] - alpha - beta*idx[i]
 		}
-		if d := maxAbsDiff(got.Column(j), want); d > 1e-9 {
+		if d := ppMaxAbsDiff(got.Column(j), want); d > 1e-9 {
 			t.Errorf("region %d: detrended differs from gonum residual by %g", j, d)
 		}
 	}
@@ -204,11 +204,11 @@ func TestPreprocessDetrendMatchesLinearRegression(t *testing.T) {
 func TestPreprocessSteps(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 5))
 	const n = 120
-	cols := [][]float64{randomColumn(rng, n), randomColumn(rng, n), randomColumn(rng, n)}
+	cols := [][]float64{ppNormColumn(rng, n), ppNormColumn(rng, n), ppNormColumn(rng, n)}
 	for i := range cols[1] {
 		cols[1][i] = 500 + 5*cols[1][i]
 	}
-	y := seriesFromColumns(cols...)
+	y := ppSeriesOf(cols...)
 	orig := append([]float64(nil), y.Data...)
 
 	t.Run("demean", func(t *testing.T) {
@@ -223,7 +223,7 @@ func TestPreprocessSteps(t *testing.T) {
 			for i := range want {
 				want[i] = cols[j][i] - m
 			}
-			if d := maxAbsDiff(got.Column(j), want); d > 1e-10 {
+			if d := ppMaxAbsDiff(got.Column(j), want); d > 1e-10 {
 				t.Errorf("region %d: demeaned differs by %g", j, d)
 			}
 		}
@@ -259,19 +259,19 @@ func TestPreprocessSteps(t *testing.T) {
 				}
 			}
 			want := qw.CosCoefficients(nil, x)
-			if d := maxAbsDiff(got.Column(j), want); d > 1e-9 {
+			if d := ppMaxAbsDiff(got.Column(j), want); d > 1e-9 {
 				t.Errorf("region %d: smoothed differs from gonum reference by %g", j, d)
 			}
 		}
 	})
 	// The input must not change.
-	if maxAbsDiff(orig, y.Data) != 0 {
+	if ppMaxAbsDiff(orig, y.Data) != 0 {
 		t.Error("Preprocess modified its input")
 	}
 }
 
 func TestConstantRegions(t *testing.T) {
-	y := seriesFromColumns(
+	y := ppSeriesOf(
 		[]float64{1, 2, 3, 4},
 		[]float64{7, 7, 7, 7},
 		[]float64{0, 0, 0, 1e-300},
@@ -289,7 +289,7 @@ func TestConstantRegions(t *testing.T) {
 func TestPreprocessErrors(t *testing.T) {
 	rng := rand.New(rand.NewPCG(6, 6))
 	good := func() Series {
-		return seriesFromColumns(randomColumn(rng, 10), randomColumn(rng, 10), randomColumn(rng, 10))
+		return ppSeriesOf(ppNormColumn(rng, 10), ppNormColumn(rng, 10), ppNormColumn(rng, 10))
 	}
 	withValue := func(tp, j int, v float64) Series {
 		s := good()
@@ -300,6 +300,9 @@ func TestPreprocessErrors(t *testing.T) {
 	for tp := 0; tp < constant.T; tp++ {
 		constant.Data[tp*constant.P+2] = 4.5
 	}
+	huge := good()
+	huge.Data[0] = 1.5e308
+	huge.Data[huge.P] = 1.5e308 // two of them overflow the region's sum
 	line := good()
 	for tp := 0; tp < line.T; tp++ {
 		line.Data[tp*line.P+1] = 1000 + 0.37*float64(tp)
@@ -313,11 +316,12 @@ func TestPreprocessErrors(t *testing.T) {
 		contains   string
 	}{
 		{"T1", NewSeries(1, 3), PreprocessOptions{}, nil, -1, 0, "time points"},
-		{"P1", seriesFromColumns(randomColumn(rng, 10)), PreprocessOptions{}, nil, -1, 0, "regions"},
+		{"P1", ppSeriesOf(ppNormColumn(rng, 10)), PreprocessOptions{}, nil, -1, 0, "regions"},
 		{"shape", Series{T: 3, P: 2, Data: make([]float64, 5)}, PreprocessOptions{}, nil, -1, 0, "holds 5 values"},
 		{"NaN", withValue(3, 1, math.NaN()), PreprocessOptions{}, ErrNonFinite, 1, 3, "NaN"},
 		{"+Inf", withValue(0, 2, math.Inf(1)), PreprocessOptions{}, ErrNonFinite, 2, 0, "+Inf"},
 		{"-Inf", withValue(9, 0, math.Inf(-1)), PreprocessOptions{}, ErrNonFinite, 0, 9, "-Inf"},
+		{"overflow", huge, PreprocessOptions{}, ErrNonFinite, 0, -1, "too large"},
 		{"constant", constant, PreprocessOptions{}, ErrZeroVariance, 2, -1, "whole series"},
 		{"pure line detrended", line, PreprocessOptions{Detrend: true}, ErrZeroVariance, 1, -1, "detrending"},
 		{"K negative", good(), PreprocessOptions{SmoothK: -1}, nil, -1, 0, "negative"},
