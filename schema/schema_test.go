@@ -94,8 +94,8 @@ func TestWriterCommitAndRollback(t *testing.T) {
 			t.Fatal(err)
 		}
 		b := NewBatch(Regions)
-		b.Row(w.ID, 1, "left", false)
-		b.Row(w.ID, 2, "right", false)
+		b.Row(w.ID, 1, 1, "left", false)
+		b.Row(w.ID, nil, 2, "right", true)
 		if err := w.Append(ctx, b); err != nil {
 			t.Fatal(err)
 		}

@@ -53,7 +53,7 @@ func init() {
 	def(Inputs, append(id[:3:3], f("path", str), f("sha256", str), f("timepoints", i32),
 		f("regions", i32), f("tr_seconds", f64), f("tr_source", str))...)
 	def(ExcludedInputs, append(id[:3:3], f("path", str), f("reason", str))...)
-	def(Regions, f("analysis_id", i32), f("region_index", i32), f("region_name", str), f("dropped", bln))
+	def(Regions, f("analysis_id", i32), nullable("region_index", i32), f("column_index", i32), f("region_name", str), f("dropped", bln))
 	def(Elbow, f("analysis_id", i32), f("k", i32), f("wcss", f64), f("chosen", bln),
 		f("chord_pick", bln), f("second_diff_pick", bln))
 	def(StateCentroids, f("analysis_id", i32), f("state", i16), f("i", i16), f("j", i16), f("weight", f64))

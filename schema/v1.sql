@@ -50,7 +50,8 @@ CREATE TABLE IF NOT EXISTS subjects (
 
 CREATE TABLE IF NOT EXISTS regions (
     analysis_id  INTEGER NOT NULL, -- analysis
-    region_index INTEGER NOT NULL, -- 1-based position in the network (after any drop)
+    region_index INTEGER,          -- 1-based node number in the networks; NULL when dropped
+    column_index INTEGER NOT NULL, -- 1-based column in the series files
     region_name  VARCHAR NOT NULL, -- header name in the series files
     dropped      BOOLEAN NOT NULL  -- true when left out (constant series, --constant-region drop)
 );
