@@ -448,3 +448,15 @@ func BenchmarkKSExact6555(b *testing.B) {
 		}
 	}
 }
+
+// Two samples of three that do not overlap: D = 1, and 2 of the C(6,3) = 20
+// equally likely orderings (all of A first, or all of B first) reach it.
+func ExampleKSTest() {
+	res, err := KSTest([]float64{0.1, 0.2, 0.3}, []float64{0.7, 0.8, 0.9})
+	if err != nil {
+		fmt.Println(err)
+		return
+	}
+	fmt.Printf("D=%.2f p=%.4f method=%s\n", res.Statistic, res.PValue, res.Method)
+	// Output: D=1.00 p=0.1000 method=exact
+}
