@@ -1,0 +1,303 @@
+package compute
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"slices"
+
+	"gonum.org/v1/gonum/stat/distuv"
+)
+
+// TestResult is a test statistic and its p-value.
+type TestResult struct {
+	Statistic, PValue float64
+}
+
+// Tie tolerance of the permutation tests: a permuted statistic T* counts as
+// at least as extreme as the observed T when
+//
+//	|T*| >= |T| - (permRelTol*|T| + permScaleTol*scale),
+//
+// scale being the largest absolute data value. Statistics that are equal in
+// exact arithmetic can differ in their last bits because the permuted sums
+// add the values in another order; the tolerance counts them as ties, which
+// errs on the conservative side (a larger p). Common practice, no source.
+const (
+	permRelTol   = 1e-9
+	permScaleTol = 1e-12
+)
+
+func checkPermArgs(nPerm int, rng *rand.Rand) error {
+	if nPerm < 1 {
+		return fmt.Errorf("compute: permutation test needs nPerm >= 1, got %d", nPerm)
+	}
+	if rng == nil {
+		return errors.New("compute: permutation test needs a random generator, got nil")
+	}
+	return nil
+}
+
+func checkFinite(what string, x []float64) error {
+	for i, v := range x {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("compute: %s value %d is %v", what, i, v)
+		}
+	}
+	return nil
+}
+
+// pickFirst moves a uniformly random subset of k of idx's elements to
+// idx[:k] (a partial Fisher-Yates shuffle drawing from rng).
+func pickFirst(idx []int, k int, rng *rand.Rand) {
+	for i := range k {
+		j := i + rng.IntN(len(idx)-i)
+		idx[i], idx[j] = idx[j], idx[i]
+	}
+}
+
+// PermutationTestMean tests for a difference in means between two groups by
+// permuting group labels (METHODS section 7). The statistic is
+// T = mean(a) - mean(b); each of nPerm permutations draws a uniformly random
+// relabelling of the pooled values into groups of len(a) and len(b) from
+// rng, and the two-sided p-value is (Phipson and Smyth, 2010)
+//
+//	p = (1 + #{|T*| >= |T|}) / (1 + nPerm),
+//
+// so p is never 0. Float ties are judged with the tolerance described at
+// permRelTol. It returns an error when a group is empty, a value is NaN or
+// infinite, nPerm < 1, or rng is nil.
+func PermutationTestMean(a, b []float64, nPerm int, rng *rand.Rand) (TestResult, error) {
+	if len(a) == 0 || len(b) == 0 {
+		return TestResult{}, fmt.Errorf("compute: permutation test needs two non-empty groups, got sizes %d and %d", len(a), len(b))
+	}
+	if err := checkPermArgs(nPerm, rng); err != nil {
+		return TestResult{}, err
+	}
+	if err := checkFinite("group A", a); err != nil {
+		return TestResult{}, err
+	}
+	if err := checkFinite("group B", b); err != nil {
+		return TestResult{}, err
+	}
+	pooled := append(slices.Clone(a), b...)
+	m, n := len(a), len(b)
+	var total, scale float64
+	for _, x := range pooled {
+		total += x
+		scale = max(scale, math.Abs(x))
+	}
+	stat := func(sumA float64) float64 {
+		return sumA/float64(m) - (total-sumA)/float64(n)
+	}
+	var sumA float64
+	for _, x := range a {
+		sumA += x
+	}
+	tObs := stat(sumA)
+	threshold := math.Abs(tObs) - (permRelTol*math.Abs(tObs) + permScaleTol*scale)
+	idx := make([]int, len(pooled))
+	for i := range idx {
+		idx[i] = i
+	}
+	count := 0
+	for range nPerm {
+		pickFirst(idx, m, rng)
+		var s float64
+		for _, i := range idx[:m] {
+			s += pooled[i]
+		}
+		if math.Abs(stat(s)) >= threshold {
+			count++
+		}
+	}
+	return TestResult{Statistic: tObs, PValue: float64(1+count) / float64(1+nPerm)}, nil
+}
+
+// CurveDistance returns the sup-norm distance max_g |a[g] - b[g]| of two
+// curves on the same grid. It returns an error when the lengths differ, the
+// curves are empty, or a value is NaN.
+func CurveDistance(a, b []float64) (float64, error) {
+	if len(a) != len(b) {
+		return 0, fmt.Errorf("compute: curves on different grids: lengths %d and %d", len(a), len(b))
+	}
+	if len(a) == 0 {
+		return 0, errors.New("compute: curve distance of empty curves")
+	}
+	var d float64
+	for g := range a {
+		if math.IsNaN(a[g]) || math.IsNaN(b[g]) {
+			return 0, fmt.Errorf("compute: curve value at grid point %d is NaN", g)
+		}
+		d = max(d, math.Abs(a[g]-b[g]))
+	}
+	return d, nil
+}
+
+// PermutationTestCurves compares the curves of two groups of subjects
+// (a[i] is subject i's curve, all on one grid) with the statistic
+// T = max over the grid of |mean curve of a - mean curve of b|, permuting
+// subject labels nPerm times with rng; p = (1 + #{T* >= T}) / (1 + nPerm)
+// (Phipson and Smyth, 2010), with float ties judged as described at
+// permRelTol. The returned Statistic is T. It returns an error when a group
+// is empty, the curves are empty or of different lengths, a value is NaN or
+// infinite, nPerm < 1, or rng is nil.
+func PermutationTestCurves(a, b [][]float64, nPerm int, rng *rand.Rand) (TestResult, error) {
+	if len(a) == 0 || len(b) == 0 {
+		return TestResult{}, fmt.Errorf("compute: curve permutation test needs two non-empty groups, got sizes %d and %d", len(a), len(b))
+	}
+	if err := checkPermArgs(nPerm, rng); err != nil {
+		return TestResult{}, err
+	}
+	pooled := append(slices.Clone(a), b...)
+	g := len(pooled[0])
+	if g == 0 {
+		return TestResult{}, errors.New("compute: curve permutation test on empty curves")
+	}
+	total := make([]float64, g)
+	var scale float64
+	for i, c := range pooled {
+		if len(c) != g {
+			return TestResult{}, fmt.Errorf("compute: curve %d has %d grid points, curve 0 has %d", i, len(c), g)
+		}
+		if err := checkFinite(fmt.Sprintf("curve %d", i), c); err != nil {
+			return TestResult{}, err
+		}
+		for k, x := range c {
+			total[k] += x
+			scale = max(scale, math.Abs(x))
+		}
+	}
+	m, n := float64(len(a)), float64(len(b))
+	sumA := make([]float64, g)
+	stat := func() float64 {
+		var t float64
+		for k := range sumA {
+			t = max(t, math.Abs(sumA[k]/m-(total[k]-sumA[k])/n))
+		}
+		return t
+	}
+	for _, c := range a {
+		for k, x := range c {
+			sumA[k] += x
+		}
+	}
+	tObs := stat()
+	threshold := tObs - (permRelTol*tObs + permScaleTol*scale)
+	idx := make([]int, len(pooled))
+	for i := range idx {
+		idx[i] = i
+	}
+	count := 0
+	for range nPerm {
+		pickFirst(idx, len(a), rng)
+		clear(sumA)
+		for _, i := range idx[:len(a)] {
+			for k, x := range pooled[i] {
+				sumA[k] += x
+			}
+		}
+		if stat() >= threshold {
+			count++
+		}
+	}
+	return TestResult{Statistic: tObs, PValue: float64(1+count) / float64(1+nPerm)}, nil
+}
+
+// WelchResult is the outcome of Welch's t-test.
+type WelchResult struct {
+	T, DF, PValue float64
+}
+
+// WelchTTest compares the means of a and b without assuming equal
+// variances:
+//
+//	t  = (mean(a) - mean(b)) / sqrt(s_a^2/m + s_b^2/n),
+//	df = (s_a^2/m + s_b^2/n)^2 / ((s_a^2/m)^2/(m-1) + (s_b^2/n)^2/(n-1))
+//
+// (Welch-Satterthwaite; s^2 the unbiased sample variances), with the
+// two-sided p-value 2 P(T_df >= |t|) from the Student t distribution of
+// gonum's stat/distuv. It returns an error when a group has fewer than 2
+// values, a value is NaN or infinite, or both sample variances are zero.
+func WelchTTest(a, b []float64) (WelchResult, error) {
+	if len(a) < 2 || len(b) < 2 {
+		return WelchResult{}, fmt.Errorf("compute: Welch t-test needs at least 2 values per group, got %d and %d", len(a), len(b))
+	}
+	if err := checkFinite("group A", a); err != nil {
+		return WelchResult{}, err
+	}
+	if err := checkFinite("group B", b); err != nil {
+		return WelchResult{}, err
+	}
+	ma, va := meanVar(a)
+	mb, vb := meanVar(b)
+	m, n := float64(len(a)), float64(len(b))
+	ea, eb := va/m, vb/n
+	if ea+eb == 0 {
+		return WelchResult{}, errors.New("compute: Welch t-test: both groups have zero variance")
+	}
+	t := (ma - mb) / math.Sqrt(ea+eb)
+	df := (ea + eb) * (ea + eb) / (ea*ea/(m-1) + eb*eb/(n-1))
+	p := 2 * distuv.StudentsT{Mu: 0, Sigma: 1, Nu: df}.Survival(math.Abs(t))
+	return WelchResult{T: t, DF: df, PValue: min(1, p)}, nil
+}
+
+// meanVar returns the mean and the unbiased variance (two-pass).
+func meanVar(x []float64) (mean, variance float64) {
+	for _, v := range x {
+		mean += v
+	}
+	mean /= float64(len(x))
+	var ss, comp float64
+	for _, v := range x {
+		d := v - mean
+		ss += d * d
+		comp += d
+	}
+	n := float64(len(x))
+	return mean, (ss - comp*comp/n) / (n - 1)
+}
+
+// BenjaminiHochberg returns the Benjamini-Hochberg (1995) adjusted
+// p-values, in the input order: with the m non-NaN p-values sorted
+// ascending, p_(1) <= ... <= p_(m),
+//
+//	q_(i) = min over j >= i of (m/j) p_(j), capped at 1.
+//
+// Rejecting the hypotheses with q <= alpha is the BH step-up procedure at
+// false discovery rate alpha. NaN entries (tests that could not be run) stay
+// NaN in the output and are not counted in m. A nil or empty p gives an
+// empty result. A value outside [0, 1] is not a p-value: passing one is a
+// programmer's error and panics.
+func BenjaminiHochberg(p []float64) []float64 {
+	q := make([]float64, len(p))
+	order := make([]int, 0, len(p))
+	for i, x := range p {
+		switch {
+		case math.IsNaN(x):
+			q[i] = math.NaN()
+		case x < 0 || x > 1:
+			panic(fmt.Sprintf("compute: p-value %d is %v, outside [0, 1]", i, x))
+		default:
+			order = append(order, i)
+		}
+	}
+	slices.SortStableFunc(order, func(i, j int) int {
+		switch {
+		case p[i] < p[j]:
+			return -1
+		case p[i] > p[j]:
+			return 1
+		}
+		return 0
+	})
+	m := float64(len(order))
+	running := 1.0
+	for r := len(order) - 1; r >= 0; r-- {
+		i := order[r]
+		running = min(running, m/float64(r+1)*p[i])
+		q[i] = running
+	}
+	return q
+}
