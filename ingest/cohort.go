@@ -1,0 +1,277 @@
+package ingest
+
+import (
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"runtime"
+	"slices"
+	"strings"
+	"sync"
+
+	"github.com/topostate/topostate/compute"
+)
+
+// Cohort is a validated cohort: the series to analyse, in a fixed order,
+// with everything the stages need to know about them.
+type Cohort struct {
+	Dir          string
+	Participants *Participants
+	Regions      []string // names of all columns as read
+	Keep         []int    // column indices analysed (all but dropped regions)
+	Dropped      []int    // column indices dropped as constant
+	Inputs       []SubjectInput
+	Excluded     []Exclusion
+	Warnings     []string
+}
+
+// SubjectInput is one series that passed validation.
+type SubjectInput struct {
+	Input
+	TR         float64
+	TRSource   string
+	SHA256     string
+	Timepoints int
+	Windows    int
+}
+
+// Exclusion is a series left out under --on-bad-subject skip.
+type Exclusion struct {
+	Input
+	Reason string
+}
+
+// fileCheck is what validation learns from reading one file.
+type fileCheck struct {
+	regions  []string
+	T        int
+	sha      string
+	constant []int
+	tr       float64
+	trSource string
+	err      error
+}
+
+// LoadCohort finds and validates the whole cohort before anything is
+// written. Every problem found is returned together (as Problems), each
+// naming its file and, where it applies, line and column. Under
+// OnBadSubject "skip" a series with problems is excluded instead, with the
+// reason kept for the excluded_inputs table.
+func LoadCohort(o Options) (*Cohort, error) {
+	if err := o.Check(); err != nil {
+		return nil, err
+	}
+	inputs, err := Discover(o.Input)
+	if err != nil {
+		return nil, err
+	}
+	c := &Cohort{Dir: o.Input}
+	var problems Problems
+
+	ppath := filepath.Join(o.Input, "participants.tsv")
+	if _, err := os.Stat(ppath); err != nil {
+		if alt := filepath.Join(o.Input, "participants.csv"); fileExists(alt) {
+			ppath = alt
+		}
+	}
+	part, err := ReadParticipants(ppath)
+	if err != nil {
+		var ps Problems
+		if errors.As(err, &ps) {
+			problems = append(problems, ps...)
+		} else {
+			problems = append(problems, err)
+		}
+	}
+	c.Participants = part
+
+	checks := make([]fileCheck, len(inputs))
+	workers := o.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	var wg sync.WaitGroup
+	next := make(chan int)
+	for range workers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := range next {
+				checks[i] = checkFile(inputs[i], o)
+			}
+		}()
+	}
+	for i := range inputs {
+		next <- i
+	}
+	close(next)
+	wg.Wait()
+
+	// Per-file problems, then cohort-wide ones: duplicates, regions, and
+	// the participants sheet.
+	bad := make([]error, len(inputs))
+	for i, ch := range checks {
+		bad[i] = ch.err
+	}
+	seen := map[string]int{}
+	for i, in := range inputs {
+		key := in.Subject + "/" + in.Session
+		if j, dup := seen[key]; dup {
+			bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %s %s is also %s; keep one file per subject and session", ErrDuplicate, in.Subject, orNone(in.Session), inputs[j].Rel)})
+			continue
+		}
+		seen[key] = i
+		if part != nil {
+			if _, ok := part.Lines[in.Subject]; !ok {
+				bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: add a row for %s to %s", ErrNoParticipant, in.Subject, part.Path)})
+			}
+		}
+	}
+	// The reference region list is the first series that read cleanly.
+	ref := -1
+	for i, ch := range checks {
+		if ch.err == nil {
+			ref = i
+			break
+		}
+	}
+	if ref >= 0 {
+		c.Regions = checks[ref].regions
+		for i, ch := range checks {
+			if ch.err != nil || i == ref {
+				continue
+			}
+			if msg := regionDiff(c.Regions, ch.regions); msg != "" {
+				bad[i] = errors.Join(bad[i], &ParseError{Path: inputs[i].Path, Line: 1, Err: fmt.Errorf("%w %s: %s; every series must have the same regions in the same order", ErrRegionMismatch, inputs[ref].Rel, msg)})
+			}
+		}
+	}
+	// Constant regions: refused, or dropped from every series alike.
+	constant := map[int]bool{}
+	for i, ch := range checks {
+		if bad[i] != nil {
+			continue
+		}
+		for _, j := range ch.constant {
+			if o.ConstantRegion == "drop" {
+				constant[j] = true
+				continue
+			}
+			bad[i] = errors.Join(bad[i], &ParseError{Path: inputs[i].Path, Column: j + 1, Err: fmt.Errorf("%w: %q never changes (a region outside the mask?); fix the series or pass --constant-region drop to leave this region out of every subject", ErrConstantRegion, ch.regions[j])})
+		}
+	}
+	for j := range c.Regions {
+		if constant[j] {
+			c.Dropped = append(c.Dropped, j)
+		} else {
+			c.Keep = append(c.Keep, j)
+		}
+	}
+	if ref >= 0 && len(c.Keep) < 3 {
+		problems = append(problems, fmt.Errorf("ingest: only %d region(s) left after dropping constant ones; a network needs at least 3", len(c.Keep)))
+	}
+	for i, in := range inputs {
+		if bad[i] != nil {
+			if o.OnBadSubject == "skip" {
+				c.Excluded = append(c.Excluded, Exclusion{Input: in, Reason: oneLine(bad[i])})
+				continue
+			}
+			problems = append(problems, flatten(bad[i])...)
+			continue
+		}
+		ch := checks[i]
+		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, o.Window, o.Step)})
+	}
+	if part != nil {
+		have := map[string]bool{}
+		for _, in := range inputs {
+			have[in.Subject] = true
+		}
+		for _, id := range part.IDs {
+			if !have[id] {
+				c.Warnings = append(c.Warnings, fmt.Sprintf("%s:%d: %s has no series file; kept in the subjects table only", part.Path, part.Lines[id], id))
+			}
+		}
+	}
+	if len(problems) == 0 && len(c.Inputs) == 0 {
+		problems = append(problems, fmt.Errorf("ingest: every series was excluded; nothing to analyse"))
+	}
+	if len(problems) > 0 {
+		return nil, problems
+	}
+	return c, nil
+}
+
+func checkFile(in Input, o Options) fileCheck {
+	var ch fileCheck
+	sf, err := ReadSeriesFile(in.Path)
+	if err != nil {
+		ch.err = err
+		return ch
+	}
+	ch.regions, ch.T, ch.sha = sf.Regions, sf.Series.T, sf.SHA256
+	ch.constant = compute.ConstantRegions(sf.Series)
+	if sf.Series.T < o.Window {
+		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.Window)}
+		return ch
+	}
+	switch {
+	case o.TR > 0:
+		ch.tr, ch.trSource = o.TR, "option --tr"
+	case in.Sidecar != "":
+		ch.tr, ch.err = SidecarTR(in.Sidecar)
+		ch.trSource = in.Sidecar
+	default:
+		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
+	}
+	return ch
+}
+
+func regionDiff(want, got []string) string {
+	if slices.Equal(want, got) {
+		return ""
+	}
+	if len(want) != len(got) {
+		return fmt.Sprintf("%d regions here, %d there", len(got), len(want))
+	}
+	for i := range want {
+		if want[i] != got[i] {
+			return fmt.Sprintf("column %d is %q here but %q there", i+1, got[i], want[i])
+		}
+	}
+	return ""
+}
+
+func flatten(err error) []error {
+	if u, ok := err.(interface{ Unwrap() []error }); ok {
+		var out []error
+		for _, e := range u.Unwrap() {
+			out = append(out, flatten(e)...)
+		}
+		return out
+	}
+	return []error{err}
+}
+
+func oneLine(err error) string {
+	parts := flatten(err)
+	s := make([]string, len(parts))
+	for i, e := range parts {
+		s[i] = e.Error()
+	}
+	return strings.Join(s, "; ")
+}
+
+func orNone(ses string) string {
+	if ses == "" {
+		return "(no session)"
+	}
+	return ses
+}
+
+func fileExists(p string) bool {
+	_, err := os.Stat(p)
+	return err == nil
+}

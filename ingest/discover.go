@@ -1,0 +1,104 @@
+package ingest
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"regexp"
+	"sort"
+	"strings"
+)
+
+// Input is one series file of the cohort: a subject, optionally a session.
+type Input struct {
+	Subject string // sub-<label>
+	Session string // ses-<label>, or "" when the name has none
+	Path    string // full path
+	Rel     string // path relative to the cohort folder, slash-separated
+	Sidecar string // JSON sidecar beside it, or ""
+}
+
+// seriesName matches sub-<label>[_ses-<label>][_<key>-<value>...]_timeseries.tsv|csv.
+var seriesName = regexp.MustCompile(`^(sub-[A-Za-z0-9]+)(?:_(ses-[A-Za-z0-9]+))?(?:_[A-Za-z0-9]+-[A-Za-z0-9]+)*_timeseries\.(tsv|csv)$`)
+
+// Discover walks dir (symbolic links are not followed, so a link loop
+// cannot trap it) and returns the series files in path order. Unreadable
+// folders are reported, not skipped.
+func Discover(dir string) ([]Input, error) {
+	st, err := os.Stat(dir)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: input folder: %w", err)
+	}
+	if !st.IsDir() {
+		return nil, fmt.Errorf("ingest: input %s is not a folder", dir)
+	}
+	var found []Input
+	var problems Problems
+	err = filepath.WalkDir(dir, func(path string, d fs.DirEntry, err error) error {
+		if err != nil {
+			problems = append(problems, &ParseError{Path: path, Err: err})
+			if d != nil && d.IsDir() {
+				return fs.SkipDir
+			}
+			return nil
+		}
+		if d.IsDir() {
+			if path != dir && strings.HasPrefix(d.Name(), ".") {
+				return fs.SkipDir
+			}
+			return nil
+		}
+		m := seriesName.FindStringSubmatch(d.Name())
+		if m == nil {
+			return nil
+		}
+		rel, _ := filepath.Rel(dir, path)
+		in := Input{Subject: m[1], Session: m[2], Path: path, Rel: filepath.ToSlash(rel)}
+		side := strings.TrimSuffix(path, filepath.Ext(path)) + ".json"
+		if _, err := os.Stat(side); err == nil {
+			in.Sidecar = side
+		}
+		found = append(found, in)
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	if len(problems) > 0 {
+		return nil, problems
+	}
+	if len(found) == 0 {
+		return nil, fmt.Errorf("ingest: %s: %w: expected files named sub-<label>[_ses-<label>]_..._timeseries.tsv (or .csv)", dir, ErrNoSeries)
+	}
+	sort.Slice(found, func(i, j int) bool { return found[i].Rel < found[j].Rel })
+	return found, nil
+}
+
+// SidecarTR reads RepetitionTime (seconds) from a BIDS JSON sidecar.
+func SidecarTR(path string) (float64, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return 0, &ParseError{Path: path, Err: err}
+	}
+	var side struct {
+		RepetitionTime *float64
+	}
+	if err := json.Unmarshal(b, &side); err != nil {
+		var se *json.SyntaxError
+		if errors.As(err, &se) {
+			line := 1 + strings.Count(string(b[:se.Offset]), "\n")
+			return 0, perr(path, line, 0, "not valid JSON: %v", err)
+		}
+		return 0, perr(path, 0, 0, "not a usable sidecar: %v", err)
+	}
+	if side.RepetitionTime == nil {
+		return 0, &ParseError{Path: path, Err: fmt.Errorf("%w: the sidecar has no RepetitionTime", ErrNoTR)}
+	}
+	if !(*side.RepetitionTime > 0) {
+		return 0, perr(path, 0, 0, "RepetitionTime %v is not a positive number of seconds", *side.RepetitionTime)
+	}
+	return *side.RepetitionTime, nil
+}

@@ -1,0 +1,132 @@
+package ingest
+
+import (
+	"errors"
+	"fmt"
+	"strconv"
+	"strings"
+)
+
+// Options are every setting of one ingest. They are stored as JSON with the
+// analysis, so the field names are part of the warehouse.
+type Options struct {
+	Input    string  `json:"input"`
+	TR       float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
+	Window   int     `json:"window"`            // time points
+	Step     int     `json:"step"`              // time points
+	Taper    string  `json:"taper"`             // none | gauss
+	TaperSD  float64 `json:"taper_sigma"`       // Gaussian sigma in time points (gauss)
+	Detrend  bool    `json:"detrend"`
+	SmoothK  int     `json:"smooth_k"` // 0: no cosine smoothing
+	SmoothSD float64 `json:"smooth_sigma"`
+	FisherZ  bool    `json:"fisher_z"`
+
+	States    int    `json:"states"` // fixed k; 0: pick by the elbow over StatesMin..StatesMax
+	StatesMin int    `json:"states_min"`
+	StatesMax int    `json:"states_max"`
+	Restarts  int    `json:"restarts"`
+	MaxIter   int    `json:"max_iter"`
+	Seed      uint64 `json:"seed"`
+	Distance  string `json:"distance"`    // sqeuclidean | cityblock
+	FitMax    int    `json:"fit_windows"` // cap on windows used to fit the states
+	Exemplars bool   `json:"exemplars"`   // fit on local maxima of window variance
+
+	Grid string `json:"grid"` // lo:hi:n thresholds of the Betti curves
+
+	OnBadSubject   string `json:"on_bad_subject"`  // fail | skip
+	ConstantRegion string `json:"constant_region"` // fail | drop
+
+	Analysis string `json:"-"`
+	Parquet  string `json:"-"`
+	Workers  int    `json:"-"`
+}
+
+// Defaults returns the options a user gets without flags.
+func Defaults() Options {
+	return Options{
+		Window: 30, Step: 1, Taper: "none", TaperSD: 3,
+		StatesMin: 2, StatesMax: 10, Restarts: 5, MaxIter: 150, Seed: 1,
+		Distance: "sqeuclidean", FitMax: 20000, Exemplars: true,
+		Grid:         "-1:1:101",
+		OnBadSubject: "fail", ConstantRegion: "fail",
+	}
+}
+
+// ParseGrid reads "lo:hi:n" into its parts.
+func ParseGrid(s string) (lo, hi float64, n int, err error) {
+	parts := strings.Split(s, ":")
+	if len(parts) != 3 {
+		return 0, 0, 0, fmt.Errorf("--grid %q: want lo:hi:n, for example -1:1:101", s)
+	}
+	lo, e1 := strconv.ParseFloat(parts[0], 64)
+	hi, e2 := strconv.ParseFloat(parts[1], 64)
+	n, e3 := strconv.Atoi(parts[2])
+	if e1 != nil || e2 != nil || e3 != nil || !(hi > lo) || n < 2 || n > 100000 {
+		return 0, 0, 0, fmt.Errorf("--grid %q: want lo:hi:n with lo < hi and 2 <= n <= 100000", s)
+	}
+	return lo, hi, n, nil
+}
+
+// Check reports every option that cannot work, as a usage error.
+func (o Options) Check() error {
+	var errs []error
+	bad := func(f string, a ...any) { errs = append(errs, fmt.Errorf(f, a...)) }
+	if o.Input == "" {
+		bad("--input is required: the folder holding participants.tsv and the series files")
+	}
+	if o.TR < 0 {
+		bad("--tr %v: must be a positive number of seconds", o.TR)
+	}
+	if o.Window < 2 {
+		bad("--window %d: a window needs at least 2 time points", o.Window)
+	}
+	if o.Step < 1 {
+		bad("--step %d: must be at least 1 time point", o.Step)
+	}
+	if o.Taper != "none" && o.Taper != "gauss" {
+		bad("--taper %q: want none or gauss", o.Taper)
+	}
+	if o.Taper == "gauss" && !(o.TaperSD > 0) {
+		bad("--taper-sigma %v: must be positive", o.TaperSD)
+	}
+	if o.SmoothK < 0 || o.SmoothSD < 0 {
+		bad("--smooth-k and --smooth-sigma must not be negative")
+	}
+	if o.States == 1 || o.States < 0 {
+		bad("--states %d: need at least 2 states (0 picks k by the elbow)", o.States)
+	}
+	if o.States == 0 && (o.StatesMin < 2 || o.StatesMax < o.StatesMin+2) {
+		bad("--states-min %d --states-max %d: the elbow needs 2 <= min and at least three k values (max >= min+2)", o.StatesMin, o.StatesMax)
+	}
+	if o.Restarts < 1 || o.MaxIter < 1 {
+		bad("--restarts and --max-iter must be at least 1")
+	}
+	if o.Distance != "sqeuclidean" && o.Distance != "cityblock" {
+		bad("--distance %q: want sqeuclidean or cityblock", o.Distance)
+	}
+	if o.FitMax < 10 {
+		bad("--fit-windows %d: too few windows to fit states", o.FitMax)
+	}
+	if _, _, _, err := ParseGrid(o.Grid); err != nil {
+		bad("%v", err)
+	}
+	if o.OnBadSubject != "fail" && o.OnBadSubject != "skip" {
+		bad("--on-bad-subject %q: want fail or skip", o.OnBadSubject)
+	}
+	if o.ConstantRegion != "fail" && o.ConstantRegion != "drop" {
+		bad("--constant-region %q: want fail or drop", o.ConstantRegion)
+	}
+	if o.Workers < 0 {
+		bad("--workers %d: must not be negative (0 uses every core)", o.Workers)
+	}
+	if len(errs) > 0 {
+		return &UsageError{Err: errors.Join(errs...)}
+	}
+	return nil
+}
+
+// UsageError marks a problem with how the command was called (exit code 2).
+type UsageError struct{ Err error }
+
+func (e *UsageError) Error() string { return "ingest: " + e.Err.Error() }
+func (e *UsageError) Unwrap() error { return e.Err }

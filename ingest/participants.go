@@ -1,0 +1,180 @@
+package ingest
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strconv"
+	"strings"
+)
+
+// Covariate is one column of participants.tsv with the type inferred from
+// its values: BIGINT when every value is an integer, DOUBLE when every value
+// is a number, VARCHAR otherwise. "n/a" and empty cells are NULL (BIDS).
+type Covariate struct {
+	Name string
+	Type string // BIGINT, DOUBLE or VARCHAR
+}
+
+// Participants is the parsed participants sheet.
+type Participants struct {
+	Path       string
+	Covariates []Covariate
+	IDs        []string         // participant_id in file order, normalised to sub-<label>
+	Values     map[string][]any // per ID: one value per covariate (int64, float64, string or nil)
+	Lines      map[string]int   // per ID: its line in the file
+}
+
+// ReadParticipants reads a participants.tsv (or .csv) file.
+func ReadParticipants(path string) (*Participants, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, &ParseError{Path: path, Err: err}
+	}
+	defer f.Close()
+	return ParseParticipants(path, f, Delimiter(path))
+}
+
+// NormaliseSubject returns the participant label with its "sub-" prefix,
+// the form every table uses.
+func NormaliseSubject(id string) string {
+	if strings.HasPrefix(id, "sub-") {
+		return id
+	}
+	return "sub-" + id
+}
+
+func isNull(s string) bool { return s == "" || s == "n/a" || s == "N/A" || s == "NA" }
+
+// ParseParticipants parses a participants sheet: a header whose first
+// column is participant_id, then one row per participant.
+func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, error) {
+	lr := newLineReader(path, r)
+	header := lr.next()
+	if header == nil {
+		if err := lr.fatal(); err != nil {
+			return nil, err
+		}
+		return nil, &ParseError{Path: path, Err: errors.Join(ErrEmpty, errors.New("expected a header starting with participant_id"))}
+	}
+	cols := strings.Split(string(header), string(delim))
+	for i := range cols {
+		cols[i] = strings.TrimSpace(cols[i])
+	}
+	if cols[0] != "participant_id" {
+		for i, c := range cols {
+			if c == "participant_id" {
+				return nil, perr(path, 1, i+1, "participant_id must be the first column (BIDS); move it to the front")
+			}
+		}
+		return nil, &ParseError{Path: path, Line: 1, Column: 1, Err: fmt.Errorf("%w: the first header cell is %q", ErrNoParticipantsCol, truncate(cols[0], 40))}
+	}
+	seen := map[string]int{}
+	for i, c := range cols {
+		if c == "" {
+			return nil, perr(path, 1, i+1, "empty column name in the header")
+		}
+		lc := strings.ToLower(c)
+		if j, dup := seen[lc]; dup {
+			return nil, perr(path, 1, i+1, "column name %q repeats column %d", c, j+1)
+		}
+		if i > 0 && (lc == "subject_id" || lc == "analysis_id") {
+			return nil, perr(path, 1, i+1, "column name %q is reserved by the warehouse; rename it", c)
+		}
+		seen[lc] = i
+	}
+	p := &Participants{Path: path, Values: map[string][]any{}, Lines: map[string]int{}}
+	raw := map[string][]string{}
+	var problems Problems
+	for {
+		line := lr.next()
+		if line == nil {
+			break
+		}
+		if strings.TrimSpace(string(line)) == "" {
+			continue
+		}
+		cells := strings.Split(string(line), string(delim))
+		if len(cells) != len(cols) {
+			problems = append(problems, &ParseError{Path: path, Line: lr.line, Err: fmt.Errorf("%w: %d cells, header has %d", ErrRagged, len(cells), len(cols))})
+			continue
+		}
+		id := strings.TrimSpace(cells[0])
+		if id == "" || isNull(id) {
+			problems = append(problems, perr(path, lr.line, 1, "empty participant_id"))
+			continue
+		}
+		id = NormaliseSubject(id)
+		if prev, dup := p.Lines[id]; dup {
+			problems = append(problems, &ParseError{Path: path, Line: lr.line, Column: 1, Err: fmt.Errorf("%w: %s is listed again (first on line %d)", ErrDuplicate, id, prev)})
+			continue
+		}
+		p.Lines[id] = lr.line
+		p.IDs = append(p.IDs, id)
+		vals := make([]string, len(cols)-1)
+		for i := range vals {
+			vals[i] = strings.TrimSpace(cells[i+1])
+		}
+		raw[id] = vals
+	}
+	if err := lr.fatal(); err != nil {
+		return nil, err
+	}
+	if len(problems) > 0 {
+		return nil, problems
+	}
+	if len(p.IDs) == 0 {
+		return nil, &ParseError{Path: path, Line: 2, Err: errors.Join(ErrNoRows, errors.New("expected one row per participant"))}
+	}
+	for c := 1; c < len(cols); c++ {
+		typ := inferType(p.IDs, raw, c-1)
+		p.Covariates = append(p.Covariates, Covariate{Name: cols[c], Type: typ})
+	}
+	for _, id := range p.IDs {
+		vals := make([]any, len(p.Covariates))
+		for c, cv := range p.Covariates {
+			s := raw[id][c]
+			if isNull(s) {
+				continue
+			}
+			switch cv.Type {
+			case "BIGINT":
+				vals[c], _ = strconv.ParseInt(s, 10, 64)
+			case "DOUBLE":
+				vals[c], _ = strconv.ParseFloat(s, 64)
+			default:
+				vals[c] = s
+			}
+		}
+		p.Values[id] = vals
+	}
+	return p, nil
+}
+
+func inferType(ids []string, raw map[string][]string, c int) string {
+	isInt, isNum, seen := true, true, false
+	for _, id := range ids {
+		s := raw[id][c]
+		if isNull(s) {
+			continue
+		}
+		seen = true
+		if _, err := strconv.ParseInt(s, 10, 64); err != nil {
+			isInt = false
+		}
+		if v, err := strconv.ParseFloat(s, 64); err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+			isNum = false
+		}
+	}
+	switch {
+	case !seen:
+		return "VARCHAR"
+	case isInt:
+		return "BIGINT"
+	case isNum:
+		return "DOUBLE"
+	}
+	return "VARCHAR"
+}

@@ -1,0 +1,638 @@
+package ingest
+
+import (
+	"cmp"
+	"context"
+	"database/sql"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"slices"
+	"sort"
+	"time"
+
+	"github.com/topostate/topostate/compute"
+	"github.com/topostate/topostate/schema"
+)
+
+// Progress receives the stages' progress; a nil Progress is silent.
+type Progress interface {
+	Stage(name string, total int)
+	Add(n int)
+	Finish()
+}
+
+type noProgress struct{}
+
+func (noProgress) Stage(string, int) {}
+func (noProgress) Add(int)           {}
+func (noProgress) Finish()           {}
+
+// Summary reports what an ingest did.
+type Summary struct {
+	AnalysisID  int
+	Name        string
+	Subjects    int
+	Excluded    int
+	Regions     int
+	Dropped     []string
+	States      int
+	Windows     int64
+	FitWindows  int
+	Elbow       *compute.Elbow // nil when k was fixed
+	Warnings    []string
+	PhaseTimes  []PhaseTime
+	Occupancies []float64 // cohort mean occupancy per state
+}
+
+// PhaseTime is the wall time of one stage.
+type PhaseTime struct {
+	Phase   string
+	Seconds float64
+}
+
+// Version is written into the analyses table.
+var Version = "0.1.0-dev"
+
+// Run computes every result of a cohort validated by LoadCohort and writes
+// one analysis into db in a single transaction. On any error nothing is
+// written.
+func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (*Summary, error) {
+	if prog == nil {
+		prog = noProgress{}
+	}
+	sum := &Summary{}
+	clock := time.Now()
+	lap := func(phase string) {
+		now := time.Now()
+		sum.PhaseTimes = append(sum.PhaseTimes, PhaseTime{phase, now.Sub(clock).Seconds()})
+		clock = now
+	}
+	if err := o.Check(); err != nil {
+		return nil, err
+	}
+	sum.Warnings = c.Warnings
+	workers := o.Workers
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	st := &stages{o: o, c: c, workers: workers, prog: prog}
+	if err := st.setup(); err != nil {
+		return nil, err
+	}
+
+	// Stage 1: sample windows for fitting.
+	sample, err := st.sample(ctx)
+	if err != nil {
+		return nil, err
+	}
+	lap("sample windows")
+	// Stage 2: fit the states.
+	if err := st.fit(sample); err != nil {
+		return nil, err
+	}
+	sum.Elbow = st.elbow
+	lap("fit states")
+
+	// Stages 3 and 4: per-subject results, written in subject order.
+	w, err := schema.Begin(ctx, db, o.Analysis, o.Parquet)
+	if err != nil {
+		return nil, err
+	}
+	ok := false
+	defer func() {
+		if !ok {
+			w.Rollback()
+		}
+	}()
+	if err := st.writeStatic(ctx, w); err != nil {
+		return nil, err
+	}
+	occ, err := st.perSubject(ctx, w)
+	if err != nil {
+		return nil, err
+	}
+	lap("subjects and write")
+	params, err := json.Marshal(o)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
+		w.ID, w.Name, time.Now().UTC(), Version, string(params), o.Input, len(c.Inputs), len(c.Keep), st.k, st.totalWindows, st.fitRows); err != nil {
+		return nil, fmt.Errorf("ingest: record analysis: %w", err)
+	}
+	if err := w.Commit(ctx); err != nil {
+		return nil, err
+	}
+	ok = true
+	lap("commit")
+	prog.Finish()
+
+	sum.AnalysisID, sum.Name = w.ID, w.Name
+	sum.Subjects, sum.Excluded = len(c.Inputs), len(c.Excluded)
+	sum.Regions, sum.States = len(c.Keep), st.k
+	sum.Windows, sum.FitWindows = st.totalWindows, st.fitRows
+	for _, j := range c.Dropped {
+		sum.Dropped = append(sum.Dropped, c.Regions[j])
+	}
+	sum.Occupancies = occ
+	return sum, nil
+}
+
+// stages carries what the stages share.
+type stages struct {
+	o       Options
+	c       *Cohort
+	workers int
+	prog    Progress
+
+	pre          compute.PreprocessOptions
+	win          compute.WindowOptions
+	dist         compute.Distance
+	grid         []float64
+	p            int // regions analysed
+	k            int
+	cent         compute.Matrix32
+	elbow        *compute.Elbow
+	fitRows      int
+	sampleK      []int // windows per state in the fitting sample, after relabelling
+	totalWindows int64
+}
+
+func (s *stages) setup() error {
+	s.pre = compute.PreprocessOptions{Detrend: s.o.Detrend, SmoothK: s.o.SmoothK, SmoothSigma: s.o.SmoothSD}
+	s.win = compute.WindowOptions{Width: s.o.Window, Step: s.o.Step, FisherZ: s.o.FisherZ, GaussSigma: s.o.TaperSD}
+	if s.o.Taper == "gauss" {
+		s.win.Taper = compute.TaperGauss
+	}
+	if s.o.Distance == "cityblock" {
+		s.dist = compute.CityBlock
+	}
+	lo, hi, n, err := ParseGrid(s.o.Grid)
+	if err != nil {
+		return &UsageError{Err: err}
+	}
+	s.grid = compute.Grid(lo, hi, n)
+	s.p = len(s.c.Keep)
+	for _, in := range s.c.Inputs {
+		s.totalWindows += int64(in.Windows)
+	}
+	return nil
+}
+
+// windows reads one series again and returns its window correlations.
+func (s *stages) windows(in SubjectInput) (compute.Matrix32, error) {
+	sf, err := ReadSeriesFile(in.Path)
+	if err != nil {
+		return compute.Matrix32{}, err
+	}
+	if sf.SHA256 != in.SHA256 {
+		return compute.Matrix32{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
+	}
+	y := sf.Series
+	if len(s.c.Keep) != y.P {
+		y = subset(y, s.c.Keep)
+	}
+	y, err = compute.Preprocess(y, s.pre)
+	if err != nil {
+		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+	}
+	m, err := compute.SlidingCorrelations(y, s.win)
+	if err != nil {
+		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+	}
+	return m, nil
+}
+
+func subset(y compute.Series, keep []int) compute.Series {
+	out := compute.NewSeries(y.T, len(keep))
+	for t := 0; t < y.T; t++ {
+		for c, j := range keep {
+			out.Data[t*len(keep)+c] = y.Data[t*y.P+j]
+		}
+	}
+	return out
+}
+
+// parallel runs fn for i in [0,n) on the worker pool and hands each result
+// to sink in index order, with at most 2*workers results waiting. The first
+// error stops the feeding and is returned.
+func parallel[R any](ctx context.Context, n, workers int, fn func(i int) (R, error), sink func(i int, r R) error) error {
+	type out struct {
+		r   R
+		err error
+	}
+	results := make([]chan out, n)
+	for i := range results {
+		results[i] = make(chan out, 1)
+	}
+	jobs := make(chan int)
+	slots := make(chan struct{}, 2*workers)
+	stop := make(chan struct{})
+	go func() {
+		defer close(jobs)
+		for i := range n {
+			select {
+			case slots <- struct{}{}:
+			case <-stop:
+				return
+			}
+			select {
+			case jobs <- i:
+			case <-stop:
+				return
+			}
+		}
+	}()
+	for range workers {
+		go func() {
+			for i := range jobs {
+				r, err := fn(i)
+				results[i] <- out{r, err}
+			}
+		}()
+	}
+	var first error
+	for i := range n {
+		if first == nil && ctx.Err() != nil {
+			first = ctx.Err()
+		}
+		if first != nil {
+			break
+		}
+		o := <-results[i]
+		<-slots
+		if o.err != nil {
+			first = o.err
+			break
+		}
+		if err := sink(i, o.r); err != nil {
+			first = err
+		}
+	}
+	if first != nil {
+		close(stop)
+		// Drain in-flight work so no goroutine is left blocked.
+		go func() {
+			for range jobs {
+			}
+		}()
+	}
+	return first
+}
+
+// sample is stage 1: every subject's windows once, keeping exemplars
+// (local maxima of the window variance) or all windows, at most a fair
+// share per subject; then a uniform cap over the pool.
+func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
+	n := len(s.c.Inputs)
+	s.prog.Stage("sampling windows", n)
+	perSubject := max(1, (2*s.o.FitMax+n-1)/n)
+	D := compute.PairCount(s.p)
+	var pool []float32
+	rows := 0
+	err := parallel(ctx, n, s.workers, func(i int) ([]float32, error) {
+		m, err := s.windows(s.c.Inputs[i])
+		if err != nil {
+			return nil, err
+		}
+		idx := make([]int, m.Rows)
+		for r := range idx {
+			idx[r] = r
+		}
+		if s.o.Exemplars {
+			idx = compute.LocalMaxima(compute.WindowVariance(m))
+			if len(idx) == 0 {
+				idx = []int{m.Rows / 2}
+			}
+		}
+		if len(idx) > perSubject {
+			rng := rand.New(rand.NewPCG(s.o.Seed, uint64(i)+1))
+			idx = pick(rng, idx, perSubject)
+		}
+		out := make([]float32, 0, len(idx)*D)
+		for _, r := range idx {
+			out = append(out, m.Row(r)...)
+		}
+		return out, nil
+	}, func(i int, rowsOf []float32) error {
+		pool = append(pool, rowsOf...)
+		rows += len(rowsOf) / D
+		s.prog.Add(1)
+		return nil
+	})
+	if err != nil {
+		return compute.Matrix32{}, err
+	}
+	m := compute.Matrix32{Rows: rows, Cols: D, Data: pool}
+	if rows > s.o.FitMax {
+		rng := rand.New(rand.NewPCG(s.o.Seed, 0))
+		all := make([]int, rows)
+		for r := range all {
+			all[r] = r
+		}
+		keep := pick(rng, all, s.o.FitMax)
+		capped := compute.NewMatrix32(len(keep), D)
+		for c, r := range keep {
+			copy(capped.Row(c), m.Row(r))
+		}
+		m = capped
+	}
+	s.fitRows = m.Rows
+	return m, nil
+}
+
+// pick returns k of idx chosen uniformly without replacement, in their
+// original order.
+func pick(rng *rand.Rand, idx []int, k int) []int {
+	perm := rng.Perm(len(idx))[:k]
+	sort.Ints(perm)
+	out := make([]int, k)
+	for i, p := range perm {
+		out[i] = idx[p]
+	}
+	return out
+}
+
+// fit is stage 2: the elbow scan (or a fixed k) and the final centroids,
+// relabelled so state 1 is the most frequent in the fitting sample.
+func (s *stages) fit(x compute.Matrix32) error {
+	opt := compute.KMeansOptions{Restarts: s.o.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers}
+	var res compute.KMeansResult
+	if s.o.States > 0 {
+		if s.o.States > x.Rows {
+			return &UsageError{Err: fmt.Errorf("--states %d is more than the %d windows available to fit the states", s.o.States, x.Rows)}
+		}
+		opt.K = s.o.States
+		s.prog.Stage(fmt.Sprintf("k-means, k=%d", s.o.States), 1)
+		r, err := compute.KMeans(x, opt, s.o.Seed)
+		if err != nil {
+			return fmt.Errorf("ingest: fit states: %w", err)
+		}
+		s.prog.Add(1)
+		res, s.k = r, s.o.States
+	} else {
+		if s.o.StatesMax > x.Rows {
+			return &UsageError{Err: fmt.Errorf("--states-max %d is more than the %d windows available to fit the states", s.o.StatesMax, x.Rows)}
+		}
+		s.prog.Stage(fmt.Sprintf("elbow scan, k=%d..%d", s.o.StatesMin, s.o.StatesMax), 1)
+		e, fits, err := compute.ElbowScan(x, s.o.StatesMin, s.o.StatesMax, opt, s.o.Seed)
+		if err != nil {
+			return fmt.Errorf("ingest: elbow scan: %w", err)
+		}
+		s.prog.Add(1)
+		s.elbow = &e
+		s.k = e.ChordK
+		res = fits[e.ChordK-s.o.StatesMin]
+	}
+	// Relabel: most frequent state first, ties by old label.
+	count := make([]int, s.k)
+	for _, l := range res.Labels {
+		count[l]++
+	}
+	order := make([]int, s.k)
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortStableFunc(order, func(a, b int) int { return cmp.Compare(count[b], count[a]) })
+	s.cent = compute.NewMatrix32(s.k, x.Cols)
+	s.sampleK = make([]int, s.k)
+	for newL, oldL := range order {
+		copy(s.cent.Row(newL), res.Centroids.Row(oldL))
+		s.sampleK[newL] = count[oldL]
+	}
+	return nil
+}
+
+// writeStatic writes the analysis-level tables: regions, elbow, centroids,
+// subjects, excluded inputs.
+func (s *stages) writeStatic(ctx context.Context, w *schema.Writer) error {
+	id := w.ID
+	rb := schema.NewBatch(schema.Regions)
+	defer rb.Release()
+	node := map[int]int{}
+	for n, j := range s.c.Keep {
+		node[j] = n + 1
+	}
+	for j, name := range s.c.Regions {
+		if n, ok := node[j]; ok {
+			rb.Row(id, n, j+1, name, false)
+		} else {
+			rb.Row(id, nil, j+1, name, true)
+		}
+	}
+	eb := schema.NewBatch(schema.Elbow)
+	defer eb.Release()
+	if s.elbow != nil {
+		for _, pt := range s.elbow.Points {
+			eb.Row(id, pt.K, pt.WCSS, pt.K == s.k, pt.K == s.elbow.ChordK, pt.K == s.elbow.SecondDiffK)
+		}
+	}
+	cb := schema.NewBatch(schema.StateCentroids)
+	defer cb.Release()
+	for st := range s.k {
+		row := s.cent.Row(st)
+		for q, v := range row {
+			i, j := compute.PairOf(s.p, q)
+			cb.Row(id, st+1, i+1, j+1, float64(v))
+		}
+	}
+	xb := schema.NewBatch(schema.ExcludedInputs)
+	defer xb.Release()
+	for _, x := range s.c.Excluded {
+		xb.Row(id, x.Subject, x.Session, x.Rel, x.Reason)
+	}
+	for _, b := range []*schema.Batch{rb, eb, cb, xb} {
+		if err := w.Append(ctx, b); err != nil {
+			return err
+		}
+	}
+	return s.writeSubjects(ctx, w)
+}
+
+// perSubject is stage 3 (parallel) feeding stage 4 (in order).
+func (s *stages) perSubject(ctx context.Context, w *schema.Writer) ([]float64, error) {
+	n := len(s.c.Inputs)
+	s.prog.Stage("subjects", n)
+	out := newOutBatches()
+	defer out.release()
+	occ := make([]float64, s.k)
+	err := parallel(ctx, n, s.workers, func(i int) (*subjectResult, error) {
+		return s.subject(s.c.Inputs[i])
+	}, func(i int, r *subjectResult) error {
+		in := s.c.Inputs[i]
+		out.add(w.ID, in, r, s)
+		for k := range occ {
+			occ[k] += r.dyn.Occupancy[k] / float64(n)
+		}
+		s.prog.Add(1)
+		if out.rows() > 1<<20 {
+			return out.flush(ctx, w)
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	return occ, out.flush(ctx, w)
+}
+
+// subjectResult is one series' results, before they become rows.
+type subjectResult struct {
+	labels []int
+	dist   []float64
+	dyn    compute.StateDynamics
+	nets   []*stateNet // per state; nil when the state is never visited
+}
+
+type stateNet struct {
+	windows    int
+	meanWeight float64
+	filt       compute.Filtration
+	b0, b1     []int
+}
+
+func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
+	m, err := s.windows(in)
+	if err != nil {
+		return nil, err
+	}
+	labels, dist := compute.Assign(m, s.cent, s.dist, 1)
+	dyn, err := compute.Dynamics(labels, s.k)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
+	}
+	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
+	sums := make([][]float64, s.k)
+	counts := make([]int, s.k)
+	for row, l := range labels {
+		if sums[l] == nil {
+			sums[l] = make([]float64, m.Cols)
+		}
+		for q, v := range m.Row(row) {
+			sums[l][q] += float64(v)
+		}
+		counts[l]++
+	}
+	for st := range s.k {
+		if counts[st] == 0 {
+			continue
+		}
+		net := sums[st]
+		mean := 0.0
+		for q := range net {
+			net[q] /= float64(counts[st])
+			if s.o.FisherZ {
+				net[q] = math.Tanh(net[q])
+			}
+			mean += net[q]
+		}
+		f, err := compute.GraphFiltration(s.p, net)
+		if err != nil {
+			return nil, fmt.Errorf("ingest: %s state %d: %w", in.Path, st+1, err)
+		}
+		b0, b1 := f.Curves(s.grid)
+		r.nets[st] = &stateNet{windows: counts[st], meanWeight: mean / float64(len(net)), filt: f, b0: b0, b1: b1}
+	}
+	return r, nil
+}
+
+// outBatches accumulates per-subject rows between flushes.
+type outBatches struct {
+	inputs, seq, metrics, dyn, trans, curves, events, nets *schema.Batch
+}
+
+func newOutBatches() *outBatches {
+	return &outBatches{
+		inputs: schema.NewBatch(schema.Inputs), seq: schema.NewBatch(schema.StateSequence),
+		metrics: schema.NewBatch(schema.StateMetrics), dyn: schema.NewBatch(schema.SubjectDynamics),
+		trans: schema.NewBatch(schema.Transitions), curves: schema.NewBatch(schema.BettiCurves),
+		events: schema.NewBatch(schema.FiltrationEvts), nets: schema.NewBatch(schema.StateNetworks),
+	}
+}
+
+func (b *outBatches) all() []*schema.Batch {
+	return []*schema.Batch{b.inputs, b.seq, b.metrics, b.dyn, b.trans, b.curves, b.events, b.nets}
+}
+
+func (b *outBatches) rows() int {
+	n := 0
+	for _, x := range b.all() {
+		n += x.Len()
+	}
+	return n
+}
+
+func (b *outBatches) flush(ctx context.Context, w *schema.Writer) error {
+	var errs []error
+	for _, x := range b.all() {
+		if err := w.Append(ctx, x); err != nil {
+			errs = append(errs, err)
+		}
+	}
+	return errors.Join(errs...)
+}
+
+func (b *outBatches) release() {
+	for _, x := range b.all() {
+		x.Release()
+	}
+}
+
+func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
+	sub, ses := in.Subject, in.Session
+	b.inputs.Row(id, sub, ses, in.Rel, in.SHA256, in.Timepoints, len(s.c.Regions), in.TR, in.TRSource)
+	half := float64(s.o.Window-1) / 2
+	for wi, l := range r.labels {
+		start := wi * s.o.Step
+		b.seq.Row(id, sub, ses, wi+1, start, (float64(start)+half)*in.TR, l+1, r.dist[wi])
+	}
+	d := r.dyn
+	visited := 0
+	for st := range s.k {
+		var mw, ms *float64
+		if d.Dwells[st] > 0 {
+			visited++
+			a, c := d.MeanDwell[st], d.MeanDwell[st]*float64(s.o.Step)*in.TR
+			mw, ms = &a, &c
+		}
+		b.metrics.Row(id, sub, ses, st+1, d.Occupancy[st], d.Dwells[st], mw, ms)
+	}
+	rate := 0.0
+	if d.Windows > 1 {
+		rate = float64(d.Transitions) / float64(d.Windows-1)
+	}
+	b.dyn.Row(id, sub, ses, d.Windows, d.Transitions, rate, visited)
+	prob, ok := d.Probabilities()
+	for i := range s.k {
+		for j := range s.k {
+			var p *float64
+			if ok[i] {
+				v := prob[i][j]
+				p = &v
+			}
+			b.trans.Row(id, sub, ses, i+1, j+1, d.Counts[i][j], p)
+		}
+	}
+	for st, net := range r.nets {
+		if net == nil {
+			continue
+		}
+		for g, e := range s.grid {
+			b.curves.Row(id, sub, ses, st+1, 0, e, net.b0[g])
+		}
+		for g, e := range s.grid {
+			b.curves.Row(id, sub, ses, st+1, 1, e, net.b1[g])
+		}
+		b.events.AppendEvents(id, sub, ses, st+1, 0, net.filt.Beta0Events)
+		b.events.AppendEvents(id, sub, ses, st+1, 1, net.filt.Beta1Events)
+		tree := 0.0
+		for _, v := range net.filt.Beta0Events {
+			tree += v
+		}
+		b.nets.Row(id, sub, ses, st+1, net.windows, net.meanWeight, tree)
+	}
+}
