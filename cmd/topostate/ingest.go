@@ -1,0 +1,156 @@
+package main
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"io/fs"
+	"os"
+	"runtime"
+	"strings"
+
+	"github.com/urfave/cli/v2"
+
+	"github.com/topostate/topostate/ingest"
+	"github.com/topostate/topostate/schema"
+)
+
+func ingestFlags() []cli.Flag {
+	d := ingest.Defaults()
+	return []cli.Flag{
+		&cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "cohort `FOLDER`: participants.tsv and sub-<label>[_ses-<label>]_..._timeseries.tsv|csv files"},
+		&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (created when missing)"},
+		&cli.StringFlag{Name: "analysis", Usage: "`NAME` of this analysis in the warehouse (default analysis-<id>)"},
+		&cli.Float64Flag{Name: "tr", Usage: "repetition time in `SECONDS`; default: RepetitionTime from each file's JSON sidecar"},
+		&cli.IntFlag{Name: "window", Value: d.Window, Usage: "sliding-window width in time points"},
+		&cli.IntFlag{Name: "step", Value: d.Step, Usage: "window step in time points"},
+		&cli.StringFlag{Name: "taper", Value: d.Taper, Usage: "window weights: none (rectangle) or gauss (rectangle convolved with a Gaussian)"},
+		&cli.Float64Flag{Name: "taper-sigma", Value: d.TaperSD, Usage: "Gaussian sigma of the taper, in time points"},
+		&cli.BoolFlag{Name: "detrend", Usage: "remove a linear trend from each region before windowing"},
+		&cli.IntFlag{Name: "smooth-k", Usage: "cosine-series smoothing with terms 0..K (0: none)"},
+		&cli.Float64Flag{Name: "smooth-sigma", Usage: "heat-kernel weight sigma of the cosine series"},
+		&cli.BoolFlag{Name: "fisher-z", Usage: "cluster Fisher z = atanh(r) instead of r; state networks are averaged in z"},
+		&cli.IntFlag{Name: "states", Usage: "fixed number of states k (0: pick k by the elbow)"},
+		&cli.IntFlag{Name: "states-min", Value: d.StatesMin, Usage: "smallest k of the elbow scan"},
+		&cli.IntFlag{Name: "states-max", Value: d.StatesMax, Usage: "largest k of the elbow scan"},
+		&cli.IntFlag{Name: "restarts", Value: d.Restarts, Usage: "k-means restarts (best of)"},
+		&cli.IntFlag{Name: "max-iter", Value: d.MaxIter, Usage: "k-means iterations per restart at most"},
+		&cli.Uint64Flag{Name: "seed", Value: d.Seed, Usage: "seed of every random choice; same seed, same results"},
+		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance: sqeuclidean or cityblock"},
+		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most this many windows are used to fit the states"},
+		&cli.BoolFlag{Name: "all-windows", Usage: "fit on all windows (up to --fit-windows) instead of variance-peak exemplars"},
+		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
+		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "fail, or skip a series with problems (recorded in excluded_inputs)"},
+		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "fail, or drop a constant region from every subject (recorded in regions)"},
+		&cli.StringFlag{Name: "parquet", Usage: "also write every table of this analysis as Parquet into `FOLDER`"},
+		&cli.IntFlag{Name: "workers", Value: 0, Usage: fmt.Sprintf("parallel workers (0: all %d cores); results do not depend on it", runtime.GOMAXPROCS(0))},
+		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
+	}
+}
+
+func ingestOptions(c *cli.Context) ingest.Options {
+	return ingest.Options{
+		Input: c.String("input"), TR: c.Float64("tr"),
+		Window: c.Int("window"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
+		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
+		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),
+		Restarts: c.Int("restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
+		FitMax: c.Int("fit-windows"), Exemplars: !c.Bool("all-windows"), Grid: c.String("grid"),
+		OnBadSubject: c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
+		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
+	}
+}
+
+func ingestCommand() *cli.Command {
+	return &cli.Command{
+		Name:      "ingest",
+		Usage:     "analyse a cohort and store every result as one analysis in a warehouse file",
+		ArgsUsage: " ",
+		Flags:     ingestFlags(),
+		Action: func(c *cli.Context) error {
+			if c.NArg() > 0 {
+				return usagef("ingest takes no arguments (got %q); name the cohort with --input", c.Args().First())
+			}
+			o := ingestOptions(c)
+			if err := o.Check(); err != nil {
+				return err
+			}
+			_, err := runIngest(c, o, c.String("db"), c.App.Writer)
+			return err
+		},
+	}
+}
+
+// runIngest validates the whole cohort first, so a bad cohort never opens
+// the file for writing; a file this run created is removed again when the
+// run fails.
+func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (*ingest.Summary, error) {
+	cohort, err := ingest.LoadCohort(o)
+	if err != nil {
+		return nil, err
+	}
+	_, statErr := os.Stat(dbPath)
+	created := errors.Is(statErr, fs.ErrNotExist)
+	sum, err := ingestInto(c, cohort, o, dbPath)
+	if err != nil {
+		if created {
+			os.Remove(dbPath)
+			os.Remove(dbPath + ".wal")
+		}
+		return nil, err
+	}
+	printSummary(out, dbPath, sum)
+	return sum, nil
+}
+
+func ingestInto(c *cli.Context, cohort *ingest.Cohort, o ingest.Options, dbPath string) (*ingest.Summary, error) {
+	db, err := schema.Open(dbPath, false, nil)
+	if err != nil {
+		return nil, err
+	}
+	defer db.Close()
+	var prog ingest.Progress
+	if p := newProgress(c.App.ErrWriter, c.Bool("quiet")); p != nil {
+		prog = p
+	}
+	return ingest.Run(c.Context, db, cohort, o, prog)
+}
+
+func printSummary(w io.Writer, dbPath string, s *ingest.Summary) {
+	fmt.Fprintf(w, "analysis %q (id %d) written to %s\n", s.Name, s.AnalysisID, dbPath)
+	fmt.Fprintf(w, "  series analysed  %d", s.Subjects)
+	if s.Excluded > 0 {
+		fmt.Fprintf(w, " (%d excluded: see table excluded_inputs)", s.Excluded)
+	}
+	fmt.Fprintln(w)
+	fmt.Fprintf(w, "  regions          %d", s.Regions)
+	if len(s.Dropped) > 0 {
+		fmt.Fprintf(w, " (dropped as constant: %s)", strings.Join(s.Dropped, ", "))
+	}
+	fmt.Fprintln(w)
+	fmt.Fprintf(w, "  windows          %d (%d used to fit the states)\n", s.Windows, s.FitWindows)
+	if e := s.Elbow; e != nil {
+		fmt.Fprintf(w, "  states           %d, picked by the elbow (chord rule) over k=%d..%d\n", s.States, e.Points[0].K, e.Points[len(e.Points)-1].K)
+		if e.SecondDiffK != e.ChordK {
+			fmt.Fprintf(w, "  note             the largest-second-difference rule picks k=%d instead; both are in table elbow,\n"+
+				"                   and --states %d re-runs with that choice\n", e.SecondDiffK, e.SecondDiffK)
+		}
+	} else {
+		fmt.Fprintf(w, "  states           %d (fixed by --states)\n", s.States)
+	}
+	occ := make([]string, len(s.Occupancies))
+	for i, v := range s.Occupancies {
+		occ[i] = fmt.Sprintf("%d: %.2f", i+1, v)
+	}
+	fmt.Fprintf(w, "  mean occupancy   %s\n", strings.Join(occ, "  "))
+	for _, msg := range s.Warnings {
+		fmt.Fprintf(w, "  warning          %s\n", msg)
+	}
+	var total float64
+	parts := make([]string, len(s.PhaseTimes))
+	for i, p := range s.PhaseTimes {
+		total += p.Seconds
+		parts[i] = fmt.Sprintf("%s %.1fs", p.Phase, p.Seconds)
+	}
+	fmt.Fprintf(w, "  time             %.1fs (%s)\n", total, strings.Join(parts, ", "))
+}
