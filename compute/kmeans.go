@@ -50,6 +50,9 @@ type KMeansOptions struct {
 	// (or column) blocks and sums are taken in a fixed order, so results are
 	// identical for any Workers.
 	Workers int
+	// Done, when not nil, is called after each restart finishes (for a
+	// progress display); it must not block for long.
+	Done func()
 }
 
 // KMeansResult is one fitted clustering.
@@ -576,6 +579,9 @@ func KMeans(x Matrix32, opt KMeansOptions, seed uint64) (KMeansResult, error) {
 		res := f.run(opt.K, maxIter, tol, rand.New(rand.NewPCG(seed, uint64(r))))
 		if r == 0 || res.WCSS < best.WCSS {
 			best = res
+		}
+		if opt.Done != nil {
+			opt.Done()
 		}
 	}
 	return best, nil

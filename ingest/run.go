@@ -360,30 +360,29 @@ func pick(rng *rand.Rand, idx []int, k int) []int {
 // fit is stage 2: the elbow scan (or a fixed k) and the final centroids,
 // relabelled so state 1 is the most frequent in the fitting sample.
 func (s *stages) fit(x compute.Matrix32) error {
-	opt := compute.KMeansOptions{Restarts: s.o.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers}
+	opt := compute.KMeansOptions{Restarts: s.o.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers,
+		Done: func() { s.prog.Add(1) }}
 	var res compute.KMeansResult
 	if s.o.States > 0 {
 		if s.o.States > x.Rows {
 			return &UsageError{Err: fmt.Errorf("--states %d is more than the %d windows available to fit the states", s.o.States, x.Rows)}
 		}
 		opt.K = s.o.States
-		s.prog.Stage(fmt.Sprintf("k-means, k=%d", s.o.States), 1)
+		s.prog.Stage(fmt.Sprintf("k-means, k=%d", s.o.States), s.o.Restarts)
 		r, err := compute.KMeans(x, opt, s.o.Seed)
 		if err != nil {
 			return fmt.Errorf("ingest: fit states: %w", err)
 		}
-		s.prog.Add(1)
 		res, s.k = r, s.o.States
 	} else {
 		if s.o.StatesMax > x.Rows {
 			return &UsageError{Err: fmt.Errorf("--states-max %d is more than the %d windows available to fit the states", s.o.StatesMax, x.Rows)}
 		}
-		s.prog.Stage(fmt.Sprintf("elbow scan, k=%d..%d", s.o.StatesMin, s.o.StatesMax), 1)
+		s.prog.Stage(fmt.Sprintf("elbow scan, k=%d..%d", s.o.StatesMin, s.o.StatesMax), (s.o.StatesMax-s.o.StatesMin+1)*s.o.Restarts)
 		e, fits, err := compute.ElbowScan(x, s.o.StatesMin, s.o.StatesMax, opt, s.o.Seed)
 		if err != nil {
 			return fmt.Errorf("ingest: elbow scan: %w", err)
 		}
-		s.prog.Add(1)
 		s.elbow = &e
 		s.k = e.ChordK
 		res = fits[e.ChordK-s.o.StatesMin]

@@ -40,7 +40,9 @@ func (p *barProgress) Stage(name string, total int) {
 		progressbar.OptionSetWidth(30),
 		progressbar.OptionThrottle(100_000_000),
 		progressbar.OptionClearOnFinish(),
+		progressbar.OptionShowElapsedTimeOnFinish(),
 	)
+	p.bar.RenderBlank()
 }
 
 func (p *barProgress) Add(n int) {
