@@ -51,7 +51,7 @@ func Dictionary() []TableDoc {
 		}
 		if m := columnRe.FindStringSubmatch(line); m != nil {
 			cur.Columns = append(cur.Columns, ColumnDoc{Table: cur.Name, Column: m[1], Type: m[2],
-				Nullable: !strings.Contains(m[3], "NOT NULL") && !strings.Contains(m[3], "PRIMARY KEY"),
+				Nullable:    !strings.Contains(m[3], "NOT NULL") && !strings.Contains(m[3], "PRIMARY KEY"),
 				Description: strings.TrimSpace(m[4])})
 		}
 	}
