@@ -57,8 +57,12 @@ func LoadAtlas(path, labelsPath string) (*Atlas, error) {
 	if err != nil {
 		return nil, err
 	}
-	n := h.Dim[1] * h.Dim[2] * h.Dim[3]
-	buf := make([]byte, n*bpv)
+	vol, err := h.volumeBytes(path, bpv, 1, nf.size)
+	if err != nil {
+		return nil, err
+	}
+	n := vol / bpv
+	buf := make([]byte, vol)
 	if got, err := io.ReadFull(nf.data, buf); err != nil {
 		return nil, &ParseError{Path: path, Err: fmt.Errorf("%w: %d of the %d bytes of labels are there", ErrTruncated, got, len(buf))}
 	}
@@ -226,9 +230,9 @@ func ReadLabelTable(path string) ([]LabelRow, error) {
 // its region series: y[t][r] = (1/|R_r|) sum over voxels v in region r of
 // x_t(v), the mean of the scaled values of volume t (scaling applied to the
 // mean, which is the same by linearity). Volumes are read one at a time,
-// so memory is one volume whatever the length of the series. The SeriesFile
-// carries the SHA-256 of the file's bytes and the header's TR (0 when the
-// header states none; see NiftiHeader.TR).
+// so memory is one volume (raw and decoded) whatever the length of the
+// series. The SeriesFile carries the SHA-256 of the file's bytes and the
+// header's TR (0 when the header states none; see NiftiHeader.TR).
 func (a *Atlas) RegionMeans(path string) (*SeriesFile, error) {
 	hash := sha256.New()
 	nf, err := openNifti(path, hash)
@@ -252,10 +256,13 @@ func (a *Atlas) RegionMeans(path string) (*SeriesFile, error) {
 	if msg := sameGrid(h, a.Header); msg != "" {
 		return nil, &ParseError{Path: path, Err: fmt.Errorf("%w %s: %s; resample the atlas to the image grid", ErrGridMismatch, a.Path, msg)}
 	}
-	nx, ny := h.Dim[1], h.Dim[2]
-	nvox := nx * ny * h.Dim[3]
 	T, p := h.Dim[4], len(a.Labels)
-	buf := make([]byte, nvox*bpv)
+	vol, err := h.volumeBytes(path, bpv, T, nf.size)
+	if err != nil {
+		return nil, err
+	}
+	buf := make([]byte, vol)
+	vals := make([]float64, vol/bpv) // one volume, decoded
 	dec := decoder(h.Datatype, h.Order)
 	y := compute.NewSeries(T, p)
 	sums := make([]float64, p)
@@ -266,9 +273,10 @@ func (a *Atlas) RegionMeans(path string) (*SeriesFile, error) {
 			}
 			return nil, &ParseError{Path: path, Err: fmt.Errorf("volume %d of %d: %w", t+1, T, err)}
 		}
+		decodeVolume(vals, buf, h.Datatype, h.Order)
 		clear(sums)
 		for q, v := range a.vox {
-			sums[a.reg[q]] += dec(buf, int(v))
+			sums[a.reg[q]] += vals[v]
 		}
 		for r := range p {
 			m := h.scale(sums[r] / float64(a.Voxels[r]))

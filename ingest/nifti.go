@@ -144,6 +144,25 @@ func parseNiftiHeader(path string, b []byte) (*NiftiHeader, error) {
 	return h, nil
 }
 
+// maxVolumeBytes bounds one 3-D volume (a 1 mm whole-head grid in float64
+// is about 60 MB); a header asking for more is refused before anything is
+// allocated for it.
+const maxVolumeBytes = 1 << 30
+
+// volumeBytes returns the bytes of one x*y*z volume, checking the size
+// against maxVolumeBytes and, for an uncompressed file of size bytes
+// (size < 0: compressed, unknown), that volumes volumes fit in it.
+func (h *NiftiHeader) volumeBytes(path string, bpv, volumes int, size int64) (int, error) {
+	n := int64(h.Dim[1]) * int64(h.Dim[2]) * int64(h.Dim[3]) * int64(bpv)
+	if n > maxVolumeBytes {
+		return 0, &ParseError{Path: path, Err: fmt.Errorf("%w: a %d x %d x %d volume of %d-byte voxels is over 1 GiB", ErrNiftiHeaderValue, h.Dim[1], h.Dim[2], h.Dim[3], bpv)}
+	}
+	if need := h.VoxOffset + n*int64(volumes); size >= 0 && size < need {
+		return 0, &ParseError{Path: path, Err: fmt.Errorf("%w: the header describes %d volume(s) of %d bytes from byte %d (%d bytes), the file has %d", ErrTruncated, volumes, n, h.VoxOffset, need, size)}
+	}
+	return int(n), nil
+}
+
 // voxelBytes returns the bytes per voxel of a supported datatype, or an
 // error naming the datatype.
 func (h *NiftiHeader) voxelBytes(path string) (int, error) {
@@ -281,6 +300,7 @@ type niftiFile struct {
 	raw  io.Reader // the file's bytes (through the hash)
 	gz   *gzip.Reader
 	data io.Reader // uncompressed bytes from the image data on
+	size int64     // file size when not compressed; -1 when compressed
 }
 
 // openNifti opens path, gzip-compressed or not (told by its first two
@@ -290,7 +310,7 @@ func openNifti(path string, hash io.Writer) (*niftiFile, error) {
 	if err != nil {
 		return nil, &ParseError{Path: path, Err: err}
 	}
-	nf := &niftiFile{path: path, f: f}
+	nf := &niftiFile{path: path, f: f, size: -1}
 	var raw io.Reader = f
 	if hash != nil {
 		raw = io.TeeReader(f, hash)
@@ -307,6 +327,8 @@ func openNifti(path string, hash io.Writer) (*niftiFile, error) {
 		}
 		nf.gz = gz
 		r = bufio.NewReaderSize(gz, 1<<16)
+	} else if st, err := f.Stat(); err == nil {
+		nf.size = st.Size()
 	}
 	hdr := make([]byte, niftiHeaderSize)
 	n, err := io.ReadFull(r, hdr)
@@ -383,6 +405,36 @@ func decoder(dt int, o binary.ByteOrder) voxelDecoder {
 		return func(b []byte, i int) float64 { return math.Float64frombits(o.Uint64(b[8*i:])) }
 	}
 	return nil
+}
+
+// decodeVolume writes the stored value of every voxel of buf into dst
+// (len(dst) voxels). Little-endian int16, float32 and uint8, the common
+// cases, have loops of their own; the rest go through decoder.
+func decodeVolume(dst []float64, buf []byte, dt int, o binary.ByteOrder) {
+	if o == binary.LittleEndian {
+		le := binary.LittleEndian
+		switch dt {
+		case dtInt16:
+			for i := range dst {
+				dst[i] = float64(int16(le.Uint16(buf[2*i:])))
+			}
+			return
+		case dtFloat32:
+			for i := range dst {
+				dst[i] = float64(math.Float32frombits(le.Uint32(buf[4*i:])))
+			}
+			return
+		case dtUint8:
+			for i := range dst {
+				dst[i] = float64(buf[i])
+			}
+			return
+		}
+	}
+	dec := decoder(dt, o)
+	for i := range dst {
+		dst[i] = dec(buf, i)
+	}
 }
 
 // voxelName gives voxel i of an nx x ny grid as 0-based (x, y, z), the
