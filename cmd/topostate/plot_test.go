@@ -61,4 +61,20 @@ func TestPlotCommand(t *testing.T) {
 	if _, err := os.Stat(filepath.Join(out, "elbow.png")); err == nil {
 		t.Error("elbow figure drawn for a fixed k")
 	}
+	// A Fisher-z analysis beside it: --analysis picks it, and the
+	// centroids are labelled in z.
+	if code, _, se := call("ingest", "--input", cohort, "--db", db, "--window", "20", "--states", "2", "--fisher-z", "--analysis", "z", "-q"); code != 0 {
+		t.Fatalf("ingest: %d %s", code, se)
+	}
+	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.Contains(se, "holds 2 analyses (t, z)") {
+		t.Errorf("two analyses without --analysis: %d %s", code, se)
+	}
+	zdir := filepath.Join(dir, "z")
+	if code, _, se := call("plot", "--db", db, "--out", zdir, "--analysis", "z", "--format", "svg"); code != 0 {
+		t.Fatalf("plot z: %d %s", code, se)
+	}
+	b, err := os.ReadFile(filepath.Join(zdir, "centroids.svg"))
+	if err != nil || !strings.Contains(string(b), "Fisher z") || strings.Contains(string(b), ">correlation r<") {
+		t.Errorf("Fisher-z centroids not labelled in z (%v)", err)
+	}
 }

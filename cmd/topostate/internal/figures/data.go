@@ -77,7 +77,6 @@ func quoteIdent(s string) string { return `"` + strings.ReplaceAll(s, `"`, `""`)
 // defaultGroup true) puts every series in one group.
 func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool) (*Data, error) {
 	d := &Data{}
-	var params string
 	var err error
 	if name == "" {
 		var names []string
@@ -90,8 +89,8 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 		}
 		name = names[0]
 	}
-	err = db.QueryRowContext(ctx, `SELECT analysis_id, name, n_states, n_regions, CAST(parameters AS VARCHAR)
-		FROM analyses WHERE name = ?`, name).Scan(&d.AnalysisID, &d.Name, &d.States, &d.Regions, &params)
+	err = db.QueryRowContext(ctx, `SELECT analysis_id, name, n_states, n_regions, coalesce(parameters->>'fisher_z' = 'true', false)
+		FROM analyses WHERE name = ?`, name).Scan(&d.AnalysisID, &d.Name, &d.States, &d.Regions, &d.FisherZ)
 	if errors.Is(err, sql.ErrNoRows) {
 		names, _ := analysisNames(ctx, db)
 		return nil, fmt.Errorf("%w: no analysis named %q; the warehouse has: %s", ErrUsage, name, strings.Join(names, ", "))
@@ -99,9 +98,8 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 	if err != nil {
 		return nil, fmt.Errorf("figures: %w", err)
 	}
-	d.FisherZ = strings.Contains(strings.ReplaceAll(params, " ", ""), `"fisher_z":true`)
 
-	groupExpr := quoteIdent(NoGroup)
+	groupExpr := `'` + NoGroup + `'`
 	if group != "" {
 		cols, err := subjectColumns(ctx, db)
 		if err != nil {
@@ -116,9 +114,6 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 		default:
 			return nil, fmt.Errorf("%w: the subjects table has no column %q; its covariates are: %s", ErrUsage, group, strings.Join(cols, ", "))
 		}
-	}
-	if d.Group == "" {
-		groupExpr = `'` + NoGroup + `'`
 	}
 	from := func(table string) string {
 		return fmt.Sprintf(`FROM %s x LEFT JOIN subjects s ON s.analysis_id = x.analysis_id AND s.subject_id = x.subject_id
