@@ -58,6 +58,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			ingestCommand(),
 			simulateCommand(),
 			infoCommand(),
+			plotCommand(),
 		},
 	}
 	for _, c := range app.Commands {
