@@ -2,8 +2,8 @@
 -- description: Group mean Betti curves per state and dimension, one row per threshold, ready for plotting.
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
 -- param: group_column column = group -- subjects column that holds the group
--- param: group_a text -- value of group_column for the first group (required)
--- param: group_b text -- value of group_column for the second group (required)
+-- param: group_a text -- value of group_column for the first group
+-- param: group_b text -- value of group_column for the second group
 -- One row per group, state, dimension (0: components, 1: cycles) and
 -- threshold (correlation scale). A subject's sessions are averaged first;
 -- a subject has curves only for the states it visited, and n_subjects

@@ -1,7 +1,7 @@
 -- name: covariate_association
 -- description: Pearson correlation of a numeric covariate with occupancy and dwell time per state, BH-adjusted across states.
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
--- param: covariate numeric_column -- numeric subjects column, e.g. a symptom score (required)
+-- param: covariate numeric_column -- numeric subjects column, e.g. a symptom score
 -- One row per state and measure (occupancy, 0-1; dwell_seconds). Subjects
 -- with a covariate value are used; a subject's sessions are averaged first,
 -- and dwell time leaves out subjects who never visited the state. slope is

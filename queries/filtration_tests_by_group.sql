@@ -2,8 +2,8 @@
 -- description: Per state and dimension, exact KS test between the two groups' pooled filtration events and a permutation test between their Betti curves.
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
 -- param: group_column column = group -- subjects column that holds the group
--- param: group_a text -- value of group_column for the first group (required)
--- param: group_b text -- value of group_column for the second group (required)
+-- param: group_a text -- value of group_column for the first group
+-- param: group_b text -- value of group_column for the second group
 -- param: n_perm integer = 9999 -- relabellings per curve permutation test
 -- param: seed integer = 1 -- permutation seed; state s, dimension d use seed + 2s + d
 -- One row per state and dimension (0: spanning-tree events, beta0; 1: other

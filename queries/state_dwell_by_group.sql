@@ -2,8 +2,8 @@
 -- description: Fractional occupancy and mean dwell time per state in two groups, with Welch and permutation tests and BH-adjusted p across states.
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
 -- param: group_column column = group -- subjects column that holds the group
--- param: group_a text -- value of group_column for the first group (required)
--- param: group_b text -- value of group_column for the second group (required)
+-- param: group_a text -- value of group_column for the first group
+-- param: group_b text -- value of group_column for the second group
 -- param: n_perm integer = 9999 -- relabellings per permutation test
 -- param: seed integer = 1 -- permutation seed; state s uses seed + s
 -- One row per state and measure (occupancy: share of windows, 0-1;

@@ -2,8 +2,8 @@
 -- description: Transition matrix of each group: mean over subjects of the row-normalised transition probabilities.
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
 -- param: group_column column = group -- subjects column that holds the group
--- param: group_a text -- value of group_column for the first group (required)
--- param: group_b text -- value of group_column for the second group (required)
+-- param: group_a text -- value of group_column for the first group
+-- param: group_b text -- value of group_column for the second group
 -- One row per group, from_state and to_state. A subject's sessions are
 -- averaged first; a subject enters a row of the matrix only when it left
 -- from_state at least once (otherwise its probabilities are NULL), so every
