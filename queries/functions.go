@@ -106,7 +106,7 @@ func Functions() []*Function {
 			Name:      "ks_pvalue_exact",
 			Signature: "ks_pvalue_exact(m BIGINT, n BIGINT, d DOUBLE) -> DOUBLE",
 			Doc: "Exact P(D >= d) for the two-sample Kolmogorov-Smirnov statistic D of samples of sizes m and n " +
-				"(no ties), by the lattice-path recursion of METHODS section 6. D only takes values k/L, L = lcm(m, n): " +
+				"(no ties), by counting lattice paths (every ordering of the pooled values equally likely). D only takes values k/L, L = lcm(m, n): " +
 				"a d within float rounding of such a value is snapped to it; any other d is raised to the next " +
 				"attainable value, because for D on that grid P(D >= d) = P(D >= ceil(d*L)/L) exactly (rounding to " +
 				"the nearest value could move a d just above a grid point down and report a larger tail than the true " +
@@ -272,7 +272,7 @@ func Functions() []*Function {
 			Signature: "graph_filtration_events(weights DOUBLE[], dimension BIGINT) -> DOUBLE[]",
 			Doc: "The filtration events of a network given as its upper triangle (pairs i < j in row-major order, " +
 				"p(p-1)/2 values): dimension 0 gives the p-1 maximum-spanning-tree weights (where beta0 steps), " +
-				"dimension 1 the other edge weights (where beta1 steps), both ascending (METHODS section 5).",
+				"dimension 1 the other edge weights (where beta1 steps), both ascending.",
 			in: []duckdb.TypeInfo{tList, tBigint}, out: tList,
 			fn: func(a []driver.Value) (any, error) {
 				w, err := doubles("weights", a[0])

@@ -7,7 +7,6 @@ import (
 	"io"
 	"os"
 	"strings"
-	"text/tabwriter"
 
 	"github.com/urfave/cli/v2"
 
@@ -257,14 +256,35 @@ func listQueries(out io.Writer) error {
 		}
 	}
 	fmt.Fprintln(out, "\nSQL functions (in every query):")
-	tw := tabwriter.NewWriter(out, 0, 2, 2, ' ', 0)
 	for _, f := range queries.Functions() {
-		fmt.Fprintf(tw, "  %s\n", f.Signature)
+		fmt.Fprintf(out, "\n  %s\n", f.Signature)
+		for _, l := range wrap(f.Doc, 96) {
+			fmt.Fprintf(out, "      %s\n", l)
+		}
 	}
-	tw.Flush()
 	fmt.Fprintln(out, "\nSQL macros (print them with --macros to use them in another DuckDB client):")
 	fmt.Fprintln(out, "  bh_adjust(p, family)  Benjamini-Hochberg adjusted p; e.g. bh_adjust(p, list(p) OVER (PARTITION BY measure))")
 	fmt.Fprintln(out, "  subject_covariate(analysis, column_name)  table of (subject_id, value) for one subjects column")
 	fmt.Fprintln(out, "  subject_groups(analysis, column_name, group_a, group_b)  table of (subject_id, side 'a'/'b', group_value)")
 	return nil
+}
+
+// wrap breaks text into lines of at most width characters at spaces.
+func wrap(text string, width int) []string {
+	var lines []string
+	line := ""
+	for _, w := range strings.Fields(text) {
+		if line != "" && len(line)+1+len(w) > width {
+			lines = append(lines, line)
+			line = ""
+		}
+		if line != "" {
+			line += " "
+		}
+		line += w
+	}
+	if line != "" {
+		lines = append(lines, line)
+	}
+	return lines
 }
