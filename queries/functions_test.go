@@ -19,7 +19,7 @@ import (
 
 // memConn returns a connection to an in-memory DuckDB with the functions
 // and macros registered.
-func memConn(t *testing.T) *sql.Conn {
+func memConn(t testing.TB) *sql.Conn {
 	t.Helper()
 	db, err := sql.Open("duckdb", "")
 	if err != nil {

@@ -441,17 +441,32 @@ func WriteParquet(ctx context.Context, conn *sql.Conn, query string, w io.Writer
 
 // writeRecords writes the records that each calls yield on into one
 // Parquet file. w is left open (the caller owns it).
+//
+// DuckDB hands over Arrow batches of a few thousand rows; buffered writing
+// gathers them into row groups of up to a million rows instead of one small
+// row group per batch. A buffered row group still points into the batches'
+// memory, which the reader frees as it moves on, so every batch is retained
+// until the file is closed (the result is held in memory once anyway).
 func writeRecords(sc *arrow.Schema, each func(yield func(arrow.Record) error) error, w io.Writer) (int64, error) {
-	props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd))
+	props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd),
+		parquet.WithMaxRowGroupLength(1_000_000))
 	// pqarrow closes a sink that is an io.Closer; hide Close from it.
 	fw, err := pqarrow.NewFileWriter(sc, writeOnly{w}, props, pqarrow.DefaultWriterProps())
 	if err != nil {
 		return 0, err
 	}
+	var held []arrow.Record
+	defer func() {
+		for _, r := range held {
+			r.Release()
+		}
+	}()
 	var n int64
 	err = each(func(rec arrow.Record) error {
+		rec.Retain()
+		held = append(held, rec)
 		n += rec.NumRows()
-		return fw.Write(rec)
+		return fw.WriteBuffered(rec)
 	})
 	if cerr := fw.Close(); err == nil {
 		err = cerr
