@@ -58,6 +58,8 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			ingestCommand(),
 			simulateCommand(),
 			infoCommand(),
+			queryCommand(),
+			exportCommand(),
 			plotCommand(),
 		},
 	}
