@@ -61,6 +61,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			queryCommand(),
 			exportCommand(),
 			plotCommand(),
+			reportCommand(),
 		},
 	}
 	for _, c := range app.Commands {
