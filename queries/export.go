@@ -87,8 +87,10 @@ const DictionaryFile = "data_dictionary"
 // Export writes warehouse tables as one file each (DIR/<table>.parquet or
 // .csv) plus a data dictionary (DIR/data_dictionary.<ext>, one row per
 // column of the exported tables: table, column, type, nullable, meaning,
-// unit; the subjects table's covariates included). Each file is written
-// under a temporary name and renamed when complete. conn must be a
+// unit; the subjects table's covariates included) and the same columns as
+// a codebook for R, Stata and SPSS (DIR/codebook.csv, see CodebookHeader:
+// portable type, allowed values, value labels, missing-value code). Each
+// table file is written under a temporary name and renamed when complete. conn must be a
 // connection to the warehouse (read-only is enough).
 func Export(ctx context.Context, conn *sql.Conn, o ExportOptions) ([]ExportedFile, error) {
 	if o.Format == "" {
@@ -144,6 +146,10 @@ func Export(ctx context.Context, conn *sql.Conn, o ExportOptions) ([]ExportedFil
 	}
 	f, err := writeDictionary(docs, o)
 	if err != nil {
+		return out, err
+	}
+	out = append(out, f)
+	if f, err = writeCodebook(ctx, conn, docs, analysis, o.Dir); err != nil {
 		return out, err
 	}
 	return append(out, f), nil

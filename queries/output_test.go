@@ -184,8 +184,8 @@ func TestExport(t *testing.T) {
 				t.Fatal(err)
 			}
 			dict := schema.Dictionary()
-			if len(files) != len(dict)+1 {
-				t.Fatalf("%d files, want %d tables + dictionary", len(files), len(dict))
+			if len(files) != len(dict)+2 {
+				t.Fatalf("%d files, want %d tables + dictionary + codebook", len(files), len(dict))
 			}
 			for _, f := range files[:len(dict)] {
 				where := c.where
@@ -242,7 +242,7 @@ func TestExport(t *testing.T) {
 					t.Errorf("occupancy sums to %v in the CSV, %v in the table", sum, want)
 				}
 			}
-			dictPath := files[len(files)-1].Path
+			dictPath := files[len(dict)].Path
 			var rows, missing, covariates int
 			src := fmt.Sprintf("read_parquet('%s')", dictPath)
 			if c.format == FormatCSV {

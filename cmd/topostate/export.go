@@ -15,8 +15,10 @@ func exportCommand() *cli.Command {
 		Name:  "export",
 		Usage: "write warehouse tables as Parquet or CSV files with a data dictionary, for other software",
 		Description: "Writes one file per table into --out (OUT/<table>.parquet or .csv) and OUT/data_dictionary.<ext>:\n" +
-			"one row per column with its type, meaning and unit. CSV: a header row, UTF-8, '.' decimals, and\n" +
-			"NULL (and NaN) as empty cells, as R, Stata, SPSS and pandas read them.",
+			"one row per column with its type, meaning and unit. OUT/codebook.csv lists the same columns for\n" +
+			"R, Stata and SPSS users: label, type, unit, allowed values, value labels and how missing values look.\n" +
+			"CSV: a header row, UTF-8, '.' decimals, and NULL (and NaN) as empty cells, as R, Stata, SPSS and\n" +
+			"pandas read them.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Required: true, Usage: "`FOLDER` for the files (created when missing)"},
