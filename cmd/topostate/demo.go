@@ -9,6 +9,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strings"
 	"text/tabwriter"
 
 	"github.com/urfave/cli/v2"
@@ -69,8 +70,13 @@ func demoCommand() *cli.Command {
 			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID); err != nil {
 				return err
 			}
-			fmt.Fprintf(out, "\nNext: topostate info --db %s\n", dbPath)
-			fmt.Fprintln(out, "      (or open the file in DuckDB and ask your own questions in SQL)")
+			db, a := shellWord(dbPath), o.Analysis
+			fmt.Fprintln(out, "\nNext:")
+			fmt.Fprintf(out, "  topostate info   --db %s\n", db)
+			fmt.Fprintf(out, "  topostate query  --db %s state_dwell_by_group --param group_a=night --param group_b=day\n", db)
+			fmt.Fprintf(out, "  topostate plot   --db %s --analysis %s --out %s\n", db, a, shellWord(filepath.Join(dir, "figures")))
+			fmt.Fprintf(out, "  topostate report --db %s --analysis %s --out %s\n", db, a, shellWord(filepath.Join(dir, "report.html")))
+			fmt.Fprintln(out, "  (or open the file in DuckDB and ask your own questions in SQL)")
 			fmt.Fprintln(out)
 			fmt.Fprintln(out, caution)
 			return nil
@@ -142,6 +148,15 @@ func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int) er
 			mean(r.night), len(r.night), r.welch.T, r.welch.DF, r.welch.PValue, adj[i], r.perm.PValue)
 	}
 	return tw.Flush()
+}
+
+// shellWord quotes s for a POSIX shell when it holds anything but plain
+// path characters, so a hint can be pasted as it is.
+func shellWord(s string) string {
+	if s != "" && strings.Trim(s, "abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_./:=,@+-") == "" {
+		return s
+	}
+	return "'" + strings.ReplaceAll(s, "'", `'\''`) + "'"
 }
 
 func mean(x []float64) float64 {
