@@ -3,7 +3,7 @@ package ingest
 import (
 	"bufio"
 	"bytes"
-	"errors"
+	"fmt"
 	"io"
 )
 
@@ -38,10 +38,10 @@ func (lr *lineReader) next() []byte {
 		case bytes.HasPrefix(head, []byte{0xEF, 0xBB, 0xBF}):
 			lr.r.Discard(3)
 		case bytes.HasPrefix(head, []byte{0xFF, 0xFE}), bytes.HasPrefix(head, []byte{0xFE, 0xFF}):
-			lr.err = &ParseError{Path: lr.path, Line: 1, Err: errors.Join(ErrEncoding, errors.New("it is UTF-16; save it as UTF-8 (plain text) and try again"))}
+			lr.err = &ParseError{Path: lr.path, Line: 1, Err: fmt.Errorf("%w: it is UTF-16; save it as UTF-8 (plain text) and try again", ErrEncoding)}
 			return nil
 		case len(head) >= 2 && (head[0] == 0 || head[1] == 0):
-			lr.err = &ParseError{Path: lr.path, Line: 1, Err: errors.Join(ErrEncoding, errors.New("it holds NUL bytes (UTF-16 or binary); save it as UTF-8 text"))}
+			lr.err = &ParseError{Path: lr.path, Line: 1, Err: fmt.Errorf("%w: it holds NUL bytes (UTF-16 or binary); save it as UTF-8 text", ErrEncoding)}
 			return nil
 		}
 	}
@@ -50,8 +50,7 @@ func (lr *lineReader) next() []byte {
 	for {
 		chunk, err := lr.r.ReadSlice('\n')
 		if len(lr.buf)+len(chunk) > MaxLine {
-			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: errors.Join(ErrLineTooLong,
-				errors.New("longer than 16 MiB; is this really a text table with one time point per line?"))}
+			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: fmt.Errorf("%w: longer than 16 MiB; is this really a text table with one time point per line?", ErrLineTooLong)}
 			return nil
 		}
 		if err == bufio.ErrBufferFull {
@@ -69,7 +68,7 @@ func (lr *lineReader) next() []byte {
 			return trimEOL(lr.buf)
 		}
 		if err != nil {
-			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: err}
+			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: readError(err)}
 			return nil
 		}
 		if len(lr.buf) == 0 {
