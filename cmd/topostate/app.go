@@ -47,8 +47,11 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 		ErrWriter:       stderr,
 		HideHelpCommand: true,
 		ExitErrHandler:  func(*cli.Context, error) {},
-		OnUsageError: func(_ *cli.Context, err error, _ bool) error {
-			return usageError{err}
+		OnUsageError: func(c *cli.Context, err error, sub bool) error {
+			if sub && c.Command != nil {
+				return usageError{fmt.Errorf("%w; see 'topostate %s --help'", err, c.Command.Name)}
+			}
+			return usageError{fmt.Errorf("%w; see 'topostate --help'", err)}
 		},
 		CommandNotFound: func(c *cli.Context, name string) {
 			fmt.Fprintf(c.App.ErrWriter, "topostate: no command %q; see 'topostate --help'\n", name)
@@ -58,6 +61,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			ingestCommand(),
 			simulateCommand(),
 			infoCommand(),
+			dropCommand(),
 		},
 	}
 	for _, c := range app.Commands {
@@ -70,6 +74,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
+	context.AfterFunc(ctx, stop) // a second Ctrl-C ends the process at once
 	app := newApp(stdin, stdout, stderr)
 	notFound := false
 	app.CommandNotFound = func(c *cli.Context, name string) {
