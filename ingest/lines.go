@@ -13,7 +13,8 @@ import (
 const MaxLine = 16 << 20
 
 // lineReader yields lines without their end (LF or CRLF), counting from 1.
-// A UTF-8 byte-order mark at the start is skipped; UTF-16 is refused.
+// UTF-8 byte-order marks at the start are skipped; UTF-16 and a start of
+// NUL bytes (after any mark) are refused.
 type lineReader struct {
 	path string
 	r    *bufio.Reader
@@ -34,9 +35,11 @@ func (lr *lineReader) next() []byte {
 	}
 	if lr.line == 0 {
 		head, _ := lr.r.Peek(4)
-		switch {
-		case bytes.HasPrefix(head, []byte{0xEF, 0xBB, 0xBF}):
+		for bytes.HasPrefix(head, []byte{0xEF, 0xBB, 0xBF}) { // a mark saved twice is still only a mark
 			lr.r.Discard(3)
+			head, _ = lr.r.Peek(4) // what follows the mark is checked the same way
+		}
+		switch {
 		case bytes.HasPrefix(head, []byte{0xFF, 0xFE}), bytes.HasPrefix(head, []byte{0xFE, 0xFF}):
 			lr.err = &ParseError{Path: lr.path, Line: 1, Err: fmt.Errorf("%w: it is UTF-16; save it as UTF-8 (plain text) and try again", ErrEncoding)}
 			return nil
