@@ -8,6 +8,7 @@ import (
 	"os"
 	"os/signal"
 	"strings"
+	"sync/atomic"
 	"syscall"
 
 	"github.com/urfave/cli/v2"
@@ -74,7 +75,14 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
-	context.AfterFunc(ctx, stop) // a second Ctrl-C ends the process at once
+	var finished atomic.Bool
+	defer finished.Store(true) // runs before stop: no message for a normal end
+	context.AfterFunc(ctx, func() {
+		stop() // a second Ctrl-C ends the process at once
+		if !finished.Load() {
+			fmt.Fprintln(stderr, "topostate: stop requested; stopping at the next safe point (Ctrl-C again stops at once; the warehouse keeps only whole analyses either way)")
+		}
+	})
 	app := newApp(stdin, stdout, stderr)
 	notFound := false
 	app.CommandNotFound = func(c *cli.Context, name string) {
