@@ -24,6 +24,7 @@ type Cohort struct {
 	Inputs       []SubjectInput
 	Excluded     []Exclusion
 	Warnings     []string
+	Source       *Source // reads each input's series (tables, .npy, NIfTI with the atlas)
 }
 
 // SubjectInput is one series that passed validation.
@@ -62,11 +63,15 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if err := o.Check(); err != nil {
 		return nil, err
 	}
-	inputs, err := Discover(o.Input)
+	inputs, err := discover(o.Input, o.Atlas != "")
 	if err != nil {
 		return nil, err
 	}
-	c := &Cohort{Dir: o.Input}
+	src, err := NewSource(o)
+	if err != nil {
+		return nil, Problems(flatten(err))
+	}
+	c := &Cohort{Dir: o.Input, Source: src}
 	var problems Problems
 
 	ppath := filepath.Join(o.Input, "participants.tsv")
@@ -98,7 +103,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		go func() {
 			defer wg.Done()
 			for i := range next {
-				checks[i] = checkFile(inputs[i], o)
+				checks[i] = checkFile(src, inputs[i], o)
 			}
 		}()
 	}
@@ -217,9 +222,9 @@ func LoadCohort(o Options) (*Cohort, error) {
 	return c, nil
 }
 
-func checkFile(in Input, o Options) fileCheck {
+func checkFile(src *Source, in Input, o Options) fileCheck {
 	var ch fileCheck
-	sf, err := ReadSeriesFile(in.Path)
+	sf, err := src.Read(in)
 	if err != nil {
 		ch.err = err
 		return ch
@@ -230,12 +235,21 @@ func checkFile(in Input, o Options) fileCheck {
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.Window)}
 		return ch
 	}
+	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
+	// the file itself states (a NIfTI header's pixdim[4] with its unit).
 	switch {
 	case o.TR > 0:
 		ch.tr, ch.trSource = o.TR, "option --tr"
 	case in.Sidecar != "":
 		ch.tr, ch.err = SidecarTR(in.Sidecar)
 		ch.trSource = in.Sidecar
+		if errors.Is(ch.err, ErrNoTR) && sf.TR > 0 {
+			ch.tr, ch.trSource, ch.err = sf.TR, in.Path+" (header pixdim[4])", nil
+		}
+	case sf.TR > 0:
+		ch.tr, ch.trSource = sf.TR, in.Path+" (header pixdim[4])"
+	case FileKind(in.Path) == KindNifti:
+		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: the header's pixdim[4] has no time unit (xyzt_units); pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	default:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	}

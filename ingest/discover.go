@@ -22,13 +22,19 @@ type Input struct {
 	Sidecar string // JSON sidecar beside it, or ""
 }
 
-// seriesName matches sub-<label>[_ses-<label>][_<key>-<value>...]_timeseries.tsv|csv.
-var seriesName = regexp.MustCompile(`^(sub-[A-Za-z0-9]+)(?:_(ses-[A-Za-z0-9]+))?(?:_[A-Za-z0-9]+-[A-Za-z0-9]+)*_timeseries\.(tsv|csv)$`)
+// seriesName matches sub-<label>[_ses-<label>][_<key>-<value>...] followed
+// by _timeseries.tsv|csv|npy or _bold.nii|nii.gz.
+var seriesName = regexp.MustCompile(`^(sub-[A-Za-z0-9]+)(?:_(ses-[A-Za-z0-9]+))?(?:_[A-Za-z0-9]+-[A-Za-z0-9]+)*_(timeseries\.(?:tsv|csv|npy)|bold\.nii(?:\.gz)?)$`)
 
 // Discover walks dir (symbolic links are not followed, so a link loop
-// cannot trap it) and returns the series files in path order. Unreadable
-// folders are reported, not skipped.
-func Discover(dir string) ([]Input, error) {
+// cannot trap it) and returns the series files (tables and .npy arrays) in
+// path order. Unreadable folders are reported, not skipped.
+func Discover(dir string) ([]Input, error) { return discover(dir, false) }
+
+// discover is Discover that also takes _bold.nii[.gz] images when images
+// is true (ingest --atlas); otherwise it only counts them, to say so when
+// nothing else is found.
+func discover(dir string, images bool) ([]Input, error) {
 	st, err := os.Stat(dir)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: input folder: %w", err)
@@ -38,6 +44,7 @@ func Discover(dir string) ([]Input, error) {
 	}
 	var found []Input
 	var problems Problems
+	skipped := 0 // _bold images seen without --atlas
 	err = filepath.WalkDir(dir, func(path string, d fs.DirEntry, err error) error {
 		if err != nil {
 			problems = append(problems, &ParseError{Path: path, Err: fileError(path, err)})
@@ -56,9 +63,13 @@ func Discover(dir string) ([]Input, error) {
 		if m == nil {
 			return nil
 		}
+		if strings.HasPrefix(m[3], "bold") && !images {
+			skipped++
+			return nil
+		}
 		rel, _ := filepath.Rel(dir, path)
 		in := Input{Subject: m[1], Session: m[2], Path: path, Rel: filepath.ToSlash(rel)}
-		side := strings.TrimSuffix(path, filepath.Ext(path)) + ".json"
+		side := strings.TrimSuffix(strings.TrimSuffix(path, ".gz"), filepath.Ext(strings.TrimSuffix(path, ".gz"))) + ".json"
 		if _, err := os.Stat(side); err == nil {
 			in.Sidecar = side
 		}
@@ -71,8 +82,11 @@ func Discover(dir string) ([]Input, error) {
 	if len(problems) > 0 {
 		return nil, problems
 	}
+	if len(found) == 0 && skipped > 0 {
+		return nil, fmt.Errorf("ingest: %s: %w: found %d _bold.nii[.gz] image(s); pass --atlas FILE (a label image on the same grid) to average their voxels into regions", dir, ErrNoSeries, skipped)
+	}
 	if len(found) == 0 {
-		return nil, fmt.Errorf("ingest: %s: %w: expected files named sub-<label>[_ses-<label>]_..._timeseries.tsv (or .csv)", dir, ErrNoSeries)
+		return nil, fmt.Errorf("ingest: %s: %w: expected files named sub-<label>[_ses-<label>]_..._timeseries.tsv (or .csv, .npy), or _bold.nii[.gz] images with --atlas", dir, ErrNoSeries)
 	}
 	sort.Slice(found, func(i, j int) bool { return found[i].Rel < found[j].Rel })
 	return found, nil

@@ -36,6 +36,11 @@ type Options struct {
 	OnBadSubject   string `json:"on_bad_subject"`  // fail | skip
 	ConstantRegion string `json:"constant_region"` // fail | drop
 
+	// Images and arrays (see Source). TR precedence for every file: TR
+	// (--tr), then its JSON sidecar, then a NIfTI header's pixdim[4].
+	Atlas       string `json:"atlas,omitempty"`        // label atlas for _bold.nii[.gz] images; "": images are not read
+	AtlasLabels string `json:"atlas_labels,omitempty"` // label table (label, name); "": regions label_<n> (region_001... for .npy)
+
 	Analysis string `json:"-"`
 	Parquet  string `json:"-"`
 	Workers  int    `json:"-"`

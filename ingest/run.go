@@ -185,7 +185,7 @@ func (s *stages) setup() error {
 
 // windows reads one series again and returns its window correlations.
 func (s *stages) windows(in SubjectInput) (compute.Matrix32, error) {
-	sf, err := ReadSeriesFile(in.Path)
+	sf, err := s.c.Source.Read(in.Input)
 	if err != nil {
 		return compute.Matrix32{}, err
 	}

@@ -24,6 +24,7 @@ type SeriesFile struct {
 	Regions []string       // header names, in column order
 	Series  compute.Series // T x p, row-major
 	SHA256  string         // of the file's bytes
+	TR      float64        // repetition time the file itself states (s); 0: it states none
 }
 
 // Delimiter returns the cell separator for a series or sheet file: comma

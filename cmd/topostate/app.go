@@ -63,6 +63,9 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			simulateCommand(),
 			infoCommand(),
 			dropCommand(),
+			queryCommand(),
+			exportCommand(),
+			plotCommand(),
 		},
 	}
 	for _, c := range app.Commands {

@@ -18,10 +18,12 @@ import (
 func ingestFlags() []cli.Flag {
 	d := ingest.Defaults()
 	return []cli.Flag{
-		&cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "cohort `FOLDER`: participants.tsv and sub-<label>[_ses-<label>]_..._timeseries.tsv|csv files"},
+		&cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "cohort `FOLDER`: participants.tsv and sub-<label>[_ses-<label>]_..._timeseries.tsv|csv|npy files (or _bold.nii[.gz] with --atlas)"},
 		&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (created when missing)"},
 		&cli.StringFlag{Name: "analysis", Usage: "`NAME` of this analysis in the warehouse (default analysis-<id>)"},
-		&cli.Float64Flag{Name: "tr", Usage: "repetition time in `SECONDS`; default: RepetitionTime from each file's JSON sidecar"},
+		&cli.Float64Flag{Name: "tr", Usage: "repetition time in `SECONDS`; default: RepetitionTime from each file's JSON sidecar, else a NIfTI header's pixdim[4]"},
+		&cli.StringFlag{Name: "atlas", Usage: "label image `FILE` (.nii or .nii.gz) on the grid of the sub-<label>_..._bold.nii[.gz] images; each label's voxels are averaged into one region"},
+		&cli.StringFlag{Name: "atlas-labels", Usage: "`TSV` of label<TAB>name naming the atlas's regions (default label_<n>); also names the columns of .npy arrays, in ascending label order"},
 		&cli.IntFlag{Name: "window", Value: d.Window, Usage: "sliding-window width in `N` time points"},
 		&cli.IntFlag{Name: "step", Value: d.Step, Usage: "window step in `N` time points"},
 		&cli.StringFlag{Name: "taper", Value: d.Taper, Usage: "window weights `MODE`: none (rectangle) or gauss (rectangle convolved with a Gaussian)"},
@@ -50,7 +52,7 @@ func ingestFlags() []cli.Flag {
 
 func ingestOptions(c *cli.Context) ingest.Options {
 	return ingest.Options{
-		Input: c.String("input"), TR: c.Float64("tr"),
+		Input: c.String("input"), TR: c.Float64("tr"), Atlas: c.String("atlas"), AtlasLabels: c.String("atlas-labels"),
 		Window: c.Int("window"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
 		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),

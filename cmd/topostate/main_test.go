@@ -1,5 +1,3 @@
-//go:build unix
-
 package main
 
 import (
@@ -15,7 +13,6 @@ import (
 	"runtime"
 	"sort"
 	"strings"
-	"syscall"
 	"testing"
 	"time"
 
@@ -41,6 +38,9 @@ func TestMain(m *testing.M) {
 }
 
 func testMain(m *testing.M) int {
+	if path := os.Getenv(holdLockEnv); path != "" {
+		return holdLock(path) // this process is a lock holder (query_test.go)
+	}
 	tmp, err := os.MkdirTemp("", "topostate-cli-test-")
 	if err != nil {
 		fmt.Fprintln(os.Stderr, err)
@@ -48,6 +48,10 @@ func testMain(m *testing.M) int {
 	}
 	defer os.RemoveAll(tmp)
 	testTmp = tmp
+	if err := build(tmp); err != nil { // query_test.go's warehouse, in tmp/cohort and tmp/w.duckdb
+		fmt.Fprintln(os.Stderr, "building the test warehouse:", err)
+		return 1
+	}
 	bin = filepath.Join(tmp, "topostate")
 	goTool := filepath.Join(runtime.GOROOT(), "bin", "go")
 	if _, err := os.Stat(goTool); err != nil {
@@ -129,9 +133,7 @@ func runCmd(t *testing.T, o cmdOpts) result {
 		return r
 	}
 	r.code = cmd.ProcessState.ExitCode()
-	if ru, ok := cmd.ProcessState.SysUsage().(*syscall.Rusage); ok && runtime.GOOS == "linux" {
-		r.maxRSSKiB = int64(ru.Maxrss) // KiB on Linux (getrusage(2)); bytes elsewhere, so not read there
-	}
+	r.maxRSSKiB = maxRSSKiB(cmd.ProcessState)
 	return r
 }
 

@@ -1,0 +1,380 @@
+package queries
+
+import (
+	"context"
+	"database/sql"
+	"database/sql/driver"
+	"fmt"
+	"io/fs"
+	"math"
+	"math/rand/v2"
+
+	"github.com/marcboeker/go-duckdb"
+
+	"github.com/topostate/topostate/compute"
+)
+
+// Function documents one SQL function that Register adds to a connection.
+type Function struct {
+	Name      string
+	Signature string // SQL argument and result types
+	Doc       string
+	in        []duckdb.TypeInfo
+	out       duckdb.TypeInfo
+	fn        func(args []driver.Value) (any, error)
+}
+
+// Config and Executor make a Function a duckdb.ScalarFunc.
+//
+// Every function is declared volatile although it is deterministic: with
+// DuckDB 1.1.3 and go-duckdb 1.8.5, folding a call on constant arguments at
+// prepare time hands the driver a chunk it cannot read when an argument is
+// a constant list literal that is empty or holds a NULL (ks_test([]::DOUBLE[],
+// [1.0]) aborted the whole process with a C++ InternalException). Volatile
+// functions are not folded; they are evaluated once per row like any other
+// expression, which costs nothing here.
+func (f *Function) Config() duckdb.ScalarFuncConfig {
+	return duckdb.ScalarFuncConfig{InputTypeInfos: f.in, ResultTypeInfo: f.out, Volatile: true}
+}
+
+// Executor runs the adapter row by row. DuckDB calls it from its own worker
+// threads; every adapter is a pure function of its arguments.
+func (f *Function) Executor() duckdb.ScalarFuncExecutor {
+	return duckdb.ScalarFuncExecutor{RowExecutor: f.call}
+}
+
+// call runs the adapter. A panic must not unwind through DuckDB's C++ frames
+// (that would take the user's whole session down), so one is turned into an
+// error here, at the cgo boundary; the adapters validate their arguments and
+// are not expected to panic.
+func (f *Function) call(args []driver.Value) (res any, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			res, err = nil, fmt.Errorf("queries: %s: internal error: %v", f.Name, r)
+		}
+	}()
+	res, err = f.fn(args)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", f.Name, err)
+	}
+	return res, nil
+}
+
+// ksExactMaxCells bounds (m+1)(n+1) for ks_pvalue_exact: the lattice
+// recursion visits at most that many cells (about 1e9 a second), so larger
+// sizes are refused with a pointer to ks_pvalue_asymptotic rather than
+// left to run for minutes.
+const ksExactMaxCells = 2e9
+
+func must(t duckdb.TypeInfo, err error) duckdb.TypeInfo {
+	if err != nil {
+		panic(err) // a fixed type built at start-up
+	}
+	return t
+}
+
+func structOf(fields ...string) duckdb.TypeInfo {
+	var entries []duckdb.StructEntry
+	for i := 0; i < len(fields); i += 2 {
+		t := tDouble
+		if fields[i+1] == "VARCHAR" {
+			t = tVarchar
+		}
+		e, err := duckdb.NewStructEntry(t, fields[i])
+		if err != nil {
+			panic(err)
+		}
+		entries = append(entries, e)
+	}
+	return must(duckdb.NewStructInfo(entries[0], entries[1:]...))
+}
+
+var (
+	tDouble   = must(duckdb.NewTypeInfo(duckdb.TYPE_DOUBLE))
+	tBigint   = must(duckdb.NewTypeInfo(duckdb.TYPE_BIGINT))
+	tInteger  = must(duckdb.NewTypeInfo(duckdb.TYPE_INTEGER))
+	tVarchar  = must(duckdb.NewTypeInfo(duckdb.TYPE_VARCHAR))
+	tList     = must(duckdb.NewListInfo(tDouble))
+	tListList = must(duckdb.NewListInfo(tList))
+)
+
+// Functions returns the SQL functions, freshly built (RegisterScalarUDF
+// takes ownership of each).
+func Functions() []*Function {
+	return []*Function{
+		{
+			Name:      "ks_pvalue_exact",
+			Signature: "ks_pvalue_exact(m BIGINT, n BIGINT, d DOUBLE) -> DOUBLE",
+			Doc: "Exact P(D >= d) for the two-sample Kolmogorov-Smirnov statistic D of samples of sizes m and n " +
+				"(no ties), by counting lattice paths (every ordering of the pooled values equally likely). D only takes values k/L, L = lcm(m, n): " +
+				"a d within float rounding of such a value is snapped to it; any other d is raised to the next " +
+				"attainable value, because for D on that grid P(D >= d) = P(D >= ceil(d*L)/L) exactly (rounding to " +
+				"the nearest value could move a d just above a grid point down and report a larger tail than the true " +
+				"one). d = 0 gives 1. Refused when (m+1)(n+1) > 2e9; use ks_pvalue_asymptotic there.",
+			in: []duckdb.TypeInfo{tBigint, tBigint, tDouble}, out: tDouble,
+			fn: func(a []driver.Value) (any, error) {
+				m, n, d := a[0].(int64), a[1].(int64), a[2].(float64)
+				if err := checkSizes(m, n); err != nil {
+					return nil, err
+				}
+				if (float64(m)+1)*(float64(n)+1) > ksExactMaxCells {
+					return nil, fmt.Errorf("sizes m=%d n=%d are too large for the exact recursion; use ks_pvalue_asymptotic", m, n)
+				}
+				return compute.KSPValueExact(int(m), int(n), d)
+			},
+		},
+		{
+			Name:      "ks_pvalue_asymptotic",
+			Signature: "ks_pvalue_asymptotic(m BIGINT, n BIGINT, d DOUBLE) -> DOUBLE",
+			Doc: "Large-sample p-value of a two-sample KS statistic d: Q(d sqrt(mn/(m+n))) with Kolmogorov's " +
+				"Q(lambda) = 2 sum_{j>=1} (-1)^(j-1) exp(-2 j^2 lambda^2).",
+			in: []duckdb.TypeInfo{tBigint, tBigint, tDouble}, out: tDouble,
+			fn: func(a []driver.Value) (any, error) {
+				m, n, d := a[0].(int64), a[1].(int64), a[2].(float64)
+				if err := checkSizes(m, n); err != nil {
+					return nil, err
+				}
+				return compute.KSPValueAsymptotic(int(m), int(n), d)
+			},
+		},
+		{
+			Name:      "ks_test",
+			Signature: "ks_test(a DOUBLE[], b DOUBLE[]) -> STRUCT(statistic DOUBLE, pvalue DOUBLE, method VARCHAR)",
+			Doc: "Two-sample KS test: D = max |F_a - F_b| and P(D >= D_observed), exact when the lattice recursion " +
+				"has at most 1e8 cells (method 'exact'), else asymptotic (method 'asymptotic'). The exact p-value " +
+				"assumes no ties; with ties it is conservative.",
+			in: []duckdb.TypeInfo{tList, tList}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE", "method", "VARCHAR"),
+			fn: func(a []driver.Value) (any, error) {
+				x, err := doubles("a", a[0])
+				if err != nil {
+					return nil, err
+				}
+				y, err := doubles("b", a[1])
+				if err != nil {
+					return nil, err
+				}
+				r, err := compute.KSTest(x, y)
+				if err != nil {
+					return nil, err
+				}
+				return map[string]any{"statistic": r.Statistic, "pvalue": r.PValue, "method": r.Method}, nil
+			},
+		},
+		{
+			Name:      "curve_distance",
+			Signature: "curve_distance(a DOUBLE[], b DOUBLE[]) -> DOUBLE",
+			Doc:       "Sup-norm distance max_g |a[g] - b[g]| of two curves on the same grid; an error when the lengths differ.",
+			in:        []duckdb.TypeInfo{tList, tList}, out: tDouble,
+			fn: func(a []driver.Value) (any, error) {
+				x, err := doubles("a", a[0])
+				if err != nil {
+					return nil, err
+				}
+				y, err := doubles("b", a[1])
+				if err != nil {
+					return nil, err
+				}
+				return compute.CurveDistance(x, y)
+			},
+		},
+		{
+			Name:      "perm_test_mean",
+			Signature: "perm_test_mean(a DOUBLE[], b DOUBLE[], n_perm INTEGER, seed BIGINT) -> STRUCT(statistic DOUBLE, pvalue DOUBLE)",
+			Doc: "Two-sided permutation test of mean(a) - mean(b) (the statistic) with n_perm random relabellings; " +
+				"p = (1 + #{|T*| >= |T|}) / (1 + n_perm) (Phipson and Smyth 2010). The relabellings come from " +
+				"math/rand/v2's PCG generator seeded with (seed, 0): the same arguments give the same p.",
+			in: []duckdb.TypeInfo{tList, tList, tInteger, tBigint}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE"),
+			fn: func(a []driver.Value) (any, error) {
+				x, err := doubles("a", a[0])
+				if err != nil {
+					return nil, err
+				}
+				y, err := doubles("b", a[1])
+				if err != nil {
+					return nil, err
+				}
+				r, err := compute.PermutationTestMean(x, y, int(a[2].(int32)), seeded(a[3].(int64)))
+				if err != nil {
+					return nil, err
+				}
+				return map[string]any{"statistic": r.Statistic, "pvalue": r.PValue}, nil
+			},
+		},
+		{
+			Name:      "curve_perm_test",
+			Signature: "curve_perm_test(a DOUBLE[][], b DOUBLE[][], n_perm INTEGER, seed BIGINT) -> STRUCT(statistic DOUBLE, pvalue DOUBLE)",
+			Doc: "Permutation test between two groups of curves on one grid (one list per subject): T = max over the " +
+				"grid of |mean curve of a - mean curve of b|, subject labels permuted n_perm times (PCG seeded with " +
+				"(seed, 0)); p = (1 + #{T* >= T}) / (1 + n_perm).",
+			in: []duckdb.TypeInfo{tListList, tListList, tInteger, tBigint}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE"),
+			fn: func(a []driver.Value) (any, error) {
+				x, err := curves("a", a[0])
+				if err != nil {
+					return nil, err
+				}
+				y, err := curves("b", a[1])
+				if err != nil {
+					return nil, err
+				}
+				r, err := compute.PermutationTestCurves(x, y, int(a[2].(int32)), seeded(a[3].(int64)))
+				if err != nil {
+					return nil, err
+				}
+				return map[string]any{"statistic": r.Statistic, "pvalue": r.PValue}, nil
+			},
+		},
+		{
+			Name:      "welch_t_test",
+			Signature: "welch_t_test(a DOUBLE[], b DOUBLE[]) -> STRUCT(t DOUBLE, df DOUBLE, pvalue DOUBLE)",
+			Doc: "Welch's t-test of mean(a) - mean(b): t, the Welch-Satterthwaite degrees of freedom and the " +
+				"two-sided p-value. An error when a group has fewer than 2 values or both variances are 0.",
+			in: []duckdb.TypeInfo{tList, tList}, out: structOf("t", "DOUBLE", "df", "DOUBLE", "pvalue", "DOUBLE"),
+			fn: func(a []driver.Value) (any, error) {
+				x, err := doubles("a", a[0])
+				if err != nil {
+					return nil, err
+				}
+				y, err := doubles("b", a[1])
+				if err != nil {
+					return nil, err
+				}
+				r, err := compute.WelchTTest(x, y)
+				if err != nil {
+					return nil, err
+				}
+				return map[string]any{"t": r.T, "df": r.DF, "pvalue": r.PValue}, nil
+			},
+		},
+		{
+			Name:      "pearson_test",
+			Signature: "pearson_test(x DOUBLE[], y DOUBLE[]) -> STRUCT(r DOUBLE, t DOUBLE, df DOUBLE, pvalue DOUBLE)",
+			Doc: "Pearson's correlation of paired lists with its t-test: t = r sqrt((n-2)/(1-r^2)), df = n-2, " +
+				"two-sided p. An error when the lengths differ, n < 3 or a list is constant.",
+			in: []duckdb.TypeInfo{tList, tList}, out: structOf("r", "DOUBLE", "t", "DOUBLE", "df", "DOUBLE", "pvalue", "DOUBLE"),
+			fn: func(a []driver.Value) (any, error) {
+				x, err := doubles("x", a[0])
+				if err != nil {
+					return nil, err
+				}
+				y, err := doubles("y", a[1])
+				if err != nil {
+					return nil, err
+				}
+				r, err := compute.CorrelationTest(x, y)
+				if err != nil {
+					return nil, err
+				}
+				return map[string]any{"r": r.R, "t": r.T, "df": r.DF, "pvalue": r.PValue}, nil
+			},
+		},
+		{
+			Name:      "graph_filtration_events",
+			Signature: "graph_filtration_events(weights DOUBLE[], dimension BIGINT) -> DOUBLE[]",
+			Doc: "The filtration events of a network given as its upper triangle (pairs i < j in row-major order, " +
+				"p(p-1)/2 values): dimension 0 gives the p-1 maximum-spanning-tree weights (where beta0 steps), " +
+				"dimension 1 the other edge weights (where beta1 steps), both ascending.",
+			in: []duckdb.TypeInfo{tList, tBigint}, out: tList,
+			fn: func(a []driver.Value) (any, error) {
+				w, err := doubles("weights", a[0])
+				if err != nil {
+					return nil, err
+				}
+				dim := a[1].(int64)
+				if dim != 0 && dim != 1 {
+					return nil, fmt.Errorf("dimension %d: want 0 or 1", dim)
+				}
+				p := int(math.Round((1 + math.Sqrt(1+8*float64(len(w)))) / 2))
+				if p < 2 || compute.PairCount(p) != len(w) {
+					return nil, fmt.Errorf("%d weights is not p(p-1)/2 for any p >= 2", len(w))
+				}
+				f, err := compute.GraphFiltration(p, w)
+				if err != nil {
+					return nil, err
+				}
+				ev := f.Beta0Events
+				if dim == 1 {
+					ev = f.Beta1Events
+				}
+				out := make([]any, len(ev))
+				for i, v := range ev {
+					out[i] = v
+				}
+				return out, nil
+			},
+		},
+	}
+}
+
+// seeded returns the generator the permutation functions document: PCG
+// seeded with (seed, 0).
+func seeded(seed int64) *rand.Rand { return rand.New(rand.NewPCG(uint64(seed), 0)) }
+
+func checkSizes(m, n int64) error {
+	if m < 1 || n < 1 {
+		return fmt.Errorf("sample sizes must be >= 1, got m=%d n=%d", m, n)
+	}
+	if m > math.MaxInt32 || n > math.MaxInt32 {
+		return fmt.Errorf("sample sizes m=%d n=%d are beyond 2^31", m, n)
+	}
+	return nil
+}
+
+// doubles converts a DOUBLE[] argument. A NULL element is an error: dropping
+// it silently would change the sample size.
+func doubles(arg string, v driver.Value) ([]float64, error) {
+	l, ok := v.([]any)
+	if !ok {
+		return nil, fmt.Errorf("argument %s: want DOUBLE[], got %T", arg, v)
+	}
+	out := make([]float64, len(l))
+	for i, x := range l {
+		f, ok := x.(float64)
+		if !ok {
+			if x == nil {
+				return nil, fmt.Errorf("argument %s: element %d is NULL; leave NULLs out (list(x) FILTER (WHERE x IS NOT NULL))", arg, i+1)
+			}
+			return nil, fmt.Errorf("argument %s: element %d is %T, want DOUBLE", arg, i+1, x)
+		}
+		out[i] = f
+	}
+	return out, nil
+}
+
+// curves converts a DOUBLE[][] argument.
+func curves(arg string, v driver.Value) ([][]float64, error) {
+	l, ok := v.([]any)
+	if !ok {
+		return nil, fmt.Errorf("argument %s: want DOUBLE[][], got %T", arg, v)
+	}
+	out := make([][]float64, len(l))
+	for i, x := range l {
+		if x == nil {
+			return nil, fmt.Errorf("argument %s: curve %d is NULL", arg, i+1)
+		}
+		c, err := doubles(fmt.Sprintf("%s[%d]", arg, i+1), x)
+		if err != nil {
+			return nil, err
+		}
+		out[i] = c
+	}
+	return out, nil
+}
+
+// Register adds every SQL function of Functions and the macros of fsys's
+// MacrosFile to one connection. Registration is per connection: run every
+// later statement on conn.
+func Register(ctx context.Context, conn *sql.Conn, fsys fs.FS) error {
+	for _, f := range Functions() {
+		if err := duckdb.RegisterScalarUDF(conn, f.Name, f); err != nil {
+			return fmt.Errorf("queries: register %s: %w", f.Name, err)
+		}
+	}
+	macros, err := Macros(fsys)
+	if err != nil {
+		return err
+	}
+	if _, err := conn.ExecContext(ctx, macros); err != nil {
+		return fmt.Errorf("queries: create macros: %w", err)
+	}
+	return nil
+}

@@ -1,0 +1,53 @@
+-- topostate SQL macros, created as TEMP macros on every connection topostate
+-- opens (topostate query, topostate export). They are plain DuckDB SQL: to use
+-- them in another DuckDB client (duckdb CLI, R, Python), print them with
+-- `topostate query --macros` and run the output in your session (drop the
+-- word TEMP to store them in a database of your own).
+
+-- bh_adjust(p, family): the Benjamini-Hochberg (1995) adjusted p-value of p
+-- within its family of tests, a list holding every p-value of the family
+-- (p's own included). With the m non-NULL values of the family,
+--   q(p) = min over family values x >= p of  m * x / #{family values <= x},
+-- capped at 1: the step-up form q_(i) = min_{j>=i} (m/j) p_(j) written
+-- without sorting, ties taking their highest rank. NULL p gives NULL; NULLs
+-- in the family are not counted. Used as a window expression:
+--   bh_adjust(pvalue, list(pvalue) OVER (PARTITION BY family_columns))
+CREATE OR REPLACE TEMP MACRO bh_adjust(p, family) AS (
+    CASE
+        WHEN p IS NULL THEN NULL
+        WHEN p < 0 OR p > 1 OR isnan(p) THEN error('bh_adjust: p-value ' || p || ' is not in [0, 1]')
+        ELSE least(1.0, list_min(list_transform(
+            list_filter(family, x -> x >= p),
+            x -> len(list_filter(family, y -> y IS NOT NULL))::DOUBLE * x
+                 / len(list_filter(family, y -> y <= x)))))
+    END
+);
+
+-- subject_covariate(analysis, column_name): one row per subject of the
+-- analysis with a non-NULL value in the subjects column called column_name:
+-- (subject_id, value), the value as VARCHAR. The column is chosen by its name
+-- as data (UNPIVOT), so a column name given by a user is never pasted into
+-- SQL text.
+CREATE OR REPLACE TEMP MACRO subject_covariate(aid, column_name) AS TABLE
+    SELECT subject_id, value
+    FROM (
+        UNPIVOT (SELECT analysis_id, subject_id,
+                        COLUMNS(* EXCLUDE (analysis_id, subject_id))::VARCHAR
+                 FROM subjects)
+        ON COLUMNS(* EXCLUDE (analysis_id, subject_id))
+        INTO NAME covariate VALUE value
+    )
+    WHERE analysis_id = aid AND covariate = column_name;
+
+-- subject_groups(analysis, column_name, group_a, group_b): the subjects whose
+-- column_name value (compared as text) is group_a or group_b:
+-- (subject_id, side, group_value) with side 'a' or 'b'.
+CREATE OR REPLACE TEMP MACRO subject_groups(aid, column_name, group_a, group_b) AS TABLE
+    SELECT subject_id,
+           CASE WHEN value = group_a THEN 'a' ELSE 'b' END AS side,
+           value AS group_value
+    FROM subject_covariate(aid, column_name)
+    WHERE value IN (group_a, group_b)
+      AND CASE WHEN group_a = group_b
+               THEN error('subject_groups: group_a and group_b are both ' || group_a)
+               ELSE true END;

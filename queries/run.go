@@ -1,0 +1,263 @@
+package queries
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"fmt"
+	"maps"
+	"math"
+	"slices"
+	"strconv"
+	"strings"
+
+	"github.com/topostate/topostate/schema"
+)
+
+// DB is a warehouse opened read-only for queries: one connection carrying
+// the SQL functions and macros (they are registered per connection, so
+// every statement runs on Conn).
+type DB struct {
+	Conn *sql.Conn
+	db   *sql.DB
+}
+
+// Open opens the warehouse at path read-only, checks its layout and
+// registers the SQL functions and macros on one connection. A file another
+// process is writing gives an error wrapping schema.ErrInUse.
+func Open(ctx context.Context, path string) (*DB, error) {
+	db, err := schema.Open(path, true, nil)
+	if err != nil {
+		return nil, err
+	}
+	if err := schema.CheckLayout(ctx, db); err != nil {
+		db.Close()
+		return nil, err
+	}
+	conn, err := db.Conn(ctx)
+	if err != nil {
+		db.Close()
+		return nil, fmt.Errorf("queries: %w", err)
+	}
+	if err := Register(ctx, conn, FS); err != nil {
+		conn.Close()
+		db.Close()
+		return nil, err
+	}
+	return &DB{Conn: conn, db: db}, nil
+}
+
+// Close releases the connection and the file.
+func (d *DB) Close() error {
+	return errors.Join(d.Conn.Close(), d.db.Close())
+}
+
+// ParamError reports a parameter value that cannot be used: a usage error
+// of the caller rather than a failure of the query.
+type ParamError struct {
+	Param string
+	Err   error
+}
+
+func (e *ParamError) Error() string {
+	if e.Param == "" {
+		return "queries: " + e.Err.Error()
+	}
+	return fmt.Sprintf("queries: parameter %s: %v", e.Param, e.Err)
+}
+
+func (e *ParamError) Unwrap() error { return e.Err }
+
+// ErrNoAnalysis is wrapped by the error for an analysis that is not there.
+var ErrNoAnalysis = errors.New("no such analysis")
+
+// Bind checks the values given for q's parameters, fills in defaults, and
+// sets each parameter as a DuckDB variable on conn with a bound
+// "SET VARIABLE name = ?": queries read them with getvariable('name'), so a
+// value never becomes SQL text. It returns the values bound, by name.
+//
+// When q declares no parameters (a user's SQL without a header) every given
+// key is bound as text. Otherwise a key q does not declare, or a declared
+// parameter without a default and without a value, is a *ParamError.
+func Bind(ctx context.Context, conn *sql.Conn, q *Query, values map[string]string) (map[string]any, error) {
+	params := q.Params
+	if len(params) == 0 {
+		for _, k := range slices.Sorted(maps.Keys(values)) {
+			params = append(params, Param{Name: k, Type: TypeText})
+		}
+	}
+	declared := make([]string, len(params))
+	for i, p := range params {
+		declared[i] = p.Name
+	}
+	for k := range values {
+		if !nameRe.MatchString(k) {
+			return nil, &ParamError{Param: k, Err: errors.New("a parameter name is lower case letters, digits and underscores")}
+		}
+		if !slices.Contains(declared, k) {
+			return nil, &ParamError{Param: k, Err: fmt.Errorf("%s takes no such parameter (it takes: %s)", queryLabel(q), strings.Join(declared, ", "))}
+		}
+	}
+	bound := map[string]any{}
+	for _, p := range params {
+		text, ok := values[p.Name]
+		if !ok {
+			if !p.HasDefault {
+				return nil, &ParamError{Param: p.Name, Err: fmt.Errorf("required by %s: give --param %s=VALUE (%s)", queryLabel(q), p.Name, p.Description)}
+			}
+			text = p.Default
+		}
+		v, err := convert(ctx, conn, p, text)
+		if err != nil {
+			return nil, err
+		}
+		// The name is checked by nameRe (header parser or above), so it is
+		// a plain identifier; only the value is a parameter.
+		if _, err := conn.ExecContext(ctx, "SET VARIABLE "+p.Name+" = ?", v); err != nil {
+			return nil, fmt.Errorf("queries: set %s: %w", p.Name, err)
+		}
+		bound[p.Name] = v
+	}
+	return bound, nil
+}
+
+func queryLabel(q *Query) string {
+	if q.Name != "" {
+		return "query " + q.Name
+	}
+	return "this SQL"
+}
+
+// convert checks one value against its type and returns the Go value to
+// bind.
+func convert(ctx context.Context, conn *sql.Conn, p Param, text string) (any, error) {
+	perr := func(format string, a ...any) error { return &ParamError{Param: p.Name, Err: fmt.Errorf(format, a...)} }
+	switch p.Type {
+	case TypeText:
+		return text, nil
+	case TypeInteger:
+		v, err := strconv.ParseInt(strings.TrimSpace(text), 10, 64)
+		if err != nil {
+			return nil, perr("%q is not an integer", text)
+		}
+		return v, nil
+	case TypeNumber:
+		v, err := strconv.ParseFloat(strings.TrimSpace(text), 64)
+		if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, perr("%q is not a finite number", text)
+		}
+		return v, nil
+	case TypeAnalysis:
+		id, err := ResolveAnalysis(ctx, conn, text)
+		if err != nil {
+			return nil, &ParamError{Param: p.Name, Err: err}
+		}
+		return id, nil
+	case TypeColumn, TypeNumericColumn:
+		name, err := subjectColumn(ctx, conn, text, p.Type == TypeNumericColumn)
+		if err != nil {
+			return nil, &ParamError{Param: p.Name, Err: err}
+		}
+		return name, nil
+	}
+	return nil, perr("unknown type %q", p.Type)
+}
+
+// ResolveAnalysis turns "latest", an analysis id or an analysis name into
+// the analysis_id. An analysis that is not there is an error wrapping
+// ErrNoAnalysis that lists the analyses present.
+func ResolveAnalysis(ctx context.Context, conn *sql.Conn, v string) (int64, error) {
+	v = strings.TrimSpace(v)
+	var id sql.NullInt64
+	var err error
+	switch n, perr := strconv.ParseInt(v, 10, 64); {
+	case v == "latest":
+		err = conn.QueryRowContext(ctx, `SELECT max(analysis_id) FROM analyses`).Scan(&id)
+	case perr == nil:
+		err = conn.QueryRowContext(ctx, `SELECT max(analysis_id) FROM analyses WHERE analysis_id = ?`, n).Scan(&id)
+	default:
+		err = conn.QueryRowContext(ctx, `SELECT max(analysis_id) FROM analyses WHERE name = ?`, v).Scan(&id)
+	}
+	if err != nil {
+		return 0, fmt.Errorf("queries: find analysis: %w", err)
+	}
+	if id.Valid {
+		return id.Int64, nil
+	}
+	rows, err := conn.QueryContext(ctx, `SELECT analysis_id || ' (' || name || ')' FROM analyses ORDER BY analysis_id`)
+	if err != nil {
+		return 0, fmt.Errorf("queries: %w", err)
+	}
+	defer rows.Close()
+	var have []string
+	for rows.Next() {
+		var s string
+		if err := rows.Scan(&s); err != nil {
+			return 0, fmt.Errorf("queries: %w", err)
+		}
+		have = append(have, s)
+	}
+	if len(have) == 0 {
+		return 0, fmt.Errorf("%w: the warehouse holds no analyses yet", ErrNoAnalysis)
+	}
+	return 0, fmt.Errorf("%w %q; the warehouse holds: %s (give an id, a name or latest)", ErrNoAnalysis, v, strings.Join(have, ", "))
+}
+
+// subjectColumn checks that the subjects table has a covariate column
+// called name (exactly, or else ignoring case, as DuckDB does) and returns
+// its stored spelling.
+func subjectColumn(ctx context.Context, conn *sql.Conn, name string, numeric bool) (string, error) {
+	rows, err := conn.QueryContext(ctx, `SELECT column_name, data_type FROM information_schema.columns
+		WHERE table_name = 'subjects' AND column_name NOT IN ('analysis_id', 'subject_id') ORDER BY ordinal_position`)
+	if err != nil {
+		return "", fmt.Errorf("queries: %w", err)
+	}
+	defer rows.Close()
+	var names, types []string
+	for rows.Next() {
+		var n, t string
+		if err := rows.Scan(&n, &t); err != nil {
+			return "", fmt.Errorf("queries: %w", err)
+		}
+		names, types = append(names, n), append(types, t)
+	}
+	if err := rows.Err(); err != nil {
+		return "", fmt.Errorf("queries: %w", err)
+	}
+	if len(names) == 0 {
+		return "", errors.New("the subjects table has no covariate columns (participants.tsv had only participant_id)")
+	}
+	i := slices.Index(names, name)
+	if i < 0 {
+		i = slices.IndexFunc(names, func(s string) bool { return strings.EqualFold(s, name) })
+	}
+	if i < 0 {
+		return "", fmt.Errorf("the subjects table has no column %q; its covariates are: %s", name, strings.Join(names, ", "))
+	}
+	if numeric && !isNumericType(types[i]) {
+		return "", fmt.Errorf("covariate %q is %s; this query needs a numeric column", names[i], types[i])
+	}
+	return names[i], nil
+}
+
+func isNumericType(t string) bool {
+	switch strings.ToUpper(t) {
+	case "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER", "UBIGINT",
+		"FLOAT", "DOUBLE", "REAL":
+		return true
+	}
+	return strings.HasPrefix(strings.ToUpper(t), "DECIMAL")
+}
+
+// Run binds values to q's parameters (see Bind) and runs its SQL on conn.
+// The caller closes the rows.
+func Run(ctx context.Context, conn *sql.Conn, q *Query, values map[string]string) (*sql.Rows, error) {
+	if _, err := Bind(ctx, conn, q, values); err != nil {
+		return nil, err
+	}
+	rows, err := conn.QueryContext(ctx, q.SQL)
+	if err != nil {
+		return nil, fmt.Errorf("queries: %s: %w", queryLabel(q), err)
+	}
+	return rows, nil
+}
