@@ -3,6 +3,7 @@ package ingest
 import (
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"os"
 	"syscall"
@@ -87,6 +88,20 @@ func openFile(path string) (*os.File, error) {
 		return nil, &ParseError{Path: path, Err: fileError(path, err)}
 	}
 	return f, nil
+}
+
+// readFile reads a whole regular file (see openFile).
+func readFile(path string) ([]byte, error) {
+	f, err := openFile(path)
+	if err != nil {
+		return nil, err
+	}
+	defer f.Close()
+	b, err := io.ReadAll(f)
+	if err != nil {
+		return nil, &ParseError{Path: path, Err: readError(err)}
+	}
+	return b, nil
 }
 
 // fileError says why path cannot be opened, without repeating the path

@@ -78,7 +78,9 @@ func checkPositioned(t *testing.T, err error, path string, nLines int) []*ParseE
 }
 
 func FuzzParseSeries(f *testing.F) {
-	for p, b := range corpusFiles(f, func(n string) bool { return strings.Contains(n, "_timeseries.") }) {
+	for p, b := range corpusFiles(f, func(n string) bool {
+		return strings.HasSuffix(n, "_timeseries.tsv") || strings.HasSuffix(n, "_timeseries.csv")
+	}) {
 		f.Add(b, strings.HasSuffix(p, ".csv"))
 	}
 	for _, s := range []string{"", "a\tb\n", "a\tb\n1\t2\n", "a,b\n1,2\r\n3,4", "\xEF\xBB\xBFa\tb\r\n1\t2\r\n",
