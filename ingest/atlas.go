@@ -8,7 +8,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"slices"
 	"strconv"
 	"strings"
@@ -171,9 +170,9 @@ type LabelRow struct {
 // first cell is not a number (such as "index<TAB>name") is a header and is
 // skipped; further columns are ignored. Labels and names must be unique.
 func ReadLabelTable(path string) ([]LabelRow, error) {
-	f, err := os.Open(path)
+	f, err := openFile(path)
 	if err != nil {
-		return nil, &ParseError{Path: path, Err: err}
+		return nil, err
 	}
 	defer f.Close()
 	lr := newLineReader(path, f)

@@ -123,7 +123,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 	for i, in := range inputs {
 		key := in.Subject + "/" + in.Session
 		if j, dup := seen[key]; dup {
-			bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %s %s is also %s; keep one file per subject and session", ErrDuplicate, in.Subject, orNone(in.Session), inputs[j].Rel)})
+			bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%s %s is %w: also as %s; keep one file per subject and session", in.Subject, orNone(in.Session), ErrDuplicate, inputs[j].Rel)})
 			continue
 		}
 		seen[key] = i
@@ -205,6 +205,19 @@ func LoadCohort(o Options) (*Cohort, error) {
 	}
 	if len(problems) > 0 {
 		return nil, problems
+	}
+	// More states than windows cannot be fitted; say so before anything
+	// opens the warehouse.
+	var windows int
+	for _, in := range c.Inputs {
+		windows += in.Windows
+	}
+	k, flag := o.States, "--states"
+	if k == 0 {
+		k, flag = o.StatesMax, "--states-max"
+	}
+	if k > windows {
+		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), o.Window, o.Step)}
 	}
 	return c, nil
 }

@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
@@ -46,7 +47,7 @@ func discover(dir string, images bool) ([]Input, error) {
 	skipped := 0 // _bold images seen without --atlas
 	err = filepath.WalkDir(dir, func(path string, d fs.DirEntry, err error) error {
 		if err != nil {
-			problems = append(problems, &ParseError{Path: path, Err: err})
+			problems = append(problems, &ParseError{Path: path, Err: fileError(path, err)})
 			if d != nil && d.IsDir() {
 				return fs.SkipDir
 			}
@@ -93,9 +94,17 @@ func discover(dir string, images bool) ([]Input, error) {
 
 // SidecarTR reads RepetitionTime (seconds) from a BIDS JSON sidecar.
 func SidecarTR(path string) (float64, error) {
-	b, err := os.ReadFile(path)
+	f, err := openFile(path)
 	if err != nil {
-		return 0, &ParseError{Path: path, Err: err}
+		return 0, err
+	}
+	defer f.Close()
+	b, err := io.ReadAll(io.LimitReader(f, MaxLine+1))
+	if err != nil {
+		return 0, &ParseError{Path: path, Err: readError(err)}
+	}
+	if len(b) > MaxLine {
+		return 0, perr(path, 0, 0, "a JSON sidecar larger than 16 MiB is not a sidecar")
 	}
 	var side struct {
 		RepetitionTime *float64

@@ -3,7 +3,7 @@ package ingest
 import (
 	"bufio"
 	"bytes"
-	"errors"
+	"fmt"
 	"io"
 )
 
@@ -13,7 +13,8 @@ import (
 const MaxLine = 16 << 20
 
 // lineReader yields lines without their end (LF or CRLF), counting from 1.
-// A UTF-8 byte-order mark at the start is skipped; UTF-16 is refused.
+// UTF-8 byte-order marks at the start are skipped; UTF-16 and a start of
+// NUL bytes (after any mark) are refused.
 type lineReader struct {
 	path string
 	r    *bufio.Reader
@@ -34,14 +35,16 @@ func (lr *lineReader) next() []byte {
 	}
 	if lr.line == 0 {
 		head, _ := lr.r.Peek(4)
-		switch {
-		case bytes.HasPrefix(head, []byte{0xEF, 0xBB, 0xBF}):
+		for bytes.HasPrefix(head, []byte{0xEF, 0xBB, 0xBF}) { // a mark saved twice is still only a mark
 			lr.r.Discard(3)
+			head, _ = lr.r.Peek(4) // what follows the mark is checked the same way
+		}
+		switch {
 		case bytes.HasPrefix(head, []byte{0xFF, 0xFE}), bytes.HasPrefix(head, []byte{0xFE, 0xFF}):
-			lr.err = &ParseError{Path: lr.path, Line: 1, Err: errors.Join(ErrEncoding, errors.New("it is UTF-16; save it as UTF-8 (plain text) and try again"))}
+			lr.err = &ParseError{Path: lr.path, Line: 1, Err: fmt.Errorf("%w: it is UTF-16; save it as UTF-8 (plain text) and try again", ErrEncoding)}
 			return nil
 		case len(head) >= 2 && (head[0] == 0 || head[1] == 0):
-			lr.err = &ParseError{Path: lr.path, Line: 1, Err: errors.Join(ErrEncoding, errors.New("it holds NUL bytes (UTF-16 or binary); save it as UTF-8 text"))}
+			lr.err = &ParseError{Path: lr.path, Line: 1, Err: fmt.Errorf("%w: it holds NUL bytes (UTF-16 or binary); save it as UTF-8 text", ErrEncoding)}
 			return nil
 		}
 	}
@@ -50,8 +53,7 @@ func (lr *lineReader) next() []byte {
 	for {
 		chunk, err := lr.r.ReadSlice('\n')
 		if len(lr.buf)+len(chunk) > MaxLine {
-			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: errors.Join(ErrLineTooLong,
-				errors.New("longer than 16 MiB; is this really a text table with one time point per line?"))}
+			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: fmt.Errorf("%w: longer than 16 MiB; is this really a text table with one time point per line?", ErrLineTooLong)}
 			return nil
 		}
 		if err == bufio.ErrBufferFull {
@@ -69,7 +71,7 @@ func (lr *lineReader) next() []byte {
 			return trimEOL(lr.buf)
 		}
 		if err != nil {
-			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: err}
+			lr.err = &ParseError{Path: lr.path, Line: lr.line, Err: readError(err)}
 			return nil
 		}
 		if len(lr.buf) == 0 {

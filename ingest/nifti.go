@@ -306,9 +306,9 @@ type niftiFile struct {
 // openNifti opens path, gzip-compressed or not (told by its first two
 // bytes, not its name), reads the header and skips to vox_offset.
 func openNifti(path string, hash io.Writer) (*niftiFile, error) {
-	f, err := os.Open(path)
+	f, err := openFile(path)
 	if err != nil {
-		return nil, &ParseError{Path: path, Err: err}
+		return nil, err
 	}
 	nf := &niftiFile{path: path, f: f, size: -1}
 	var raw io.Reader = f

@@ -9,7 +9,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"os"
 	"strings"
 
 	"codeberg.org/sbinet/npyio"
@@ -30,9 +29,9 @@ const maxNpyHeader = 1 << 20
 // order. Its regions are named region_001, region_002, ... (Source.Read
 // names them from a sidecar or a label table). Values must be finite.
 func ReadNpyFile(path string) (sf *SeriesFile, err error) {
-	b, err := os.ReadFile(path)
+	b, err := readFile(path)
 	if err != nil {
-		return nil, &ParseError{Path: path, Err: err}
+		return nil, err
 	}
 	sum := sha256.Sum256(b)
 	bad := func(format string, a ...any) error {
@@ -147,9 +146,9 @@ func ReadNpyFile(path string) (sf *SeriesFile, err error) {
 // sidecar's "RegionNames" key: a list of distinct, non-empty strings, one
 // per column. It returns nil names when the key is absent.
 func SidecarRegionNames(path string) ([]string, error) {
-	b, err := os.ReadFile(path)
+	b, err := readFile(path)
 	if err != nil {
-		return nil, &ParseError{Path: path, Err: err}
+		return nil, err
 	}
 	var side struct {
 		RegionNames json.RawMessage

@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"math"
 	"os"
 	"strconv"
@@ -29,9 +30,12 @@ type Participants struct {
 
 // ReadParticipants reads a participants.tsv (or .csv) file.
 func ReadParticipants(path string) (*Participants, error) {
-	f, err := os.Open(path)
+	if _, err := os.Lstat(path); errors.Is(err, fs.ErrNotExist) {
+		return nil, &ParseError{Path: path, Err: fmt.Errorf("%w: not found; the cohort folder needs a participants.tsv (BIDS) whose first column is participant_id, one row per subject", ErrUnreadable)}
+	}
+	f, err := openFile(path)
 	if err != nil {
-		return nil, &ParseError{Path: path, Err: err}
+		return nil, err
 	}
 	defer f.Close()
 	return ParseParticipants(path, f, Delimiter(path))
@@ -57,7 +61,7 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 		if err := lr.fatal(); err != nil {
 			return nil, err
 		}
-		return nil, &ParseError{Path: path, Err: errors.Join(ErrEmpty, errors.New("expected a header starting with participant_id"))}
+		return nil, &ParseError{Path: path, Err: fmt.Errorf("%w: expected a header starting with participant_id", ErrEmpty)}
 	}
 	cols := strings.Split(string(header), string(delim))
 	for i := range cols {
@@ -108,7 +112,7 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 		}
 		id = NormaliseSubject(id)
 		if prev, dup := p.Lines[id]; dup {
-			problems = append(problems, &ParseError{Path: path, Line: lr.line, Column: 1, Err: fmt.Errorf("%w: %s is listed again (first on line %d)", ErrDuplicate, id, prev)})
+			problems = append(problems, &ParseError{Path: path, Line: lr.line, Column: 1, Err: fmt.Errorf("%s is %w (first on line %d); keep one row per participant", id, ErrDuplicate, prev)})
 			continue
 		}
 		p.Lines[id] = lr.line
@@ -126,7 +130,7 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 		return nil, problems
 	}
 	if len(p.IDs) == 0 {
-		return nil, &ParseError{Path: path, Line: 2, Err: errors.Join(ErrNoRows, errors.New("expected one row per participant"))}
+		return nil, &ParseError{Path: path, Line: 2, Err: fmt.Errorf("%w: expected one row per participant", ErrNoRows)}
 	}
 	for c := 1; c < len(cols); c++ {
 		typ := inferType(p.IDs, raw, c-1)

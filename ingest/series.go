@@ -4,11 +4,9 @@ import (
 	"bytes"
 	"crypto/sha256"
 	"encoding/hex"
-	"errors"
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"strconv"
 	"strings"
 	"unsafe"
@@ -40,9 +38,9 @@ func Delimiter(path string) byte {
 
 // ReadSeriesFile reads a series table from disk. See ParseSeries.
 func ReadSeriesFile(path string) (*SeriesFile, error) {
-	f, err := os.Open(path)
+	f, err := openFile(path)
 	if err != nil {
-		return nil, &ParseError{Path: path, Err: err}
+		return nil, err
 	}
 	defer f.Close()
 	h := sha256.New()
@@ -66,14 +64,14 @@ func ParseSeries(path string, r io.Reader, delim byte) (*SeriesFile, error) {
 		if err := lr.fatal(); err != nil {
 			return nil, err
 		}
-		return nil, &ParseError{Path: path, Err: errors.Join(ErrEmpty, errors.New("expected a header line of region names"))}
+		return nil, &ParseError{Path: path, Err: fmt.Errorf("%w: expected a header line of region names", ErrEmpty)}
 	}
 	regions, err := parseHeader(path, header, delim)
 	if err != nil {
 		return nil, err
 	}
 	p := len(regions)
-	data := make([]float64, 0, p*512)
+	data := make([]float64, 0, min(p*512, 1<<20)) // a guess at T; a huge header must not reserve gigabytes
 	var problems Problems
 	extra := 0
 	note := func(e error) {
@@ -135,7 +133,7 @@ func ParseSeries(path string, r io.Reader, delim byte) (*SeriesFile, error) {
 		return nil, problems
 	}
 	if len(data) == 0 {
-		return nil, &ParseError{Path: path, Line: 2, Err: errors.Join(ErrNoRows, errors.New("expected one line per time point after the header"))}
+		return nil, &ParseError{Path: path, Line: 2, Err: fmt.Errorf("%w: expected one line per time point after the header", ErrNoRows)}
 	}
 	return &SeriesFile{Path: path, Regions: regions, Series: compute.Series{T: len(data) / p, P: p, Data: data}}, nil
 }
@@ -158,6 +156,12 @@ func parseHeader(path string, header []byte, delim byte) ([]string, error) {
 		seen[n] = i
 	}
 	if len(names) < 2 {
+		switch {
+		case delim == '\t' && bytes.IndexByte(header, ',') >= 0:
+			return nil, perr(path, 1, 0, "header has 1 column: a .tsv file is split at tabs, but this header has commas; name a comma-separated file .csv")
+		case delim == ',' && bytes.IndexByte(header, '\t') >= 0:
+			return nil, perr(path, 1, 0, "header has 1 column: a .csv file is split at commas, but this header has tabs; name a tab-separated file .tsv")
+		}
 		return nil, perr(path, 1, 0, "header has %d column; need at least two regions (is the separator %s?)", len(names), delimName(delim))
 	}
 	return names, nil

@@ -156,3 +156,20 @@ func TestParseParticipants(t *testing.T) {
 		})
 	}
 }
+
+// Byte-order marks (EF BB BF, the UTF-8 encoding of U+FEFF: Unicode
+// Standard, section 23.8) at the start are not part of the first region's
+// name, even when a file was saved with the mark twice; binary after a mark
+// is still binary (found by FuzzParseSeries, kept in testdata/fuzz).
+func TestParseSeriesByteOrderMarks(t *testing.T) {
+	sf, err := ParseSeries("x.tsv", strings.NewReader("\xEF\xBB\xBF\xEF\xBB\xBFa\tb\n1\t2\n"), '\t')
+	if err != nil {
+		t.Fatal(err)
+	}
+	if sf.Regions[0] != "a" {
+		t.Errorf("first region %q, want \"a\"", sf.Regions[0])
+	}
+	if _, err := ParseSeries("x.tsv", strings.NewReader("\xEF\xBB\xBF\x00\tA\n0\t0"), '\t'); !errors.Is(err, ErrEncoding) {
+		t.Errorf("NUL bytes after a byte-order mark: err = %v, want ErrEncoding", err)
+	}
+}

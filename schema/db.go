@@ -100,6 +100,10 @@ func Migrate(ctx context.Context, conn *sql.Conn) error {
 // CheckLayout reports whether a file opened read-only carries a layout this
 // build understands.
 func CheckLayout(ctx context.Context, db *sql.DB) error {
+	var tables int
+	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM information_schema.tables WHERE table_schema = 'main'`).Scan(&tables); err == nil && tables == 0 {
+		return errors.New("schema: the file holds no tables yet (it is new, or its first ingest stopped before committing); 'topostate ingest' fills it")
+	}
 	var v sql.NullInt64
 	err := db.QueryRowContext(ctx, `SELECT max(version) FROM schema_version`).Scan(&v)
 	if err != nil {

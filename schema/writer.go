@@ -11,6 +11,7 @@ import (
 	"path/filepath"
 	"slices"
 	"strings"
+	"time"
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
@@ -209,24 +210,59 @@ func (w *Writer) Commit(ctx context.Context) error {
 	if w.done {
 		return errors.New("schema: writer already finished")
 	}
+	pauseBeforeCommit(ctx)
+	if err := ctx.Err(); err != nil {
+		w.Rollback()
+		return fmt.Errorf("schema: commit: %w", err)
+	}
 	var errs []error
 	for _, t := range slices.Sorted(maps.Keys(w.pq)) {
 		if err := w.pq[t].w.Close(); err != nil {
 			errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
 		}
 	}
-	w.pq = map[string]*parquetFile{}
 	if err := errors.Join(errs...); err != nil {
-		w.Rollback()
+		w.Rollback() // removes this analysis's Parquet files too
 		return err
 	}
-	_, err := w.conn.ExecContext(ctx, "COMMIT")
-	w.done = true
-	w.conn.Close()
+	// Once COMMIT starts it runs to the end even if ctx ends meanwhile:
+	// DuckDB may finish a COMMIT whose context was cancelled and still
+	// return the cancellation, and the caller would then report "nothing
+	// written" about an analysis that is in the file.
+	_, err := w.conn.ExecContext(context.Background(), "COMMIT")
 	if err != nil {
+		w.Rollback() // the connection goes back to the pool: no transaction left open on it
 		return fmt.Errorf("schema: commit: %w", err)
 	}
+	w.pq = map[string]*parquetFile{}
+	w.done = true
+	w.conn.Close()
 	return nil
+}
+
+// pauseEnv is a test hook, not a user setting (undocumented on purpose):
+// when it holds a Go duration, Commit prints pauseMarker on standard error
+// and waits that long, or until ctx ends, with the whole analysis written
+// into the open transaction but not committed. cmd/topostate's crash and
+// lock tests use it to kill the real binary, or to hold the file's lock, at
+// exactly that point.
+const (
+	pauseEnv    = "TOPOSTATE_TEST_PAUSE_BEFORE_COMMIT"
+	pauseMarker = "topostate-test: paused before commit"
+)
+
+func pauseBeforeCommit(ctx context.Context) {
+	d, err := time.ParseDuration(os.Getenv(pauseEnv))
+	if err != nil || d <= 0 {
+		return
+	}
+	fmt.Fprintln(os.Stderr, pauseMarker)
+	t := time.NewTimer(d)
+	defer t.Stop()
+	select {
+	case <-ctx.Done():
+	case <-t.C:
+	}
 }
 
 // Rollback abandons the analysis; the file keeps its earlier contents and

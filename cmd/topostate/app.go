@@ -8,6 +8,7 @@ import (
 	"os"
 	"os/signal"
 	"strings"
+	"sync/atomic"
 	"syscall"
 
 	"github.com/urfave/cli/v2"
@@ -47,8 +48,11 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 		ErrWriter:       stderr,
 		HideHelpCommand: true,
 		ExitErrHandler:  func(*cli.Context, error) {},
-		OnUsageError: func(_ *cli.Context, err error, _ bool) error {
-			return usageError{err}
+		OnUsageError: func(c *cli.Context, err error, sub bool) error {
+			if sub && c.Command != nil {
+				return usageError{fmt.Errorf("%w; see 'topostate %s --help'", err, c.Command.Name)}
+			}
+			return usageError{fmt.Errorf("%w; see 'topostate --help'", err)}
 		},
 		CommandNotFound: func(c *cli.Context, name string) {
 			fmt.Fprintf(c.App.ErrWriter, "topostate: no command %q; see 'topostate --help'\n", name)
@@ -58,6 +62,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			ingestCommand(),
 			simulateCommand(),
 			infoCommand(),
+			dropCommand(),
 			queryCommand(),
 			exportCommand(),
 			plotCommand(),
@@ -74,6 +79,14 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
+	var finished atomic.Bool
+	defer finished.Store(true) // runs before stop: no message for a normal end
+	context.AfterFunc(ctx, func() {
+		stop() // a second Ctrl-C ends the process at once
+		if !finished.Load() {
+			fmt.Fprintln(stderr, "topostate: stop requested; stopping at the next safe point (Ctrl-C again stops at once; the warehouse keeps only whole analyses either way)")
+		}
+	})
 	app := newApp(stdin, stdout, stderr)
 	notFound := false
 	app.CommandNotFound = func(c *cli.Context, name string) {

@@ -91,6 +91,9 @@ func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (
 	if err != nil {
 		return nil, err
 	}
+	if err := c.Context.Err(); err != nil {
+		return nil, err // interrupted while validating: do not create or open the file
+	}
 	_, statErr := os.Stat(dbPath)
 	created := errors.Is(statErr, fs.ErrNotExist)
 	sum, err := ingestInto(c, cohort, o, dbPath)

@@ -23,35 +23,21 @@ const holdLockEnv = "TOPOSTATE_CMD_TEST_HOLD_LOCK"
 
 var warehouse string
 
-// TestMain builds one small warehouse from an invented cohort (groups A and
-// B, covariates age and score) for the command tests. Started with
-// holdLockEnv set, the test binary instead holds a write lock on a file
-// (see TestQueryWhileAnotherProcessWrites).
-func TestMain(m *testing.M) {
-	if path := os.Getenv(holdLockEnv); path != "" {
-		db, err := schema.Open(path, false, nil)
-		if err != nil {
-			fmt.Println("error:", err)
-			os.Exit(1)
-		}
-		fmt.Println("locked")
-		io.Copy(io.Discard, os.Stdin)
-		db.Close()
-		return
-	}
-	dir, err := os.MkdirTemp("", "topostate-cmd-test-")
+// The package's TestMain (main_test.go) calls build to make one small
+// warehouse from an invented cohort (groups A and B, covariates age and
+// score) for the command tests. Started with holdLockEnv set, the test
+// binary instead runs holdLock: it holds a write lock on a file (see
+// TestQueryWhileAnotherProcessWrites).
+func holdLock(path string) int {
+	db, err := schema.Open(path, false, nil)
 	if err != nil {
-		fmt.Fprintln(os.Stderr, err)
-		os.Exit(1)
+		fmt.Println("error:", err)
+		return 1
 	}
-	code := 1
-	if err := build(dir); err != nil {
-		fmt.Fprintln(os.Stderr, "building the test warehouse:", err)
-	} else {
-		code = m.Run()
-	}
-	os.RemoveAll(dir)
-	os.Exit(code)
+	fmt.Println("locked")
+	io.Copy(io.Discard, os.Stdin)
+	db.Close()
+	return 0
 }
 
 func build(dir string) error {
