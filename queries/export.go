@@ -30,6 +30,7 @@ var units = map[string]string{
 	"analyses.parameters": "JSON text", "analyses.input_dir": "path", "analyses.n_subjects": "count (series)",
 	"analyses.n_regions": "count (regions)", "analyses.n_states": "count (states)",
 	"analyses.n_windows": "count (windows)", "analyses.fit_windows": "count (windows)",
+	"dropped_analyses.name": "text", "dropped_analyses.dropped_at": "timestamp (UTC)", "dropped_analyses.rows_removed": "count (rows)",
 	"inputs.path": "path", "inputs.sha256": "hex digest", "inputs.timepoints": "count (time points)",
 	"inputs.regions": "count (regions)", "inputs.tr_seconds": "seconds", "inputs.tr_source": "text",
 	"excluded_inputs.path": "path", "excluded_inputs.reason": "text",

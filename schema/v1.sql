@@ -22,6 +22,13 @@ CREATE TABLE IF NOT EXISTS analyses (
     fit_windows  INTEGER NOT NULL     -- windows used to fit the states
 );
 
+CREATE TABLE IF NOT EXISTS dropped_analyses (
+    analysis_id  INTEGER NOT NULL,   -- identifier the dropped analysis had; never given out again
+    name         VARCHAR NOT NULL,   -- its name (free for reuse)
+    dropped_at   TIMESTAMP NOT NULL, -- when 'topostate drop' removed it (UTC)
+    rows_removed BIGINT NOT NULL     -- result rows deleted with it
+);
+
 CREATE TABLE IF NOT EXISTS inputs (
     analysis_id INTEGER NOT NULL, -- analysis
     subject_id  VARCHAR NOT NULL, -- participant label as in participants.tsv, with sub- prefix

@@ -66,7 +66,11 @@ func (w *Writer) begin(ctx context.Context) error {
 	if err := Migrate(ctx, w.conn); err != nil {
 		return err
 	}
-	if err := w.conn.QueryRowContext(ctx, `SELECT coalesce(max(analysis_id), 0) + 1 FROM analyses`).Scan(&w.ID); err != nil {
+	// Identifiers are never reused, not even those of dropped analyses, so
+	// an exported table cannot be mistaken for a later analysis's.
+	if err := w.conn.QueryRowContext(ctx, `SELECT greatest(
+			(SELECT coalesce(max(analysis_id), 0) FROM analyses),
+			(SELECT coalesce(max(analysis_id), 0) FROM dropped_analyses)) + 1`).Scan(&w.ID); err != nil {
 		return fmt.Errorf("schema: next analysis id: %w", err)
 	}
 	if w.Name == "" {

@@ -10,6 +10,7 @@ import (
 	"io/fs"
 	"os"
 	"strings"
+	"time"
 
 	"github.com/urfave/cli/v2"
 
@@ -119,7 +120,8 @@ func dropAnalysis(ctx context.Context, path string, id int, name string) (rows i
 		return 0, 0, fmt.Errorf("drop: analysis %q changed while asking; nothing was removed, run again", name)
 	}
 	q, err := tx.QueryContext(ctx, `SELECT table_name FROM information_schema.columns
-		WHERE table_schema = 'main' AND column_name = 'analysis_id' AND table_name <> 'analyses'
+		WHERE table_schema = 'main' AND column_name = 'analysis_id'
+			AND table_name NOT IN ('analyses', 'dropped_analyses')
 		ORDER BY table_name`)
 	if err != nil {
 		return 0, 0, fmt.Errorf("drop: %w", err)
@@ -145,6 +147,9 @@ func dropAnalysis(ctx context.Context, path string, id int, name string) (rows i
 			return 0, 0, fmt.Errorf("drop: %w", err)
 		}
 		rows += n
+	}
+	if _, err := tx.ExecContext(ctx, `INSERT INTO dropped_analyses VALUES (?, ?, ?, ?)`, id, name, time.Now().UTC(), rows); err != nil {
+		return 0, 0, fmt.Errorf("drop: record the drop: %w", err)
 	}
 	if err := tx.Commit(); err != nil {
 		return 0, 0, fmt.Errorf("drop: commit: %w", err)

@@ -96,12 +96,22 @@ func TestDrop(t *testing.T) {
 		if !strings.Contains(r.stdout, want) {
 			t.Errorf("standard output %q lacks %q", r.stdout, want)
 		}
-		// Everything but analysis 2 stays; nothing of it remains.
-		sameSnapshot(t, "after dropping second", baseline, snapshot(t, db, 0))
+		// Everything but analysis 2 stays; nothing of it remains but the
+		// record of the drop, which keeps id 2 from being given out again.
+		after := snapshot(t, db, 0)
+		if got := querySQL(t, db, `SELECT analysis_id || ' ' || name || ' ' || rows_removed FROM dropped_analyses`); got != fmt.Sprintf("2 second %d", rows2) {
+			t.Errorf("dropped_analyses holds %q", got)
+		}
+		delete(after, "dropped_analyses")
+		delete(baseline, "dropped_analyses")
+		sameSnapshot(t, "after dropping second", baseline, after)
 		// The name is free again.
 		abs, _ := filepath.Abs(goodCohort)
 		if r := runCmd(t, cmdOpts{args: expand(baseIngest+" --analysis second", abs, db)}); r.code != 0 {
 			t.Fatalf("ingest under the dropped name: exit %d\n%s", r.code, r.stderr)
+		}
+		if got := querySQL(t, db, `SELECT analysis_id FROM analyses WHERE name = 'second'`); got != "3" {
+			t.Errorf("the new analysis got id %s; a dropped id (2) must not be reused", got)
 		}
 	})
 

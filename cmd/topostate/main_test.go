@@ -330,7 +330,7 @@ func orphanRows(t *testing.T, path string) int {
 	}
 	defer db.Close()
 	tables := queryStrings(t, db, `SELECT table_name FROM information_schema.columns
-		WHERE table_schema = 'main' AND column_name = 'analysis_id' AND table_name <> 'analyses'`)
+		WHERE table_schema = 'main' AND column_name = 'analysis_id' AND table_name NOT IN ('analyses', 'dropped_analyses')`)
 	total := 0
 	for _, tb := range tables {
 		var n int
