@@ -41,6 +41,10 @@ type Options struct {
 	Atlas       string `json:"atlas,omitempty"`        // label atlas for _bold.nii[.gz] images; "": images are not read
 	AtlasLabels string `json:"atlas_labels,omitempty"` // label table (label, name); "": regions label_<n> (region_001... for .npy)
 
+	// StatesFrom, when not nil, skips sampling and fitting: every window
+	// is assigned to the centroids of an earlier analysis (LoadStates).
+	StatesFrom *StatesFrom `json:"states_from,omitempty"`
+
 	Analysis string `json:"-"`
 	Parquet  string `json:"-"`
 	Workers  int    `json:"-"`

@@ -42,7 +42,8 @@ type Summary struct {
 	States      int
 	Windows     int64
 	FitWindows  int
-	Elbow       *compute.Elbow // nil when k was fixed
+	Elbow       *compute.Elbow // nil when k was fixed or the states were reused
+	StatesFrom  *StatesFrom    // the analysis whose states were reused; nil when fitted
 	Warnings    []string
 	PhaseTimes  []PhaseTime
 	Occupancies []float64 // cohort mean occupancy per state
@@ -84,18 +85,26 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		return nil, err
 	}
 
-	// Stage 1: sample windows for fitting.
-	sample, err := st.sample(ctx)
-	if err != nil {
-		return nil, err
+	if o.StatesFrom != nil {
+		// Replication: the stored states instead of stages 1 and 2.
+		if err := st.useStates(o.StatesFrom); err != nil {
+			return nil, err
+		}
+		sum.StatesFrom = o.StatesFrom
+	} else {
+		// Stage 1: sample windows for fitting.
+		sample, err := st.sample(ctx)
+		if err != nil {
+			return nil, err
+		}
+		lap("sample windows")
+		// Stage 2: fit the states.
+		if err := st.fit(sample); err != nil {
+			return nil, err
+		}
+		sum.Elbow = st.elbow
+		lap("fit states")
 	}
-	lap("sample windows")
-	// Stage 2: fit the states.
-	if err := st.fit(sample); err != nil {
-		return nil, err
-	}
-	sum.Elbow = st.elbow
-	lap("fit states")
 
 	// Stages 3 and 4: per-subject results, written in subject order.
 	w, err := schema.Begin(ctx, db, o.Analysis, o.Parquet)

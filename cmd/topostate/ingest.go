@@ -41,6 +41,7 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance `NAME`: sqeuclidean or cityblock"},
 		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most `N` windows are used to fit the states"},
 		&cli.BoolFlag{Name: "all-windows", Usage: "fit on all windows (up to --fit-windows) instead of variance-peak exemplars"},
+		replicationFlags()[0], replicationFlags()[1],
 		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
 		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "`POLICY` fail, or skip a series with problems (recorded in excluded_inputs)"},
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},
@@ -77,6 +78,9 @@ func ingestCommand() *cli.Command {
 			if err := o.Check(); err != nil {
 				return err
 			}
+			if err := checkReplicationFlags(c); err != nil {
+				return err
+			}
 			_, err := runIngest(c, o, c.String("db"), c.App.Writer)
 			return err
 		},
@@ -111,6 +115,9 @@ func ingestInto(c *cli.Context, cohort *ingest.Cohort, o ingest.Options, dbPath 
 		return nil, err
 	}
 	defer db.Close()
+	if o.StatesFrom, err = loadStatesFrom(c, db, dbPath); err != nil {
+		return nil, err
+	}
 	var prog ingest.Progress
 	if p := newProgress(c.App.ErrWriter, c.Bool("quiet")); p != nil {
 		prog = p
@@ -130,13 +137,19 @@ func printSummary(w io.Writer, dbPath string, s *ingest.Summary) {
 		fmt.Fprintf(w, " (dropped as constant: %s)", strings.Join(s.Dropped, ", "))
 	}
 	fmt.Fprintln(w)
-	fmt.Fprintf(w, "  windows          %d (%d used to fit the states)\n", s.Windows, s.FitWindows)
+	if s.StatesFrom != nil {
+		fmt.Fprintf(w, "  windows          %d (none sampled: the states are reused)\n", s.Windows)
+	} else {
+		fmt.Fprintf(w, "  windows          %d (%d used to fit the states)\n", s.Windows, s.FitWindows)
+	}
 	if e := s.Elbow; e != nil {
 		fmt.Fprintf(w, "  states           %d, picked by the elbow (chord rule) over k=%d..%d\n", s.States, e.Points[0].K, e.Points[len(e.Points)-1].K)
 		if e.SecondDiffK != e.ChordK {
 			fmt.Fprintf(w, "  note             the largest-second-difference rule picks k=%d instead; both are in table elbow,\n"+
 				"                   and --states %d re-runs with that choice\n", e.SecondDiffK, e.SecondDiffK)
 		}
+	} else if f := s.StatesFrom; f != nil {
+		fmt.Fprintf(w, "  states           %d, reused from analysis %q (id %d) in %s\n", s.States, f.Analysis, f.AnalysisID, f.DB)
 	} else {
 		fmt.Fprintf(w, "  states           %d (fixed by --states)\n", s.States)
 	}
