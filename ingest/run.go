@@ -125,13 +125,8 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		return nil, err
 	}
 	lap("subjects and write")
-	params, err := json.Marshal(o)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
-		w.ID, w.Name, time.Now().UTC(), Version, string(params), o.Input, len(c.Inputs), len(c.Keep), st.k, st.totalWindows, st.fitRows); err != nil {
-		return nil, fmt.Errorf("ingest: record analysis: %w", err)
+	if err := st.recordAnalysis(ctx, w); err != nil {
+		return nil, err
 	}
 	if err := w.Commit(ctx); err != nil {
 		return nil, err
@@ -149,6 +144,19 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	}
 	sum.Occupancies = occ
 	return sum, nil
+}
+
+// recordAnalysis inserts the analyses row, with every option as JSON.
+func (s *stages) recordAnalysis(ctx context.Context, w *schema.Writer) error {
+	params, err := json.Marshal(s.o)
+	if err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
+		w.ID, w.Name, time.Now().UTC(), Version, string(params), s.o.Input, len(s.c.Inputs), len(s.c.Keep), s.k, s.totalWindows, s.fitRows); err != nil {
+		return fmt.Errorf("ingest: record analysis: %w", err)
+	}
+	return nil
 }
 
 // stages carries what the stages share.
@@ -299,11 +307,32 @@ func parallel[R any](ctx context.Context, n, workers int, fn func(i int) (R, err
 func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	n := len(s.c.Inputs)
 	s.prog.Stage("sampling windows", n)
-	perSubject := max(1, (2*s.o.FitMax+n-1)/n)
 	D := compute.PairCount(s.p)
 	var pool []float32
 	rows := 0
-	err := parallel(ctx, n, s.workers, func(i int) ([]float32, error) {
+	err := s.sampleRange(ctx, 0, n, func(i int, rowsOf []float32) error {
+		pool = append(pool, rowsOf...)
+		rows += len(rowsOf) / D
+		s.prog.Add(1)
+		return nil
+	})
+	if err != nil {
+		return compute.Matrix32{}, err
+	}
+	return s.capSample(compute.Matrix32{Rows: rows, Cols: D, Data: pool}), nil
+}
+
+// sampleRange runs the per-series part of stage 1 for series lo..hi-1 of
+// the cohort (in parallel) and hands each one's exemplar rows to sink in
+// series order. A shard of a sharded run calls it for its own range; the
+// series index i is the position in the whole cohort, so the draws do not
+// depend on the sharding.
+func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, rows []float32) error) error {
+	n := len(s.c.Inputs)
+	perSubject := max(1, (2*s.o.FitMax+n-1)/n)
+	D := compute.PairCount(s.p)
+	return parallel(ctx, hi-lo, s.workers, func(j int) ([]float32, error) {
+		i := lo + j
 		m, err := s.windows(s.c.Inputs[i])
 		if err != nil {
 			return nil, err
@@ -327,16 +356,16 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 			out = append(out, m.Row(r)...)
 		}
 		return out, nil
-	}, func(i int, rowsOf []float32) error {
-		pool = append(pool, rowsOf...)
-		rows += len(rowsOf) / D
-		s.prog.Add(1)
-		return nil
+	}, func(j int, rowsOf []float32) error {
+		return sink(lo+j, rowsOf)
 	})
-	if err != nil {
-		return compute.Matrix32{}, err
-	}
-	m := compute.Matrix32{Rows: rows, Cols: D, Data: pool}
+}
+
+// capSample is the end of stage 1: the pooled exemplars of every series in
+// series order, capped to FitMax rows drawn uniformly with a generator
+// seeded from (seed, 0). It sets fitRows.
+func (s *stages) capSample(m compute.Matrix32) compute.Matrix32 {
+	rows, D := m.Rows, m.Cols
 	if rows > s.o.FitMax {
 		rng := rand.New(rand.NewPCG(s.o.Seed, 0))
 		all := make([]int, rows)
@@ -351,7 +380,7 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 		m = capped
 	}
 	s.fitRows = m.Rows
-	return m, nil
+	return m
 }
 
 // pick returns k of idx chosen uniformly without replacement, in their
@@ -418,20 +447,15 @@ func (s *stages) fit(x compute.Matrix32) error {
 // writeStatic writes the analysis-level tables: regions, elbow, centroids,
 // subjects, excluded inputs.
 func (s *stages) writeStatic(ctx context.Context, w *schema.Writer) error {
+	if err := s.writeStates(ctx, w); err != nil {
+		return err
+	}
+	return s.writeCohort(ctx, w)
+}
+
+// writeStates writes the tables of stage 2: elbow and state_centroids.
+func (s *stages) writeStates(ctx context.Context, w *schema.Writer) error {
 	id := w.ID
-	rb := schema.NewBatch(schema.Regions)
-	defer rb.Release()
-	node := map[int]int{}
-	for n, j := range s.c.Keep {
-		node[j] = n + 1
-	}
-	for j, name := range s.c.Regions {
-		if n, ok := node[j]; ok {
-			rb.Row(id, n, j+1, name, false)
-		} else {
-			rb.Row(id, nil, j+1, name, true)
-		}
-	}
 	eb := schema.NewBatch(schema.Elbow)
 	defer eb.Release()
 	if s.elbow != nil {
@@ -448,12 +472,37 @@ func (s *stages) writeStatic(ctx context.Context, w *schema.Writer) error {
 			cb.Row(id, st+1, i+1, j+1, float64(v))
 		}
 	}
+	for _, b := range []*schema.Batch{eb, cb} {
+		if err := w.Append(ctx, b); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// writeCohort writes the tables known once the cohort is validated:
+// regions, excluded_inputs and subjects.
+func (s *stages) writeCohort(ctx context.Context, w *schema.Writer) error {
+	id := w.ID
+	rb := schema.NewBatch(schema.Regions)
+	defer rb.Release()
+	node := map[int]int{}
+	for n, j := range s.c.Keep {
+		node[j] = n + 1
+	}
+	for j, name := range s.c.Regions {
+		if n, ok := node[j]; ok {
+			rb.Row(id, n, j+1, name, false)
+		} else {
+			rb.Row(id, nil, j+1, name, true)
+		}
+	}
 	xb := schema.NewBatch(schema.ExcludedInputs)
 	defer xb.Release()
 	for _, x := range s.c.Excluded {
 		xb.Row(id, x.Subject, x.Session, x.Rel, x.Reason)
 	}
-	for _, b := range []*schema.Batch{rb, eb, cb, xb} {
+	for _, b := range []*schema.Batch{rb, xb} {
 		if err := w.Append(ctx, b); err != nil {
 			return err
 		}
