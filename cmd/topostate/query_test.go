@@ -26,8 +26,12 @@ var warehouse string
 // TestMain builds one small warehouse from an invented cohort (groups A and
 // B, covariates age and score) for the command tests. Started with
 // holdLockEnv set, the test binary instead holds a write lock on a file
-// (see TestQueryWhileAnotherProcessWrites).
+// (see TestQueryWhileAnotherProcessWrites); with asCommandEnv set it is the
+// topostate command itself, run on its arguments (see TestStagesEqualIngest).
 func TestMain(m *testing.M) {
+	if os.Getenv(asCommandEnv) != "" {
+		os.Exit(run(append([]string{"topostate"}, os.Args[1:]...), os.Stdin, os.Stdout, os.Stderr))
+	}
 	if path := os.Getenv(holdLockEnv); path != "" {
 		db, err := schema.Open(path, false, nil)
 		if err != nil {
