@@ -420,7 +420,7 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 		}
 		pending += len(rows)
 		st.prog.Add(1)
-		if pending > 1<<24 { // 64 MB of values
+		if pending > 1<<22 { // 16 MB of values
 			return flush()
 		}
 		return nil
