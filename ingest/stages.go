@@ -443,17 +443,24 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 // readSample pools the exemplars of every shard in shard order, that is in
 // series order, as stage 1 of Run does.
 func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) {
-	var pool []float32
-	rows := 0
-	next := 0 // series_index must not go back
-	for i := 1; i <= w.Manifest.Shards; i++ {
-		mk, err := w.readMark("sample", i)
+	marks := make([]*stageMark, w.Manifest.Shards)
+	var total int64
+	for i := range marks {
+		mk, err := w.readMark("sample", i+1)
 		if err != nil {
 			return compute.Matrix32{}, err
 		}
+		marks[i] = mk
+		total += mk.Rows[sampleTable]
+	}
+	pool := make([]float32, 0, total*int64(D))
+	rows := 0
+	next := 0 // series_index must not go back
+	for i := 1; i <= w.Manifest.Shards; i++ {
+		mk := marks[i-1]
 		path := w.tablePath(i)(sampleTable)
 		got := 0
-		err = schema.ReadParquet(ctx, path, 0, func(rec arrow.Record) error {
+		err := schema.ReadParquet(ctx, path, 0, func(rec arrow.Record) error {
 			si, ok1 := rec.Column(0).(*array.Int32)
 			l, ok2 := rec.Column(1).(*array.List)
 			if !ok1 || !ok2 {

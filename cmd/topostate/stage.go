@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"slices"
 
 	"github.com/urfave/cli/v2"
@@ -72,6 +73,7 @@ func stageCommand() *cli.Command {
 					if err != nil {
 						return err
 					}
+					lowerGC()
 					s, err := w.Sample(c.Context, sh, c.Int("workers"), progress(c))
 					if err != nil {
 						return err
@@ -99,6 +101,7 @@ func stageCommand() *cli.Command {
 					if err != nil {
 						return err
 					}
+					lowerGC()
 					s, err := w.Fit(c.Context, c.Int("workers"), from, progress(c))
 					if err != nil {
 						return err
@@ -125,6 +128,7 @@ func stageCommand() *cli.Command {
 					if err != nil {
 						return err
 					}
+					lowerGC()
 					s, err := w.Compute(c.Context, sh, c.Int("workers"), progress(c))
 					if err != nil {
 						return err
@@ -199,6 +203,15 @@ func need(c *cli.Context, flags ...string) error {
 		}
 	}
 	return nil
+}
+
+// lowerGC collects garbage at 25 % heap growth unless GOGC is set, as
+// ingest does: most of a stage's memory is one large pointer-free slice
+// (the fitting sample, a series' windows).
+func lowerGC() {
+	if os.Getenv("GOGC") == "" {
+		debug.SetGCPercent(25)
+	}
 }
 
 func openShard(c *cli.Context) (*ingest.Work, ingest.Shard, error) {

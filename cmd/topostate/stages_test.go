@@ -117,7 +117,7 @@ func TestStagesEqualIngest(t *testing.T) {
 	cohort := filepath.Join(tmp, "cohort")
 	spec := compute.CohortSpec{Subjects: 16, Regions: 10, Timepoints: 150, States: 3, TR: 2,
 		Stickiness: 0.93, GroupEffect: 0.04, Offset: 300, Seed: 17}
-	if err := writeSynthetic(cohort, spec, map[string]string{"A": "day", "B": "night"}, "score"); err != nil {
+	if _, err := writeSynthetic(cohort, spec, map[string]string{"A": "day", "B": "night"}, "score"); err != nil {
 		t.Fatal(err)
 	}
 	// Region 4 constant everywhere (dropped), sub-005 ragged (skipped).
