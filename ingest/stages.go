@@ -395,6 +395,7 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 	lo, hi := sh.Range(len(w.cohort.Inputs))
 	st.prog.Stage(fmt.Sprintf("sampling windows, shard %s", sh), hi-lo)
 	pw := schema.BeginParquet(0, w.tablePath(sh.I))
+	pw.Plain(sampleTable)
 	D := compute.PairCount(st.p)
 	sc := arrow.NewSchema([]arrow.Field{
 		{Name: "series_index", Type: arrow.PrimitiveTypes.Int32},

@@ -33,6 +33,7 @@ type Writer struct {
 	path       func(table string) string // Parquet file of a table
 	pq         map[string]*parquetFile
 	rows       map[string]int64
+	plain      map[string]bool // tables written without dictionary or compression
 	views      int
 }
 
@@ -71,6 +72,18 @@ func Begin(ctx context.Context, db *sql.DB, name, parquetDir string) (*Writer, e
 // them. Exec is refused and EnsureSubjectColumns does nothing.
 func BeginParquet(id int, path func(table string) string) *Writer {
 	return &Writer{ID: id, path: path, pq: map[string]*parquetFile{}, rows: map[string]int64{}}
+}
+
+// Plain makes the Parquet files of tables plain: no dictionary encoding and
+// no compression, for columns of measured floats that neither would shrink
+// (a sharded run's fitting sample), where both only cost time.
+func (w *Writer) Plain(tables ...string) {
+	if w.plain == nil {
+		w.plain = map[string]bool{}
+	}
+	for _, t := range tables {
+		w.plain[t] = true
+	}
 }
 
 // Rows returns the number of rows appended to each table so far.
@@ -223,6 +236,9 @@ func (w *Writer) writeParquet(table string, rec arrow.Record) error {
 			return fmt.Errorf("schema: parquet: %w", err)
 		}
 		props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd))
+		if w.plain[table] {
+			props = parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Uncompressed), parquet.WithDictionaryDefault(false))
+		}
 		fw, err := pqarrow.NewFileWriter(rec.Schema(), f, props, pqarrow.DefaultWriterProps())
 		if err != nil {
 			f.Close()
