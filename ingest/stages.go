@@ -239,16 +239,23 @@ func (w *Work) readMark(stage string, shard int) (*stageMark, error) {
 // same regions, each series' share of the fitting sample depends on the
 // cohort size), so it is one job. The input, atlas and label paths are made
 // absolute so that later stages may run in other folders.
-func Plan(ctx context.Context, o Options, dir string, shards int) (*Work, error) {
+func Plan(ctx context.Context, o Options, dir string, shards int) (w *Work, err error) {
 	if err := o.Check(); err != nil {
 		return nil, err
 	}
 	if shards < 1 {
 		return nil, &UsageError{Err: fmt.Errorf("--shards %d: need at least 1", shards)}
 	}
-	if ents, err := os.ReadDir(dir); err == nil && len(ents) > 0 {
+	ents, statErr := os.ReadDir(dir)
+	if statErr == nil && len(ents) > 0 {
 		return nil, &UsageError{Err: fmt.Errorf("--work %s is not empty; plan into a new folder (a plan cannot change under finished shards)", dir)}
 	}
+	defer func() {
+		// A failed plan leaves no folder it made, so the next one may start.
+		if err != nil && errors.Is(statErr, fs.ErrNotExist) {
+			os.RemoveAll(dir)
+		}
+	}()
 	for _, p := range []*string{&o.Input, &o.Atlas, &o.AtlasLabels} {
 		if *p == "" {
 			continue
@@ -277,7 +284,7 @@ func Plan(ctx context.Context, o Options, dir string, shards int) (*Work, error)
 	for _, x := range c.Excluded {
 		m.Excluded = append(m.Excluded, PlannedSkip{Subject: x.Subject, Session: x.Session, Path: x.Path, Rel: x.Rel, Reason: x.Reason})
 	}
-	w := &Work{Dir: dir, Manifest: m, cohort: c}
+	w = &Work{Dir: dir, Manifest: m, cohort: c}
 	st, err := w.stages(o.Workers, nil)
 	if err != nil {
 		return nil, err
