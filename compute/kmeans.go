@@ -8,8 +8,6 @@ import (
 	"slices"
 	"sync"
 	"sync/atomic"
-
-	"gonum.org/v1/gonum/blas/gonum"
 )
 
 // Distance selects the dissimilarity k-means minimises (METHODS section 3).
@@ -45,13 +43,21 @@ type KMeansOptions struct {
 	MaxIter  int      // Lloyd iterations per restart; 0 means 100
 	Tol      float64  // stop when (W_old - W_new)/W_old < Tol; 0 means 1e-6
 	Distance Distance // SquaredEuclidean (the zero value) or CityBlock
+	// FirstRestart numbers the restarts FirstRestart .. FirstRestart +
+	// Restarts - 1 (restart r draws from rand.NewPCG(seed, r)); 0 numbers
+	// them from 0. A fit with restarts 0..a-1 and one with FirstRestart a
+	// and Restarts b-a, keeping the lower WCSS (ties to the first), equal
+	// one fit with Restarts b: the elbow scan's fit at the picked k is
+	// extended this way without repeating its restarts.
+	FirstRestart int
 	// Workers is the number of goroutines used for assignment, seeding and
 	// the centroid update; 0 or 1 means serial. Work is split in fixed row
 	// (or column) blocks and sums are taken in a fixed order, so results are
 	// identical for any Workers.
 	Workers int
 	// Done, when not nil, is called after each restart finishes (for a
-	// progress display); it must not block for long.
+	// progress display; ElbowScan calls it after each k of each restart);
+	// it must not block for long.
 	Done func()
 }
 
@@ -61,7 +67,10 @@ type KMeansResult struct {
 	Labels     []int    // 0-based cluster of each input row
 	WCSS       float64  // sum over rows of d(x_i, Centroids[Labels[i]]), float64, summed in row order
 	Iterations int      // Lloyd iterations run (assignment + update steps after the seeding)
-	Converged  bool     // stopped by the Tol rule or unchanged labels, not by MaxIter
+	// TotalIterations is the number of Lloyd iterations summed over all
+	// restarts (a measure of the work done).
+	TotalIterations int
+	Converged       bool // stopped by the Tol rule or unchanged labels, not by MaxIter
 }
 
 const (
@@ -71,17 +80,6 @@ const (
 	colBlock       = 128 // columns per parallel work unit in the mean update
 	medianTile     = 16  // columns gathered at once in the median update
 )
-
-var sblas gonum.Implementation
-
-// dot32 returns sum_j x_j y_j. The float32 products are exact in float64 and
-// are accumulated in float64 (BLAS dsdot).
-func dot32(x, y []float32) float64 {
-	if len(x) != len(y) {
-		panic("compute: slice length mismatch")
-	}
-	return sblas.Dsdot(len(x), x, 1, y, 1)
-}
 
 // l1Dist returns sum_j |x_j - y_j| accumulated in float64.
 func l1Dist(x, y []float32) float64 {
@@ -169,21 +167,41 @@ func pointDist(d Distance, xi []float32, xn float64, c []float32, cn float64) fl
 // index). A row whose distances are all NaN gets label -1 and distance NaN.
 // xn may be nil; norms are then computed per row.
 func assignRows(x Matrix32, xn []float64, c Matrix32, cn []float64, d Distance, workers int, labels []int, dist []float64) {
-	parallelFor(blocks(x.Rows, rowBlock), workers, func(_, b int) {
+	bufs := make([][]float64, max(1, workers))
+	for w := range bufs {
+		bufs[w] = make([]float64, c.Rows)
+	}
+	var cw wide
+	if d == SquaredEuclidean {
+		cw = widen(c)
+	}
+	parallelFor(blocks(x.Rows, rowBlock), workers, func(w, b int) {
+		dots := bufs[w]
 		for i := b * rowBlock; i < min((b+1)*rowBlock, x.Rows); i++ {
 			xi := x.Row(i)
-			var n float64
+			best, bd := -1, math.Inf(1)
 			if d == SquaredEuclidean {
+				var n float64
 				if xn != nil {
 					n = xn[i]
 				} else {
 					n = dot32(xi, xi)
 				}
-			}
-			best, bd := -1, math.Inf(1)
-			for k := 0; k < c.Rows; k++ {
-				if v := pointDist(d, xi, n, c.Row(k), cn[k]); v < bd {
-					best, bd = k, v
+				dotsRow(xi, cw, dots)
+				for k, dk := range dots {
+					v := n + cn[k] - 2*dk
+					if v < 0 {
+						v = 0
+					}
+					if v < bd {
+						best, bd = k, v
+					}
+				}
+			} else {
+				for k := 0; k < c.Rows; k++ {
+					if v := l1Dist(xi, c.Row(k)); v < bd {
+						best, bd = k, v
+					}
 				}
 			}
 			if best < 0 {
@@ -230,6 +248,7 @@ type kmFit struct {
 	xn      []float64 // squared row norms (SquaredEuclidean only)
 	d       Distance
 	workers int
+	plain   bool // SquaredEuclidean by plain Lloyd iterations (tests compare it with runBounded)
 }
 
 // seed chooses k centres by k-means++ (Arthur and Vassilvitskii, 2007): the
@@ -239,7 +258,11 @@ type kmFit struct {
 // distance D(x)^1 for CityBlock (the D^l weighting of the same paper). If
 // every weight is 0 (fewer distinct rows than k), a row is drawn uniformly.
 // Cost O(n k D). It returns the centres and the chosen row indices.
-func (f *kmFit) seed(k int, r *rand.Rand) (Matrix32, []int) {
+//
+// When dist is not nil (n x k, row-major) it receives every row's distance
+// to every chosen centre, dist[i*k+j] = d(x_i, c_j), as computed on the
+// way.
+func (f *kmFit) seed(k int, r *rand.Rand, dist []float64) (Matrix32, []int) {
 	n, dim := f.x.Rows, f.x.Cols
 	c := NewMatrix32(k, dim)
 	idx := make([]int, k)
@@ -280,8 +303,10 @@ func (f *kmFit) seed(k int, r *rand.Rand) (Matrix32, []int) {
 		cj := c.Row(j)
 		copy(cj, f.x.Row(pick))
 		var cn float64
+		var cw []float64
 		if f.d == SquaredEuclidean {
 			cn = f.xn[pick]
+			cw = widen(Matrix32{Rows: 1, Cols: dim, Data: cj}).Data
 		}
 		first := j == 0
 		parallelFor(blocks(n, rowBlock), f.workers, func(_, b int) {
@@ -290,7 +315,16 @@ func (f *kmFit) seed(k int, r *rand.Rand) (Matrix32, []int) {
 				if f.d == SquaredEuclidean {
 					xn = f.xn[i]
 				}
-				v := pointDist(f.d, f.x.Row(i), xn, cj, cn)
+				var v float64
+				if f.d == SquaredEuclidean {
+					// xn + cn - 2 x.c as in pointDist, with the centre widened once.
+					v = max(xn+cn-2*dotMixed(f.x.Row(i), cw), 0)
+				} else {
+					v = l1Dist(f.x.Row(i), cj)
+				}
+				if dist != nil {
+					dist[i*k+j] = v
+				}
 				if first || v < w[i] {
 					w[i] = v
 				}
@@ -485,8 +519,25 @@ func sumOrdered(v []float64) float64 {
 
 // run is one restart: seeding, then Lloyd iterations.
 func (f *kmFit) run(k, maxIter int, tol float64, r *rand.Rand) KMeansResult {
+	var d []float64
+	if f.bounded() {
+		d = make([]float64, f.x.Rows*k)
+	}
+	c, _ := f.seed(k, r, d)
+	return f.lloyd(c, d, k, maxIter, tol)
+}
+
+// bounded reports whether Lloyd iterations use Elkan's bounds.
+func (f *kmFit) bounded() bool { return f.d == SquaredEuclidean && !f.plain }
+
+// lloyd runs Lloyd iterations from the centres c (modified in place). For
+// the bounded path, d[i*stride+j] holds row i's distance to centre j from
+// the seeding.
+func (f *kmFit) lloyd(c Matrix32, d []float64, stride, maxIter int, tol float64) KMeansResult {
+	if f.bounded() {
+		return f.runBounded(c, d, stride, maxIter, tol)
+	}
 	n := f.x.Rows
-	c, _ := f.seed(k, r)
 	cn := centroidNorms(f.d, c)
 	labels := make([]int, n)
 	dist := make([]float64, n)
@@ -515,7 +566,7 @@ func (f *kmFit) run(k, maxIter int, tol float64, r *rand.Rand) KMeansResult {
 
 // KMeans clusters the rows of x into opt.K groups (METHODS section 3).
 //
-// Each restart r = 0..Restarts-1 draws from its own generator,
+// Each restart r = 0..Restarts-1 (offset by FirstRestart) draws from its own generator,
 // rand.New(rand.NewPCG(seed, r)), seeds K centres by k-means++ (Arthur and
 // Vassilvitskii, 2007; D^2 weighting, D^1 for CityBlock), then runs Lloyd
 // iterations: assign every row to its nearest centre (ties to the lowest
@@ -539,44 +590,16 @@ func (f *kmFit) run(k, maxIter int, tol float64, r *rand.Rand) KMeansResult {
 // Errors: empty x, K < 1, K > rows, negative Restarts/MaxIter/Tol/Workers,
 // an unknown Distance, and any non-finite (NaN or Inf) value in x.
 func KMeans(x Matrix32, opt KMeansOptions, seed uint64) (KMeansResult, error) {
-	checkMatrix("x", x)
-	if x.Rows < 1 || x.Cols < 1 {
-		return KMeansResult{}, errors.New("compute: k-means needs a non-empty input")
+	f, err := newFit(x, opt)
+	if err != nil {
+		return KMeansResult{}, err
 	}
-	if opt.K < 1 {
-		return KMeansResult{}, fmt.Errorf("compute: k-means needs K >= 1, got %d", opt.K)
-	}
-	if opt.K > x.Rows {
-		return KMeansResult{}, fmt.Errorf("compute: k-means K = %d exceeds the %d rows", opt.K, x.Rows)
-	}
-	if opt.Restarts < 0 || opt.MaxIter < 0 || opt.Workers < 0 {
-		return KMeansResult{}, fmt.Errorf("compute: k-means options must not be negative (restarts %d, max iterations %d, workers %d)", opt.Restarts, opt.MaxIter, opt.Workers)
-	}
-	if opt.Tol < 0 || math.IsNaN(opt.Tol) {
-		return KMeansResult{}, fmt.Errorf("compute: k-means tolerance %v must be >= 0", opt.Tol)
-	}
-	if opt.Distance != SquaredEuclidean && opt.Distance != CityBlock {
-		return KMeansResult{}, fmt.Errorf("compute: unknown k-means distance %d", int(opt.Distance))
-	}
-	for i, v := range x.Data {
-		if math.IsNaN(float64(v)) || math.IsInf(float64(v), 0) {
-			return KMeansResult{}, fmt.Errorf("compute: k-means input row %d column %d is %v", i/x.Cols, i%x.Cols, v)
-		}
-	}
-	restarts, maxIter, tol := max(opt.Restarts, 1), opt.MaxIter, opt.Tol
-	if maxIter == 0 {
-		maxIter = defaultMaxIter
-	}
-	if tol == 0 {
-		tol = defaultTol
-	}
-	f := &kmFit{x: x, d: opt.Distance, workers: opt.Workers}
-	if f.d == SquaredEuclidean {
-		f.xn = rowNorms(x, opt.Workers)
-	}
+	restarts, maxIter, tol := f.settings(opt)
 	var best KMeansResult
+	total := 0
 	for r := 0; r < restarts; r++ {
-		res := f.run(opt.K, maxIter, tol, rand.New(rand.NewPCG(seed, uint64(r))))
+		res := f.run(opt.K, maxIter, tol, rand.New(rand.NewPCG(seed, uint64(opt.FirstRestart+r))))
+		total += res.Iterations
 		if r == 0 || res.WCSS < best.WCSS {
 			best = res
 		}
@@ -584,7 +607,63 @@ func KMeans(x Matrix32, opt KMeansOptions, seed uint64) (KMeansResult, error) {
 			opt.Done()
 		}
 	}
+	best.TotalIterations = total
 	return best, nil
+}
+
+// newFit checks the input and options of KMeans and prepares the shared
+// data.
+func newFit(x Matrix32, opt KMeansOptions) (*kmFit, error) {
+	checkMatrix("x", x)
+	if x.Rows < 1 || x.Cols < 1 {
+		return nil, errors.New("compute: k-means needs a non-empty input")
+	}
+	if opt.K < 1 {
+		return nil, fmt.Errorf("compute: k-means needs K >= 1, got %d", opt.K)
+	}
+	if opt.K > x.Rows {
+		return nil, fmt.Errorf("compute: k-means K = %d exceeds the %d rows", opt.K, x.Rows)
+	}
+	if opt.Restarts < 0 || opt.MaxIter < 0 || opt.Workers < 0 || opt.FirstRestart < 0 {
+		return nil, fmt.Errorf("compute: k-means options must not be negative (restarts %d, first restart %d, max iterations %d, workers %d)", opt.Restarts, opt.FirstRestart, opt.MaxIter, opt.Workers)
+	}
+	if opt.Tol < 0 || math.IsNaN(opt.Tol) {
+		return nil, fmt.Errorf("compute: k-means tolerance %v must be >= 0", opt.Tol)
+	}
+	if opt.Distance != SquaredEuclidean && opt.Distance != CityBlock {
+		return nil, fmt.Errorf("compute: unknown k-means distance %d", int(opt.Distance))
+	}
+	// A row holding NaN or an infinity has a NaN or infinite squared norm
+	// (a sum of squared float32 values cannot overflow float64).
+	xn := rowNorms(x, opt.Workers)
+	for i, v := range xn {
+		if !math.IsNaN(v) && !math.IsInf(v, 0) {
+			continue
+		}
+		for j, v := range x.Row(i) {
+			if math.IsNaN(float64(v)) || math.IsInf(float64(v), 0) {
+				return nil, fmt.Errorf("compute: k-means input row %d column %d is %v", i, j, v)
+			}
+		}
+	}
+	f := &kmFit{x: x, d: opt.Distance, workers: opt.Workers}
+	if f.d == SquaredEuclidean {
+		f.xn = xn
+	}
+	return f, nil
+}
+
+// settings returns the restarts, iteration cap and tolerance with the
+// defaults of KMeansOptions filled in.
+func (f *kmFit) settings(opt KMeansOptions) (restarts, maxIter int, tol float64) {
+	restarts, maxIter, tol = max(opt.Restarts, 1), opt.MaxIter, opt.Tol
+	if maxIter == 0 {
+		maxIter = defaultMaxIter
+	}
+	if tol == 0 {
+		tol = defaultTol
+	}
+	return restarts, maxIter, tol
 }
 
 // ElbowPoint is W(k), the within-cluster sum of distances of the best fit
@@ -605,25 +684,54 @@ type Elbow struct {
 // the same seed for every k, and returns the W(k) curve, both elbow picks,
 // and every fit (fits[k-kmin]). Errors: kmin < 1, kmax < kmin, and any error
 // of KMeans (kmax > rows among them).
+//
+// The fits are exactly those of KMeans called for each k, but each restart
+// seeds once: k-means++ chooses its centres one after another from one
+// generator, so the first k of the kmax centres of restart r are the k
+// centres KMeans would draw for restart r, and the distances computed while
+// seeding serve every k.
 func ElbowScan(x Matrix32, kmin, kmax int, opt KMeansOptions, seed uint64) (Elbow, []KMeansResult, error) {
 	if kmin < 1 || kmax < kmin {
 		return Elbow{}, nil, fmt.Errorf("compute: elbow scan needs 1 <= kmin <= kmax, got %d..%d", kmin, kmax)
 	}
-	fits := make([]KMeansResult, 0, kmax-kmin+1)
-	ks := make([]int, 0, kmax-kmin+1)
-	ws := make([]float64, 0, kmax-kmin+1)
-	var e Elbow
-	for k := kmin; k <= kmax; k++ {
-		o := opt
-		o.K = k
-		res, err := KMeans(x, o, seed)
-		if err != nil {
-			return Elbow{}, nil, fmt.Errorf("compute: elbow scan at k = %d: %w", k, err)
+	o := opt
+	o.K = kmax
+	f, err := newFit(x, o)
+	if err != nil {
+		return Elbow{}, nil, fmt.Errorf("compute: elbow scan at k = %d: %w", kmax, err)
+	}
+	restarts, maxIter, tol := f.settings(opt)
+	n, dim := x.Rows, x.Cols
+	fits := make([]KMeansResult, kmax-kmin+1)
+	totals := make([]int, len(fits))
+	var d []float64
+	if f.bounded() {
+		d = make([]float64, n*kmax)
+	}
+	for r := 0; r < restarts; r++ {
+		seeds, _ := f.seed(kmax, rand.New(rand.NewPCG(seed, uint64(opt.FirstRestart+r))), d)
+		for k := kmin; k <= kmax; k++ {
+			c := NewMatrix32(k, dim)
+			copy(c.Data, seeds.Data[:k*dim])
+			res := f.lloyd(c, d, kmax, maxIter, tol)
+			totals[k-kmin] += res.Iterations
+			if r == 0 || res.WCSS < fits[k-kmin].WCSS {
+				fits[k-kmin] = res
+			}
+			if opt.Done != nil {
+				opt.Done()
+			}
 		}
-		fits = append(fits, res)
+	}
+	ks := make([]int, 0, len(fits))
+	ws := make([]float64, 0, len(fits))
+	var e Elbow
+	for i := range fits {
+		fits[i].TotalIterations = totals[i]
+		k := kmin + i
 		ks = append(ks, k)
-		ws = append(ws, res.WCSS)
-		e.Points = append(e.Points, ElbowPoint{K: k, WCSS: res.WCSS})
+		ws = append(ws, fits[i].WCSS)
+		e.Points = append(e.Points, ElbowPoint{K: k, WCSS: fits[i].WCSS})
 	}
 	e.ChordK = ChordElbow(ks, ws)
 	e.SecondDiffK = SecondDifferenceElbow(ks, ws)

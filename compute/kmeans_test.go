@@ -188,7 +188,7 @@ func TestKMeansPlusPlusSeedingDistribution(t *testing.T) {
 			var count [4][4]int
 			r := rand.New(rand.NewPCG(1, 2))
 			for n := 0; n < draws; n++ {
-				_, idx := f.seed(2, r)
+				_, idx := f.seed(2, r, nil)
 				count[idx[0]][idx[1]]++
 			}
 			for i := 0; i < 4; i++ {
@@ -208,7 +208,7 @@ func TestKMeansPlusPlusSeedingDistribution(t *testing.T) {
 			}
 			// A chosen centre has weight 0, so k = n distinct rows are all
 			// chosen exactly once.
-			_, idx := f.seed(4, r)
+			_, idx := f.seed(4, r, nil)
 			slices.Sort(idx)
 			if !slices.Equal(idx, []int{0, 1, 2, 3}) {
 				t.Errorf("k = n seeding chose %v", idx)
@@ -470,7 +470,7 @@ func BenchmarkKMeansPlusPlus(b *testing.B) {
 	f := &kmFit{x: x, d: SquaredEuclidean, workers: 1, xn: rowNorms(x, 1)}
 	r := rand.New(rand.NewPCG(1, 1))
 	for b.Loop() {
-		f.seed(10, r)
+		f.seed(10, r, nil)
 	}
 }
 

@@ -154,6 +154,13 @@ const (
 // correlations are undefined (*RegionError wrapping ErrZeroVariance, naming
 // the first such window and region). No NaN is ever stored.
 func SlidingCorrelations(y Series, opt WindowOptions) (Matrix32, error) {
+	return SlidingCorrelationsInto(nil, y, opt)
+}
+
+// SlidingCorrelationsInto is SlidingCorrelations writing into buf when its
+// capacity suffices (a new matrix otherwise), so that a caller computing the
+// windows of many series can reuse one buffer. The result aliases buf.
+func SlidingCorrelationsInto(buf []float32, y Series, opt WindowOptions) (Matrix32, error) {
 	if err := opt.Validate(); err != nil {
 		return Matrix32{}, err
 	}
@@ -172,7 +179,12 @@ func SlidingCorrelations(y Series, opt WindowOptions) (Matrix32, error) {
 		return Matrix32{}, err
 	}
 	W := NumWindows(y.T, opt.Width, opt.Step)
-	out := NewMatrix32(W, PairCount(y.P))
+	var out Matrix32
+	if D := PairCount(y.P); cap(buf) >= W*D {
+		out = Matrix32{Rows: W, Cols: D, Data: buf[:W*D]} // every value is written below
+	} else {
+		out = NewMatrix32(W, D)
+	}
 	if opt.Taper == TaperGauss || 2*opt.Step >= opt.Width {
 		var g []float64
 		if opt.Taper == TaperGauss {
@@ -417,8 +429,13 @@ func (sl *windowSlider) running(i int, row []float32) error {
 				out[m] = fisherZ32((A*v - B*ss[m]) * qs[m])
 			}
 		} else {
-			for m, v := range cr {
-				r := (A*v - B*ss[m]) * qs[m]
+			m0 := 0
+			if useAVX2 && len(cr) >= 4 {
+				m0 = len(cr) &^ 3
+				corrRowAVX2(m0, &out[0], &cr[0], &ss[0], &qs[0], A, B)
+			}
+			for m := m0; m < len(cr); m++ {
+				r := (A*cr[m] - B*ss[m]) * qs[m]
 				if r > 1 {
 					r = 1
 				} else if r < -1 {
@@ -481,7 +498,12 @@ func packedRank1Diff(c []float64, rowStart []int, a, b []float64) {
 		as = as[:len(cr)]
 		bs := b[j:]
 		bs = bs[:len(cr)]
-		for m := range cr {
+		m0 := 0
+		if useAVX2 && len(cr) >= 4 {
+			m0 = len(cr) &^ 3
+			rank1DiffAVX2(m0, &cr[0], &as[0], &bs[0], aj, bj)
+		}
+		for m := m0; m < len(cr); m++ {
 			cr[m] += aj*as[m] - bj*bs[m]
 		}
 	}
@@ -489,7 +511,10 @@ func packedRank1Diff(c []float64, rowStart []int, a, b []float64) {
 
 // WindowVariance returns, for each row of win, the population variance of
 // its values, (1/n) sum (v - mean)^2 with n = win.Cols, computed in float64
-// by two passes. A row of no values has variance 0.
+// in one pass from the sums of d = v - v_0 and d^2 (v_0 the row's first
+// value: shifting by a value of the row keeps the cancellation of the
+// one-pass formula small), as (sum d^2 - (sum d)^2 / n) / n. A row of no
+// values has variance 0.
 func WindowVariance(win Matrix32) []float64 {
 	out := make([]float64, win.Rows)
 	if win.Cols == 0 {
@@ -498,17 +523,21 @@ func WindowVariance(win Matrix32) []float64 {
 	n := float64(win.Cols)
 	for i := range out {
 		r := win.Row(i)
-		var m float64
-		for _, v := range r {
-			m += float64(v)
+		k := float64(r[0])
+		var s0, s1, s2, s3, q0, q1, q2, q3 float64
+		j := 0
+		for ; j+4 <= len(r); j += 4 {
+			d0, d1, d2, d3 := float64(r[j])-k, float64(r[j+1])-k, float64(r[j+2])-k, float64(r[j+3])-k
+			s0, s1, s2, s3 = s0+d0, s1+d1, s2+d2, s3+d3
+			q0, q1, q2, q3 = q0+d0*d0, q1+d1*d1, q2+d2*d2, q3+d3*d3
 		}
-		m /= n
-		var ss float64
-		for _, v := range r {
-			d := float64(v) - m
-			ss += d * d
+		for ; j < len(r); j++ {
+			d := float64(r[j]) - k
+			s0 += d
+			q0 += d * d
 		}
-		out[i] = ss / n
+		sum, sq := (s0+s1)+(s2+s3), (q0+q1)+(q2+q3)
+		out[i] = max(sq-sum*sum/n, 0) / n
 	}
 	return out
 }

@@ -21,15 +21,18 @@ type Options struct {
 	SmoothSD float64 `json:"smooth_sigma"`
 	FisherZ  bool    `json:"fisher_z"`
 
-	States    int    `json:"states"` // fixed k; 0: pick by the elbow over StatesMin..StatesMax
-	StatesMin int    `json:"states_min"`
-	StatesMax int    `json:"states_max"`
-	Restarts  int    `json:"restarts"`
-	MaxIter   int    `json:"max_iter"`
-	Seed      uint64 `json:"seed"`
-	Distance  string `json:"distance"`    // sqeuclidean | cityblock
-	FitMax    int    `json:"fit_windows"` // cap on windows used to fit the states
-	Exemplars bool   `json:"exemplars"`   // fit on local maxima of window variance
+	States    int `json:"states"` // fixed k; 0: pick by the elbow over StatesMin..StatesMax
+	StatesMin int `json:"states_min"`
+	StatesMax int `json:"states_max"`
+	Restarts  int `json:"restarts"`
+	// ScanRestarts is the number of restarts per k of the elbow scan; the
+	// picked k then gets the rest up to Restarts. 0 means Restarts.
+	ScanRestarts int    `json:"scan_restarts"`
+	MaxIter      int    `json:"max_iter"`
+	Seed         uint64 `json:"seed"`
+	Distance     string `json:"distance"`    // sqeuclidean | cityblock
+	FitMax       int    `json:"fit_windows"` // cap on windows used to fit the states
+	Exemplars    bool   `json:"exemplars"`   // fit on local maxima of window variance
 
 	Grid string `json:"grid"` // lo:hi:n thresholds of the Betti curves
 
@@ -40,6 +43,10 @@ type Options struct {
 	// (--tr), then its JSON sidecar, then a NIfTI header's pixdim[4].
 	Atlas       string `json:"atlas,omitempty"`        // label atlas for _bold.nii[.gz] images; "": images are not read
 	AtlasLabels string `json:"atlas_labels,omitempty"` // label table (label, name); "": regions label_<n> (region_001... for .npy)
+
+	// StatesFrom, when not nil, skips sampling and fitting: every window
+	// is assigned to the centroids of an earlier analysis (LoadStates).
+	StatesFrom *StatesFrom `json:"states_from,omitempty"`
 
 	Analysis string `json:"-"`
 	Parquet  string `json:"-"`
@@ -105,6 +112,9 @@ func (o Options) Check() error {
 	}
 	if o.Restarts < 1 || o.MaxIter < 1 {
 		bad("--restarts and --max-iter must be at least 1")
+	}
+	if o.ScanRestarts < 0 {
+		bad("--scan-restarts %d: must not be negative (0 uses --restarts)", o.ScanRestarts)
 	}
 	if o.Distance != "sqeuclidean" && o.Distance != "cityblock" {
 		bad("--distance %q: want sqeuclidean or cityblock", o.Distance)

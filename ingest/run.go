@@ -12,6 +12,8 @@ import (
 	"runtime"
 	"slices"
 	"sort"
+	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/topostate/topostate/compute"
@@ -42,16 +44,40 @@ type Summary struct {
 	States      int
 	Windows     int64
 	FitWindows  int
-	Elbow       *compute.Elbow // nil when k was fixed
+	Elbow       *compute.Elbow // nil when k was fixed or the states were reused
+	StatesFrom  *StatesFrom    // the analysis whose states were reused; nil when fitted
 	Warnings    []string
-	PhaseTimes  []PhaseTime
 	Occupancies []float64 // cohort mean occupancy per state
+
+	// PhaseTimes are the wall times of the stages in order: "sample
+	// windows", "fit states", "subjects" (stage 3 while the results are
+	// not being written), "write" (building rows and inserting them, stage
+	// 4 and the analysis-level tables), "commit". Callers may put their own
+	// phases in front (the command adds "validate").
+	PhaseTimes []PhaseTime
+	// WorkerTimes split the parallel stages into their parts ("sample:
+	// read", "subjects: assign", ...), in seconds summed over the workers,
+	// so with w busy workers they add up to about w times the stage's wall
+	// time.
+	WorkerTimes []PhaseTime
+	// Fits are the k-means fits run by the fit stage, in order.
+	Fits []FitStat
 }
 
-// PhaseTime is the wall time of one stage.
+// PhaseTime is the wall time of one stage (or part of one).
 type PhaseTime struct {
-	Phase   string
-	Seconds float64
+	Phase   string  `json:"phase"`
+	Seconds float64 `json:"seconds"`
+}
+
+// FitStat describes one k-means fit of the fit stage (their times are in
+// Summary.WorkerTimes: "fit: elbow scan", "fit: final restarts" or "fit:
+// k-means").
+type FitStat struct {
+	K          int  `json:"k"`
+	Restarts   int  `json:"restarts"`
+	Iterations int  `json:"iterations"` // Lloyd iterations summed over the restarts
+	Final      bool `json:"final"`      // the extra restarts at the picked k, or the fit at a fixed k
 }
 
 // Version is written into the analyses table.
@@ -84,18 +110,26 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		return nil, err
 	}
 
-	// Stage 1: sample windows for fitting.
-	sample, err := st.sample(ctx)
-	if err != nil {
-		return nil, err
+	if o.StatesFrom != nil {
+		// Replication: the stored states instead of stages 1 and 2.
+		if err := st.useStates(o.StatesFrom); err != nil {
+			return nil, err
+		}
+		sum.StatesFrom = o.StatesFrom
+	} else {
+		// Stage 1: sample windows for fitting.
+		sample, err := st.sample(ctx)
+		if err != nil {
+			return nil, err
+		}
+		lap("sample windows")
+		// Stage 2: fit the states.
+		if err := st.fit(sample); err != nil {
+			return nil, err
+		}
+		sum.Elbow = st.elbow
+		lap("fit states")
 	}
-	lap("sample windows")
-	// Stage 2: fit the states.
-	if err := st.fit(sample); err != nil {
-		return nil, err
-	}
-	sum.Elbow = st.elbow
-	lap("fit states")
 
 	// Stages 3 and 4: per-subject results, written in subject order.
 	w, err := schema.Begin(ctx, db, o.Analysis, o.Parquet)
@@ -108,21 +142,32 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 			w.Rollback()
 		}
 	}()
+	// DuckDB runs an insert on its own threads while go-duckdb polls it
+	// from the calling thread; with the cores busy computing subjects, one
+	// thread (the caller's) inserts as fast for about half the CPU time
+	// (measured on 2 cores: 10.6 million filtration events).
+	if err := w.Exec(ctx, "SET threads = 1"); err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
 	if err := st.writeStatic(ctx, w); err != nil {
 		return nil, err
 	}
+	static := time.Since(clock)
+	clock = time.Now()
 	occ, err := st.perSubject(ctx, w)
 	if err != nil {
 		return nil, err
 	}
-	lap("subjects and write")
-	params, err := json.Marshal(o)
-	if err != nil {
-		return nil, fmt.Errorf("ingest: %w", err)
-	}
-	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
-		w.ID, w.Name, time.Now().UTC(), Version, string(params), o.Input, len(c.Inputs), len(c.Keep), st.k, st.totalWindows, st.fitRows); err != nil {
-		return nil, fmt.Errorf("ingest: record analysis: %w", err)
+	// Stage 4 runs beside stage 3: rows are inserted while later subjects
+	// are computed. "subjects" ends when the last subject's rows are
+	// built; "write" is the analysis-level tables plus the inserts still
+	// running then (the overlapped insert time is in WorkerTimes).
+	now := time.Now()
+	sum.PhaseTimes = append(sum.PhaseTimes, PhaseTime{"subjects", st.rowsDone.Sub(clock).Seconds()},
+		PhaseTime{"write", (static + now.Sub(st.rowsDone)).Seconds()})
+	clock = now
+	if err := st.recordAnalysis(ctx, w); err != nil {
+		return nil, err
 	}
 	if err := w.Commit(ctx); err != nil {
 		return nil, err
@@ -139,7 +184,22 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		sum.Dropped = append(sum.Dropped, c.Regions[j])
 	}
 	sum.Occupancies = occ
+	sum.WorkerTimes = st.work.list()
+	sum.Fits = st.fits
 	return sum, nil
+}
+
+// recordAnalysis inserts the analyses row, with every option as JSON.
+func (s *stages) recordAnalysis(ctx context.Context, w *schema.Writer) error {
+	params, err := json.Marshal(s.o)
+	if err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
+		w.ID, w.Name, time.Now().UTC(), Version, string(params), s.o.Input, len(s.c.Inputs), len(s.c.Keep), s.k, s.totalWindows, s.fitRows); err != nil {
+		return fmt.Errorf("ingest: record analysis: %w", err)
+	}
+	return nil
 }
 
 // stages carries what the stages share.
@@ -160,6 +220,11 @@ type stages struct {
 	fitRows      int
 	sampleK      []int // windows per state in the fitting sample, after relabelling
 	totalWindows int64
+
+	bufs     sync.Pool // *[]float32 window buffers, one per busy worker
+	work     workTimes // per-part times of the parallel stages
+	rowsDone time.Time // when stage 4 had turned the last subject into rows
+	fits     []FitStat
 }
 
 func (s *stages) setup() error {
@@ -184,11 +249,14 @@ func (s *stages) setup() error {
 }
 
 // windows reads one series again and returns its window correlations.
-func (s *stages) windows(in SubjectInput) (compute.Matrix32, error) {
+// stage names the stage in the worker times.
+func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error) {
+	t := time.Now()
 	sf, err := s.c.Source.Read(in.Input)
 	if err != nil {
 		return compute.Matrix32{}, err
 	}
+	t = s.work.since(stage+": read", t)
 	if sf.SHA256 != in.SHA256 {
 		return compute.Matrix32{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
 	}
@@ -200,11 +268,23 @@ func (s *stages) windows(in SubjectInput) (compute.Matrix32, error) {
 	if err != nil {
 		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
-	m, err := compute.SlidingCorrelations(y, s.win)
+	var buf []float32
+	if b, ok := s.bufs.Get().(*[]float32); ok {
+		buf = *b
+	}
+	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
 	if err != nil {
 		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
+	s.work.since(stage+": windows", t)
 	return m, nil
+}
+
+// release hands a window matrix's storage back for the next series; m must
+// not be used afterwards.
+func (s *stages) release(m compute.Matrix32) {
+	b := m.Data[:0]
+	s.bufs.Put(&b)
 }
 
 func subset(y compute.Series, keep []int) compute.Series {
@@ -290,15 +370,46 @@ func parallel[R any](ctx context.Context, n, workers int, fn func(i int) (R, err
 func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	n := len(s.c.Inputs)
 	s.prog.Stage("sampling windows", n)
-	perSubject := max(1, (2*s.o.FitMax+n-1)/n)
 	D := compute.PairCount(s.p)
-	var pool []float32
+	// The pool can hold at most perSeries rows of each series (and no
+	// more rows than there are windows); reserving that much up front
+	// avoids the copies of a growing slice (pages not written stay free).
+	pool := make([]float32, 0, int(min(int64(n)*int64(s.perSeries()), s.totalWindows))*D)
 	rows := 0
-	err := parallel(ctx, n, s.workers, func(i int) ([]float32, error) {
-		m, err := s.windows(s.c.Inputs[i])
+	err := s.sampleRange(ctx, 0, n, func(i int, rowsOf []float32) error {
+		pool = append(pool, rowsOf...)
+		rows += len(rowsOf) / D
+		s.prog.Add(1)
+		return nil
+	})
+	if err != nil {
+		return compute.Matrix32{}, err
+	}
+	return s.capSample(compute.Matrix32{Rows: rows, Cols: D, Data: pool}), nil
+}
+
+// perSeries is the most exemplar windows one series gives the fitting
+// sample: ceil(2 FitMax / N) for the N series of the cohort, at least 1.
+func (s *stages) perSeries() int {
+	n := len(s.c.Inputs)
+	return max(1, (2*s.o.FitMax+n-1)/n)
+}
+
+// sampleRange runs the per-series part of stage 1 for series lo..hi-1 of
+// the cohort (in parallel) and hands each one's exemplar rows to sink in
+// series order. A shard of a sharded run calls it for its own range; the
+// series index i is the position in the whole cohort, so the draws do not
+// depend on the sharding.
+func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, rows []float32) error) error {
+	perSubject := s.perSeries()
+	D := compute.PairCount(s.p)
+	return parallel(ctx, hi-lo, s.workers, func(j int) ([]float32, error) {
+		i := lo + j
+		m, err := s.windows("sample", s.c.Inputs[i])
 		if err != nil {
 			return nil, err
 		}
+		defer s.work.since("sample: exemplars", time.Now())
 		idx := make([]int, m.Rows)
 		for r := range idx {
 			idx[r] = r
@@ -317,17 +428,19 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 		for _, r := range idx {
 			out = append(out, m.Row(r)...)
 		}
+		s.release(m)
 		return out, nil
-	}, func(i int, rowsOf []float32) error {
-		pool = append(pool, rowsOf...)
-		rows += len(rowsOf) / D
-		s.prog.Add(1)
-		return nil
+	}, func(j int, rowsOf []float32) error {
+		return sink(lo+j, rowsOf)
 	})
-	if err != nil {
-		return compute.Matrix32{}, err
-	}
-	m := compute.Matrix32{Rows: rows, Cols: D, Data: pool}
+}
+
+// capSample is the end of stage 1: the pooled exemplars of every series in
+// series order, capped to FitMax rows drawn uniformly with a generator
+// seeded from (seed, 0), compacted in place (m's rows are overwritten). It
+// sets fitRows.
+func (s *stages) capSample(m compute.Matrix32) compute.Matrix32 {
+	rows, D := m.Rows, m.Cols
 	if rows > s.o.FitMax {
 		rng := rand.New(rand.NewPCG(s.o.Seed, 0))
 		all := make([]int, rows)
@@ -335,14 +448,15 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 			all[r] = r
 		}
 		keep := pick(rng, all, s.o.FitMax)
-		capped := compute.NewMatrix32(len(keep), D)
+		// Compact in place: keep is ascending, so row r moves to c <= r
+		// and no row is overwritten before it has moved.
 		for c, r := range keep {
-			copy(capped.Row(c), m.Row(r))
+			copy(m.Row(c), m.Row(r))
 		}
-		m = capped
+		m = compute.Matrix32{Rows: len(keep), Cols: D, Data: m.Data[:len(keep)*D]}
 	}
 	s.fitRows = m.Rows
-	return m, nil
+	return m
 }
 
 // pick returns k of idx chosen uniformly without replacement, in their
@@ -359,6 +473,11 @@ func pick(rng *rand.Rand, idx []int, k int) []int {
 
 // fit is stage 2: the elbow scan (or a fixed k) and the final centroids,
 // relabelled so state 1 is the most frequent in the fitting sample.
+//
+// The scan fits every k with ScanRestarts restarts (0: Restarts); when that
+// is fewer than Restarts, the picked k gets the remaining restarts, so its
+// centroids are exactly those of a fit with Restarts restarts. The stored
+// W(k) curve is the scan's.
 func (s *stages) fit(x compute.Matrix32) error {
 	opt := compute.KMeansOptions{Restarts: s.o.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers,
 		Done: func() { s.prog.Add(1) }}
@@ -369,23 +488,51 @@ func (s *stages) fit(x compute.Matrix32) error {
 		}
 		opt.K = s.o.States
 		s.prog.Stage(fmt.Sprintf("k-means, k=%d", s.o.States), s.o.Restarts)
+		t := time.Now()
 		r, err := compute.KMeans(x, opt, s.o.Seed)
 		if err != nil {
 			return fmt.Errorf("ingest: fit states: %w", err)
 		}
+		s.work.since("fit: k-means", t)
+		s.fits = append(s.fits, FitStat{K: opt.K, Restarts: opt.Restarts, Iterations: r.TotalIterations, Final: true})
 		res, s.k = r, s.o.States
 	} else {
 		if s.o.StatesMax > x.Rows {
 			return &UsageError{Err: fmt.Errorf("--states-max %d is more than the %d windows available to fit the states", s.o.StatesMax, x.Rows)}
 		}
-		s.prog.Stage(fmt.Sprintf("elbow scan, k=%d..%d", s.o.StatesMin, s.o.StatesMax), (s.o.StatesMax-s.o.StatesMin+1)*s.o.Restarts)
-		e, fits, err := compute.ElbowScan(x, s.o.StatesMin, s.o.StatesMax, opt, s.o.Seed)
+		scan := opt
+		if s.o.ScanRestarts > 0 && s.o.ScanRestarts < opt.Restarts {
+			scan.Restarts = s.o.ScanRestarts
+		}
+		// Progress moves once per restart of each k (opt.Done), then once
+		// per extra restart at the picked k.
+		s.prog.Stage(fmt.Sprintf("elbow scan, k=%d..%d", s.o.StatesMin, s.o.StatesMax),
+			(s.o.StatesMax-s.o.StatesMin+1)*scan.Restarts+opt.Restarts-scan.Restarts)
+		t := time.Now()
+		e, fits, err := compute.ElbowScan(x, s.o.StatesMin, s.o.StatesMax, scan, s.o.Seed)
 		if err != nil {
 			return fmt.Errorf("ingest: elbow scan: %w", err)
+		}
+		t = s.work.since("fit: elbow scan", t)
+		for _, f := range fits {
+			s.fits = append(s.fits, FitStat{K: f.Centroids.Rows, Restarts: scan.Restarts, Iterations: f.TotalIterations})
 		}
 		s.elbow = &e
 		s.k = e.ChordK
 		res = fits[e.ChordK-s.o.StatesMin]
+		if scan.Restarts < opt.Restarts {
+			more := opt
+			more.K, more.FirstRestart, more.Restarts = s.k, scan.Restarts, opt.Restarts-scan.Restarts
+			r, err := compute.KMeans(x, more, s.o.Seed)
+			if err != nil {
+				return fmt.Errorf("ingest: fit states: %w", err)
+			}
+			s.work.since("fit: final restarts", t)
+			s.fits = append(s.fits, FitStat{K: more.K, Restarts: more.Restarts, Iterations: r.TotalIterations, Final: true})
+			if r.WCSS < res.WCSS {
+				res = r
+			}
+		}
 	}
 	// Relabel: most frequent state first, ties by old label.
 	count := make([]int, s.k)
@@ -409,20 +556,15 @@ func (s *stages) fit(x compute.Matrix32) error {
 // writeStatic writes the analysis-level tables: regions, elbow, centroids,
 // subjects, excluded inputs.
 func (s *stages) writeStatic(ctx context.Context, w *schema.Writer) error {
+	if err := s.writeStates(ctx, w); err != nil {
+		return err
+	}
+	return s.writeCohort(ctx, w)
+}
+
+// writeStates writes the tables of stage 2: elbow and state_centroids.
+func (s *stages) writeStates(ctx context.Context, w *schema.Writer) error {
 	id := w.ID
-	rb := schema.NewBatch(schema.Regions)
-	defer rb.Release()
-	node := map[int]int{}
-	for n, j := range s.c.Keep {
-		node[j] = n + 1
-	}
-	for j, name := range s.c.Regions {
-		if n, ok := node[j]; ok {
-			rb.Row(id, n, j+1, name, false)
-		} else {
-			rb.Row(id, nil, j+1, name, true)
-		}
-	}
 	eb := schema.NewBatch(schema.Elbow)
 	defer eb.Release()
 	if s.elbow != nil {
@@ -439,12 +581,37 @@ func (s *stages) writeStatic(ctx context.Context, w *schema.Writer) error {
 			cb.Row(id, st+1, i+1, j+1, float64(v))
 		}
 	}
+	for _, b := range []*schema.Batch{eb, cb} {
+		if err := w.Append(ctx, b); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// writeCohort writes the tables known once the cohort is validated:
+// regions, excluded_inputs and subjects.
+func (s *stages) writeCohort(ctx context.Context, w *schema.Writer) error {
+	id := w.ID
+	rb := schema.NewBatch(schema.Regions)
+	defer rb.Release()
+	node := map[int]int{}
+	for n, j := range s.c.Keep {
+		node[j] = n + 1
+	}
+	for j, name := range s.c.Regions {
+		if n, ok := node[j]; ok {
+			rb.Row(id, n, j+1, name, false)
+		} else {
+			rb.Row(id, nil, j+1, name, true)
+		}
+	}
 	xb := schema.NewBatch(schema.ExcludedInputs)
 	defer xb.Release()
 	for _, x := range s.c.Excluded {
 		xb.Row(id, x.Subject, x.Session, x.Rel, x.Reason)
 	}
-	for _, b := range []*schema.Batch{rb, eb, cb, xb} {
+	for _, b := range []*schema.Batch{rb, xb} {
 		if err := w.Append(ctx, b); err != nil {
 			return err
 		}
@@ -452,16 +619,34 @@ func (s *stages) writeStatic(ctx context.Context, w *schema.Writer) error {
 	return s.writeSubjects(ctx, w)
 }
 
-// perSubject is stage 3 (parallel) feeding stage 4 (in order).
+// perSubject is stage 3 (parallel) feeding stage 4 (in order): results
+// become rows in series order, and full batches are inserted by a writer
+// goroutine while the workers go on.
 func (s *stages) perSubject(ctx context.Context, w *schema.Writer) ([]float64, error) {
 	n := len(s.c.Inputs)
 	s.prog.Stage("subjects", n)
 	out := newOutBatches()
-	defer out.release()
+	full := make(chan *outBatches, 1)
+	var werr error
+	var failed atomic.Bool
+	written := make(chan struct{})
+	go func() {
+		defer close(written)
+		for b := range full {
+			if werr == nil {
+				t := time.Now()
+				werr = b.flush(ctx, w)
+				s.work.since("write: inserts", t)
+				failed.Store(werr != nil)
+			}
+			b.release()
+		}
+	}()
 	occ := make([]float64, s.k)
 	err := parallel(ctx, n, s.workers, func(i int) (*subjectResult, error) {
 		return s.subject(s.c.Inputs[i])
 	}, func(i int, r *subjectResult) error {
+		defer s.work.since("write: rows", time.Now())
 		in := s.c.Inputs[i]
 		out.add(w.ID, in, r, s)
 		for k := range occ {
@@ -469,14 +654,29 @@ func (s *stages) perSubject(ctx context.Context, w *schema.Writer) ([]float64, e
 		}
 		s.prog.Add(1)
 		if out.rows() > 1<<20 {
-			return out.flush(ctx, w)
+			if failed.Load() {
+				return errors.New("ingest: writing stopped") // the writer's error is returned below
+			}
+			full <- out
+			out = newOutBatches()
 		}
 		return nil
 	})
+	s.rowsDone = time.Now()
+	if err == nil {
+		full <- out
+	} else {
+		out.release()
+	}
+	close(full)
+	<-written
+	if werr != nil {
+		return nil, werr
+	}
 	if err != nil {
 		return nil, err
 	}
-	return occ, out.flush(ctx, w)
+	return occ, nil
 }
 
 // subjectResult is one series' results, before they become rows.
@@ -495,27 +695,22 @@ type stateNet struct {
 }
 
 func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
-	m, err := s.windows(in)
+	m, err := s.windows("subjects", in)
 	if err != nil {
 		return nil, err
 	}
+	defer s.release(m)
+	t := time.Now()
 	labels, dist := compute.Assign(m, s.cent, s.dist, 1)
+	t = s.work.since("subjects: assign", t)
 	dyn, err := compute.Dynamics(labels, s.k)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
 	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
-	sums := make([][]float64, s.k)
-	counts := make([]int, s.k)
-	for row, l := range labels {
-		if sums[l] == nil {
-			sums[l] = make([]float64, m.Cols)
-		}
-		for q, v := range m.Row(row) {
-			sums[l][q] += float64(v)
-		}
-		counts[l]++
-	}
+	sums, counts := compute.SumRowsByLabel(m, labels, s.k)
+	t = s.work.since("subjects: dynamics and networks", t)
+	defer s.work.since("subjects: filtrations and Betti curves", t)
 	for st := range s.k {
 		if counts[st] == 0 {
 			continue

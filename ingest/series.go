@@ -174,6 +174,9 @@ func parseCell(b []byte) (float64, bool) {
 	if len(b) == 0 {
 		return 0, false
 	}
+	if v, ok := parseDecimal(b); ok { // the common case, without strconv's generality
+		return v, true
+	}
 	// The string aliases b only for the call; ParseFloat keeps it only in
 	// its error, which is dropped here.
 	v, err := strconv.ParseFloat(unsafe.String(&b[0], len(b)), 64)

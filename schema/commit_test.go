@@ -43,7 +43,8 @@ func TestCommitAfterCancel(t *testing.T) {
 	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, now(), 'test', '{}', 'in', 0, 1, 0, 0, 0)`, w.ID, w.Name); err != nil {
 		t.Fatal(err)
 	}
-	if _, err := os.Stat(filepath.Join(pq, "regions.parquet")); err != nil {
+	// Parquet files are written under a .partial name until the commit.
+	if _, err := os.Stat(filepath.Join(pq, "regions.parquet.partial")); err != nil {
 		t.Fatalf("the Parquet copy was not started: %v", err)
 	}
 	cancel()
@@ -60,7 +61,7 @@ func TestCommitAfterCancel(t *testing.T) {
 			t.Errorf("%s = %d after a cancelled commit, want %d", q, n, want)
 		}
 	}
-	if left, _ := filepath.Glob(filepath.Join(pq, "*.parquet")); len(left) > 0 {
+	if left, _ := filepath.Glob(filepath.Join(pq, "*.parquet*")); len(left) > 0 {
 		t.Errorf("Parquet files of the cancelled analysis remain: %v", left)
 	}
 	// The file takes the next analysis as usual.

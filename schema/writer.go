@@ -22,21 +22,27 @@ import (
 )
 
 // Writer writes one analysis inside a single DuckDB transaction: either the
-// whole analysis is committed or the file is left as it was.
+// whole analysis is committed or the file is left as it was. A writer made
+// by BeginParquet writes Parquet files only.
 type Writer struct {
 	ID   int    // analysis_id of the analysis being written
 	Name string // its name
 
-	conn       *sql.Conn
+	conn       *sql.Conn // nil: Parquet only
 	done       bool
 	parquetDir string
+	path       func(table string) string // Parquet file of a table
 	pq         map[string]*parquetFile
+	rows       map[string]int64
+	plain      map[string]bool // tables written without dictionary or compression
 	views      int
 }
 
 type parquetFile struct {
-	f *os.File
-	w *pqarrow.FileWriter
+	f       *os.File
+	w       *pqarrow.FileWriter
+	path    string // final name; the file is written to path + ".partial" until Commit
+	renamed bool
 }
 
 // ErrAnalysisExists is returned when the name is already taken.
@@ -51,13 +57,38 @@ func Begin(ctx context.Context, db *sql.DB, name, parquetDir string) (*Writer, e
 	if err != nil {
 		return nil, fmt.Errorf("schema: %w", classify(err))
 	}
-	w := &Writer{conn: conn, Name: name, parquetDir: parquetDir, pq: map[string]*parquetFile{}}
+	w := &Writer{conn: conn, Name: name, parquetDir: parquetDir, pq: map[string]*parquetFile{}, rows: map[string]int64{}}
+	w.path = func(table string) string { return filepath.Join(parquetDir, table+".parquet") }
 	if err := w.begin(ctx); err != nil {
 		w.Rollback()
 		return nil, err
 	}
 	return w, nil
 }
+
+// BeginParquet starts a writer that writes no database, only one Parquet
+// file per table at path(table) (folders are created as needed), for the
+// stages of a sharded run. Rows carry analysis_id id. Files are written
+// under a temporary name and renamed into place by Commit; Rollback removes
+// them. Exec is refused and EnsureSubjectColumns does nothing.
+func BeginParquet(id int, path func(table string) string) *Writer {
+	return &Writer{ID: id, path: path, pq: map[string]*parquetFile{}, rows: map[string]int64{}}
+}
+
+// Plain makes the Parquet files of tables plain: no dictionary encoding and
+// no compression, for columns of measured floats that neither would shrink
+// (a sharded run's fitting sample), where both only cost time.
+func (w *Writer) Plain(tables ...string) {
+	if w.plain == nil {
+		w.plain = map[string]bool{}
+	}
+	for _, t := range tables {
+		w.plain[t] = true
+	}
+}
+
+// Rows returns the number of rows appended to each table so far.
+func (w *Writer) Rows() map[string]int64 { return maps.Clone(w.rows) }
 
 func (w *Writer) begin(ctx context.Context) error {
 	if _, err := w.conn.ExecContext(ctx, "BEGIN TRANSACTION"); err != nil {
@@ -101,6 +132,9 @@ type Column struct {
 // subjects table. A column that exists with another type is an error, as
 // mixing types would change earlier analyses' values.
 func (w *Writer) EnsureSubjectColumns(ctx context.Context, cols []Column) error {
+	if w.conn == nil {
+		return nil
+	}
 	rows, err := w.conn.QueryContext(ctx,
 		`SELECT column_name, data_type FROM information_schema.columns WHERE table_name = 'subjects'`)
 	if err != nil {
@@ -133,6 +167,9 @@ func (w *Writer) EnsureSubjectColumns(ctx context.Context, cols []Column) error 
 
 // Exec runs a statement inside the analysis's transaction.
 func (w *Writer) Exec(ctx context.Context, query string, args ...any) error {
+	if w.conn == nil {
+		return errors.New("schema: Exec on a Parquet-only writer")
+	}
 	_, err := w.conn.ExecContext(ctx, query, args...)
 	return err
 }
@@ -148,10 +185,16 @@ func (w *Writer) Append(ctx context.Context, b *Batch) error {
 	return w.AppendRecord(ctx, b.Table, rec)
 }
 
-// AppendRecord inserts an Arrow record into table.
+// AppendRecord inserts an Arrow record into table. On a Parquet-only
+// writer a record without rows still creates the table's file, so that
+// every table a stage owns is present.
 func (w *Writer) AppendRecord(ctx context.Context, table string, rec arrow.Record) error {
 	if w.done {
 		return errors.New("schema: writer already finished")
+	}
+	w.rows[table] += rec.NumRows()
+	if w.conn == nil {
+		return w.writeParquet(table, rec)
 	}
 	w.views++
 	view := fmt.Sprintf("topostate_batch_%d", w.views)
@@ -189,17 +232,24 @@ func (w *Writer) AppendRecord(ctx context.Context, table string, rec arrow.Recor
 func (w *Writer) writeParquet(table string, rec arrow.Record) error {
 	pf, ok := w.pq[table]
 	if !ok {
-		f, err := os.Create(filepath.Join(w.parquetDir, table+".parquet"))
+		path := w.path(table)
+		if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+			return fmt.Errorf("schema: parquet: %w", err)
+		}
+		f, err := os.Create(path + ".partial")
 		if err != nil {
 			return fmt.Errorf("schema: parquet: %w", err)
 		}
 		props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd))
+		if w.plain[table] {
+			props = parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Uncompressed), parquet.WithDictionaryDefault(false))
+		}
 		fw, err := pqarrow.NewFileWriter(rec.Schema(), f, props, pqarrow.DefaultWriterProps())
 		if err != nil {
 			f.Close()
 			return fmt.Errorf("schema: parquet %s: %w", table, err)
 		}
-		pf = &parquetFile{f: f, w: fw}
+		pf = &parquetFile{f: f, w: fw, path: path}
 		w.pq[table] = pf
 	}
 	if err := pf.w.Write(rec); err != nil {
@@ -221,13 +271,29 @@ func (w *Writer) Commit(ctx context.Context) error {
 	}
 	var errs []error
 	for _, t := range slices.Sorted(maps.Keys(w.pq)) {
-		if err := w.pq[t].w.Close(); err != nil {
+		pf := w.pq[t]
+		if err := pf.w.Close(); err != nil {
 			errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
+		}
+	}
+	if len(errs) == 0 {
+		for _, t := range slices.Sorted(maps.Keys(w.pq)) {
+			pf := w.pq[t]
+			if err := os.Rename(pf.path+".partial", pf.path); err != nil {
+				errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
+				break
+			}
+			pf.renamed = true
 		}
 	}
 	if err := errors.Join(errs...); err != nil {
 		w.Rollback() // removes this analysis's Parquet files too
 		return err
+	}
+	if w.conn == nil { // Parquet only: the renames above were the commit
+		w.pq = map[string]*parquetFile{}
+		w.done = true
+		return nil
 	}
 	// Once COMMIT starts it runs to the end even if ctx ends meanwhile:
 	// DuckDB may finish a COMMIT whose context was cancelled and still
@@ -272,15 +338,21 @@ func pauseBeforeCommit(ctx context.Context) {
 // Rollback abandons the analysis; the file keeps its earlier contents and
 // any Parquet files of this analysis are removed. Safe to call twice.
 func (w *Writer) Rollback() {
-	for t, pf := range w.pq {
+	for _, pf := range w.pq {
 		pf.w.Close()
-		os.Remove(filepath.Join(w.parquetDir, t+".parquet"))
+		os.Remove(pf.path + ".partial")
+		if pf.renamed {
+			os.Remove(pf.path)
+		}
 	}
 	w.pq = map[string]*parquetFile{}
 	if w.done {
 		return
 	}
 	w.done = true
+	if w.conn == nil {
+		return
+	}
 	w.conn.ExecContext(context.Background(), "ROLLBACK")
 	w.conn.Close()
 }

@@ -60,6 +60,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 		Commands: []*cli.Command{
 			demoCommand(),
 			ingestCommand(),
+			stageCommand(),
 			simulateCommand(),
 			infoCommand(),
 			dropCommand(),
@@ -71,6 +72,9 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 	}
 	for _, c := range app.Commands {
 		c.OnUsageError = app.OnUsageError
+		for _, s := range c.Subcommands {
+			s.OnUsageError = app.OnUsageError
+		}
 	}
 	return app
 }

@@ -54,7 +54,7 @@ func demoCommand() *cli.Command {
 			fmt.Fprintln(out)
 			spec := compute.CohortSpec{Subjects: 24, Regions: 32, Timepoints: 300, States: 3, TR: 2,
 				Stickiness: 0.93, GroupEffect: 0.05, Noise: 0.5, Offset: 800, Seed: 2026}
-			if err := writeSynthetic(cohort, spec, map[string]string{"A": "day", "B": "night"}, "fatigue"); err != nil {
+			if _, err := writeSynthetic(cohort, spec, map[string]string{"A": "day", "B": "night"}, "fatigue"); err != nil {
 				return err
 			}
 			fmt.Fprintf(out, "1. simulated the cohort into %s\n", cohort)

@@ -7,7 +7,9 @@ import (
 	"io/fs"
 	"os"
 	"runtime"
+	"runtime/debug"
 	"strings"
+	"time"
 
 	"github.com/urfave/cli/v2"
 
@@ -36,17 +38,23 @@ func ingestFlags() []cli.Flag {
 		&cli.IntFlag{Name: "states-min", Value: d.StatesMin, Usage: "smallest `K` of the elbow scan"},
 		&cli.IntFlag{Name: "states-max", Value: d.StatesMax, Usage: "largest `K` of the elbow scan"},
 		&cli.IntFlag{Name: "restarts", Value: d.Restarts, Usage: "k-means restarts: the best of `N` fits is kept"},
+		&cli.IntFlag{Name: "scan-restarts", Value: d.ScanRestarts, Usage: "`N` restarts per k of the elbow scan (0: --restarts); the picked k gets the rest up to --restarts"},
 		&cli.IntFlag{Name: "max-iter", Value: d.MaxIter, Usage: "at most `N` k-means iterations per restart"},
 		&cli.Uint64Flag{Name: "seed", Value: d.Seed, Usage: "`SEED` of every random choice; same seed, same results"},
 		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance `NAME`: sqeuclidean or cityblock"},
 		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most `N` windows are used to fit the states"},
 		&cli.BoolFlag{Name: "all-windows", Usage: "fit on all windows (up to --fit-windows) instead of variance-peak exemplars"},
+		replicationFlags()[0], replicationFlags()[1],
 		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
 		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "`POLICY` fail, or skip a series with problems (recorded in excluded_inputs)"},
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},
 		&cli.StringFlag{Name: "parquet", Usage: "also write every table of this analysis as Parquet into `FOLDER`"},
 		&cli.IntFlag{Name: "workers", Value: 0, Usage: fmt.Sprintf("`N` parallel workers (0: all %d cores); results do not depend on it", runtime.GOMAXPROCS(0))},
 		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
+		// For the benchmark harness (scripts/bench) and profiling.
+		&cli.StringFlag{Name: "cpuprofile", Hidden: true, Usage: "write a pprof CPU profile of the run to `FILE`"},
+		&cli.StringFlag{Name: "memprofile", Hidden: true, Usage: "write a pprof heap profile at the end of the run to `FILE`"},
+		&cli.StringFlag{Name: "timings", Hidden: true, Usage: "write the phase and worker times as JSON to `FILE`"},
 	}
 }
 
@@ -56,7 +64,7 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		Window: c.Int("window"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
 		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),
-		Restarts: c.Int("restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
+		Restarts: c.Int("restarts"), ScanRestarts: c.Int("scan-restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
 		FitMax: c.Int("fit-windows"), Exemplars: !c.Bool("all-windows"), Grid: c.String("grid"),
 		OnBadSubject: c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
@@ -77,7 +85,28 @@ func ingestCommand() *cli.Command {
 			if err := o.Check(); err != nil {
 				return err
 			}
-			_, err := runIngest(c, o, c.String("db"), c.App.Writer)
+			if err := checkReplicationFlags(c); err != nil {
+				return err
+			}
+			if os.Getenv("GOGC") == "" {
+				// Most of the memory of a cohort-scale run is the fitting
+				// sample, one large pointer-free slice the collector never
+				// scans; collecting at 25 % growth instead of 100 % keeps the
+				// per-series garbage from doubling the footprint, at a
+				// negligible cost in collection work.
+				debug.SetGCPercent(25)
+			}
+			stop, err := startProfiles(c.String("cpuprofile"))
+			if err != nil {
+				return err
+			}
+			sum, err := runIngest(c, o, c.String("db"), c.App.Writer)
+			if perr := stop(c.String("memprofile")); err == nil {
+				err = perr
+			}
+			if err == nil && c.String("timings") != "" {
+				err = writeTimings(c.String("timings"), sum)
+			}
 			return err
 		},
 	}
@@ -87,6 +116,7 @@ func ingestCommand() *cli.Command {
 // the file for writing; a file this run created is removed again when the
 // run fails.
 func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (*ingest.Summary, error) {
+	start := time.Now()
 	cohort, err := ingest.LoadCohort(o)
 	if err != nil {
 		return nil, err
@@ -94,6 +124,7 @@ func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (
 	if err := c.Context.Err(); err != nil {
 		return nil, err // interrupted while validating: do not create or open the file
 	}
+	validate := ingest.PhaseTime{Phase: "validate", Seconds: time.Since(start).Seconds()}
 	_, statErr := os.Stat(dbPath)
 	created := errors.Is(statErr, fs.ErrNotExist)
 	sum, err := ingestInto(c, cohort, o, dbPath)
@@ -104,6 +135,7 @@ func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (
 		}
 		return nil, err
 	}
+	sum.PhaseTimes = append([]ingest.PhaseTime{validate}, sum.PhaseTimes...)
 	printSummary(out, dbPath, sum)
 	return sum, nil
 }
@@ -114,6 +146,9 @@ func ingestInto(c *cli.Context, cohort *ingest.Cohort, o ingest.Options, dbPath 
 		return nil, err
 	}
 	defer db.Close()
+	if o.StatesFrom, err = loadStatesFrom(c, db, dbPath); err != nil {
+		return nil, err
+	}
 	var prog ingest.Progress
 	if p := newProgress(c.App.ErrWriter, c.Bool("quiet")); p != nil {
 		prog = p
@@ -133,13 +168,19 @@ func printSummary(w io.Writer, dbPath string, s *ingest.Summary) {
 		fmt.Fprintf(w, " (dropped as constant: %s)", strings.Join(s.Dropped, ", "))
 	}
 	fmt.Fprintln(w)
-	fmt.Fprintf(w, "  windows          %d (%d used to fit the states)\n", s.Windows, s.FitWindows)
+	if s.StatesFrom != nil {
+		fmt.Fprintf(w, "  windows          %d (none sampled: the states are reused)\n", s.Windows)
+	} else {
+		fmt.Fprintf(w, "  windows          %d (%d used to fit the states)\n", s.Windows, s.FitWindows)
+	}
 	if e := s.Elbow; e != nil {
 		fmt.Fprintf(w, "  states           %d, picked by the elbow (chord rule) over k=%d..%d\n", s.States, e.Points[0].K, e.Points[len(e.Points)-1].K)
 		if e.SecondDiffK != e.ChordK {
 			fmt.Fprintf(w, "  note             the largest-second-difference rule picks k=%d instead; both are in table elbow,\n"+
 				"                   and --states %d re-runs with that choice\n", e.SecondDiffK, e.SecondDiffK)
 		}
+	} else if f := s.StatesFrom; f != nil {
+		fmt.Fprintf(w, "  states           %d, reused from analysis %q (id %d) in %s\n", s.States, f.Analysis, f.AnalysisID, f.DB)
 	} else {
 		fmt.Fprintf(w, "  states           %d (fixed by --states)\n", s.States)
 	}

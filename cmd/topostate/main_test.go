@@ -38,6 +38,9 @@ func TestMain(m *testing.M) {
 }
 
 func testMain(m *testing.M) int {
+	if os.Getenv(asCommandEnv) != "" { // this process is the topostate command (stages_test.go)
+		return run(append([]string{"topostate"}, os.Args[1:]...), os.Stdin, os.Stdout, os.Stderr)
+	}
 	if path := os.Getenv(holdLockEnv); path != "" {
 		return holdLock(path) // this process is a lock holder (query_test.go)
 	}

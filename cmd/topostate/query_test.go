@@ -44,7 +44,7 @@ func build(dir string) error {
 	cohort := filepath.Join(dir, "cohort")
 	spec := compute.CohortSpec{Subjects: 10, Regions: 8, Timepoints: 140, States: 2, TR: 2,
 		Stickiness: 0.9, GroupEffect: 0.05, Offset: 500, Seed: 3}
-	if err := writeSynthetic(cohort, spec, map[string]string{"A": "A", "B": "B"}, "score"); err != nil {
+	if _, err := writeSynthetic(cohort, spec, map[string]string{"A": "A", "B": "B"}, "score"); err != nil {
 		return err
 	}
 	warehouse = filepath.Join(dir, "w.duckdb")

@@ -1,8 +1,11 @@
 package main
 
 import (
+	"bufio"
 	"fmt"
 	"math/rand/v2"
+	"os"
+	"path/filepath"
 	"strconv"
 
 	"github.com/urfave/cli/v2"
@@ -27,6 +30,8 @@ func simulateCommand() *cli.Command {
 			&cli.Float64Flag{Name: "noise", Value: 0.5, Usage: "measurement noise relative to the signal"},
 			&cli.Float64Flag{Name: "offset", Value: 1000, Usage: "constant scanner-like offset added to every region"},
 			&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "seed; same seed, same cohort"},
+			// For the benchmark harness's state-recovery check (scripts/bench).
+			&cli.BoolFlag{Name: "truth", Hidden: true, Usage: "also write truth.tsv: the latent state of every subject at every time point"},
 		},
 		Action: func(c *cli.Context) error {
 			spec := compute.CohortSpec{
@@ -36,8 +41,14 @@ func simulateCommand() *cli.Command {
 				Seed: c.Uint64("seed"),
 			}
 			groups := map[string]string{"A": "A", "B": "B"}
-			if err := writeSynthetic(c.String("out"), spec, groups, "score"); err != nil {
+			subs, err := writeSynthetic(c.String("out"), spec, groups, "score")
+			if err != nil {
 				return err
+			}
+			if c.Bool("truth") {
+				if err := writeTruth(filepath.Join(c.String("out"), "truth.tsv"), subs); err != nil {
+					return err
+				}
 			}
 			fmt.Fprintf(c.App.Writer, "wrote %d synthetic subjects (%d regions x %d time points, %d states) to %s\n",
 				spec.Subjects, spec.Regions, spec.Timepoints, spec.States, c.String("out"))
@@ -49,10 +60,10 @@ func simulateCommand() *cli.Command {
 // writeSynthetic simulates a cohort and writes it with invented covariates:
 // group (names from groups), age in years, and a symptom-like score (column
 // scoreName) that is higher on average in group B.
-func writeSynthetic(dir string, spec compute.CohortSpec, groups map[string]string, scoreName string) error {
+func writeSynthetic(dir string, spec compute.CohortSpec, groups map[string]string, scoreName string) ([]compute.SimSubject, error) {
 	subs, err := compute.SimulateCohort(spec)
 	if err != nil {
-		return usageError{err}
+		return nil, usageError{err}
 	}
 	regions := make([]string, spec.Regions)
 	for j := range regions {
@@ -79,5 +90,26 @@ func writeSynthetic(dir string, spec compute.CohortSpec, groups map[string]strin
 	if tr == 0 {
 		tr = 2
 	}
-	return ingest.WriteCohort(dir, regions, tr, ids, series, []string{"group", "age", scoreName}, rows)
+	return subs, ingest.WriteCohort(dir, regions, tr, ids, series, []string{"group", "age", scoreName}, rows)
+}
+
+// writeTruth writes the generator's latent states: one row per subject and
+// time point (1-based, as in the series file), states numbered from 1.
+func writeTruth(path string, subs []compute.SimSubject) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return fmt.Errorf("topostate: %w", err)
+	}
+	w := bufio.NewWriter(f)
+	fmt.Fprintln(w, "participant_id\ttimepoint\tstate")
+	for _, s := range subs {
+		for t, st := range s.Truth {
+			fmt.Fprintf(w, "%s\t%d\t%d\n", s.ID, t+1, st+1)
+		}
+	}
+	if err := w.Flush(); err != nil {
+		f.Close()
+		return fmt.Errorf("topostate: %w", err)
+	}
+	return f.Close()
 }

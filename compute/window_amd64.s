@@ -1,0 +1,72 @@
+#include "textflag.h"
+
+// Kernels of the running-sum sliding-window correlation (window.go). Each
+// performs, four elements at a time, exactly the IEEE operations of the Go
+// loop it replaces, in the same order and without fused multiply-adds, so
+// the results are bit-identical to the portable code.
+
+DATA ·one64<>+0(SB)/8, $1.0
+GLOBL ·one64<>(SB), RODATA, $8
+DATA ·minusone64<>+0(SB)/8, $-1.0
+GLOBL ·minusone64<>(SB), RODATA, $8
+
+// func corrRowAVX2(n int, out *float32, cr, ss, qs *float64, a, b float64)
+// out[m] = float32(min(max((a*cr[m] - b*ss[m]) * qs[m], -1), 1)) for m < n;
+// n must be a multiple of 4.
+TEXT ·corrRowAVX2(SB), NOSPLIT, $0-56
+	MOVQ n+0(FP), CX
+	MOVQ out+8(FP), DI
+	MOVQ cr+16(FP), SI
+	MOVQ ss+24(FP), R8
+	MOVQ qs+32(FP), R9
+	VBROADCASTSD a+40(FP), Y14
+	VBROADCASTSD b+48(FP), Y15
+	VBROADCASTSD ·one64<>(SB), Y12
+	VBROADCASTSD ·minusone64<>(SB), Y13
+	XORQ AX, AX
+	CMPQ CX, $0
+	JLE  donecorr
+
+loopcorr:
+	VMULPD (SI)(AX*8), Y14, Y0
+	VMULPD (R8)(AX*8), Y15, Y1
+	VSUBPD Y1, Y0, Y0
+	VMULPD (R9)(AX*8), Y0, Y0
+	VMAXPD Y13, Y0, Y0
+	VMINPD Y12, Y0, Y0
+	VCVTPD2PSY Y0, X0
+	VMOVUPS X0, (DI)(AX*4)
+	ADDQ $4, AX
+	CMPQ AX, CX
+	JLT  loopcorr
+
+donecorr:
+	VZEROUPPER
+	RET
+
+// func rank1DiffAVX2(n int, c, as, bs *float64, aj, bj float64)
+// c[m] += aj*as[m] - bj*bs[m] for m < n; n must be a multiple of 4.
+TEXT ·rank1DiffAVX2(SB), NOSPLIT, $0-48
+	MOVQ n+0(FP), CX
+	MOVQ c+8(FP), DI
+	MOVQ as+16(FP), SI
+	MOVQ bs+24(FP), R8
+	VBROADCASTSD aj+32(FP), Y14
+	VBROADCASTSD bj+40(FP), Y15
+	XORQ AX, AX
+	CMPQ CX, $0
+	JLE  donerank
+
+looprank:
+	VMULPD (SI)(AX*8), Y14, Y0
+	VMULPD (R8)(AX*8), Y15, Y1
+	VSUBPD Y1, Y0, Y0
+	VADDPD (DI)(AX*8), Y0, Y0
+	VMOVUPD Y0, (DI)(AX*8)
+	ADDQ $4, AX
+	CMPQ AX, CX
+	JLT  looprank
+
+donerank:
+	VZEROUPPER
+	RET

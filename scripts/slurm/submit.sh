@@ -1,0 +1,105 @@
+#!/bin/bash
+# Submit a sharded topostate ingest to Slurm: five jobs chained with
+# --dependency=afterok, the two per-shard stages as array jobs.
+#
+#   plan ──> sample[1..N] ──> fit ──> compute[1..N] ──> merge
+#
+# afterok on an array job waits for every task of it, and a failed job
+# leaves the jobs after it pending with reason DependencyNeverSatisfied.
+# Cancel them with scancel, fix the cause, and submit again from the stage
+# that failed with START=sample|fit|compute|merge: the finished stages need
+# not run again (a shard run again overwrites its own files).
+#
+# Usage:
+#   INPUT=/data/cohort WORK=/scratch/$USER/tsw DB=/data/warehouse.duckdb \
+#   ANALYSIS=discovery SHARDS=40 INGEST_OPTS="--window 30 --seed 7" \
+#   scripts/slurm/submit.sh
+#
+# With STATES_FROM=NAME STATES_DB=FILE the fit stage reuses the states of
+# an earlier analysis and the sample stage is skipped.
+#
+# Resource requests. Measured with `/usr/bin/time -f %M` (peak resident
+# memory) on a generated cohort of 48 series x 116 regions x 1200 time
+# points in 3 shards of 16 series, 2 workers per stage, on a 2-core machine
+# (README, "Large cohorts"). A series of T time points and p regions has
+# W = T - window + 1 windows of D = p(p-1)/2 values; one series' windows,
+# W x D x 4 bytes (31 MB here), are held per busy worker. Scale the numbers
+# for your own T, p and cohort size.
+#
+#  plan     reads and checksums every file once (validation of the whole
+#           cohort: constant regions, one region list, duplicates) with all
+#           its cores: 62 MB, 0.3-0.9 s for 48 series (about 10 ms of one
+#           core per series here: minutes for thousands).
+#  sample   260-290 MB per shard, nearly independent of its size (rows go
+#           to Parquet every 16 MB of values): about 200 MB plus one
+#           series' windows per worker. 1.0-1.5 s per 16 series.
+#  fit      the one large job: the pooled exemplars, R rows x D x 4 bytes
+#           (R = 12,745 here: 340 MB; at most about 2 x --fit-windows rows,
+#           1.07 GB for p = 116 and the default 20,000), about 2.8 times that
+#           at the peak with k-means' work arrays: 960 MB here, so 4G covers
+#           p = 116 at the defaults. k-means uses every core it gets: 3.6-5 s
+#           for a fixed k = 4 (5 restarts), 45 s for the default elbow scan
+#           k = 2..10, on 2 cores.
+#  compute  165-225 MB per shard with 2 workers, independent of its size
+#           (rows go to Parquet every million rows). 0.7-1.2 s per 16 series.
+#  merge    one DuckDB transaction over every shard's files, one core:
+#           400-440 MB, 1.2-1.9 s for 48 series (1.28 million filtration
+#           events); it grows with the cohort.
+#
+# Times below are generous ceilings; --time must only be long enough, but a
+# shorter limit gets a job scheduled sooner on most clusters. Each stage's
+# requests can be replaced whole through PLAN_RES, SAMPLE_RES, FIT_RES,
+# COMPUTE_RES and MERGE_RES (try-local.sh does, for a 2-core node).
+: "${PLAN_RES:=--cpus-per-task=4 --mem=1G --time=01:00:00}"
+: "${SAMPLE_RES:=--cpus-per-task=2 --mem=1G --time=00:30:00}"
+: "${FIT_RES:=--cpus-per-task=8 --mem=4G --time=02:00:00}"
+: "${COMPUTE_RES:=--cpus-per-task=2 --mem=1G --time=00:30:00}"
+: "${MERGE_RES:=--cpus-per-task=1 --mem=4G --time=02:00:00}"
+set -euo pipefail
+: "${INPUT:?set INPUT to the cohort folder}" "${WORK:?set WORK to a new work folder on a shared file system}"
+: "${DB:?set DB to the warehouse file}" "${SHARDS:=8}" "${ANALYSIS:=}"
+export INPUT WORK DB SHARDS ANALYSIS INGEST_OPTS="${INGEST_OPTS:-}" TOPOSTATE="${TOPOSTATE:-topostate}"
+export STATES_FROM="${STATES_FROM:-}" STATES_DB="${STATES_DB:-}"
+# Job logs go beside the work folder (plan wants the work folder new).
+: "${LOGS:=${WORK%/}.logs}"
+mkdir -p "$LOGS"
+here=$(cd "$(dirname "$0")" && pwd)
+job="$here/stage.sbatch"
+# Extra sbatch options for every job (account, partition, qos), e.g.
+# SBATCH_EXTRA="--account=lab --partition=short".
+# shellcheck disable=SC2206
+extra=(${SBATCH_EXTRA:-})
+
+# submit NAME STAGE ARRAY RESOURCES: one job after the previous one.
+after=
+submit() {
+	local name=$1 stage=$2 array=$3 res=$4 out dep=() arr=() id
+	out="$LOGS/$stage-%j.out"
+	if [[ -n $array ]]; then
+		arr=(--array="$array")
+		out="$LOGS/$stage-%A_%a.out"
+	fi
+	[[ -n $after ]] && dep=(--dependency=afterok:"$after")
+	# shellcheck disable=SC2086 # res is a list of options
+	id=$(sbatch --parsable "${extra[@]}" --job-name="$name" --output="$out" "${dep[@]}" "${arr[@]}" $res "$job" "$stage")
+	after=$id
+	echo "  $stage: job $id${array:+ (array $array)}"
+}
+stages=(plan sample fit compute merge)
+start=${START:-plan}
+[[ " ${stages[*]} " == *" $start "* ]] || { echo "submit.sh: START=$start: want one of ${stages[*]}" >&2; exit 2; }
+echo "submitted:"
+go=
+for s in "${stages[@]}"; do
+	[[ $s == "$start" ]] && go=1
+	[[ -n $go ]] || continue
+	case $s in
+	plan) submit ts-plan plan "" "$PLAN_RES" ;;
+	sample) [[ -n $STATES_FROM ]] || submit ts-sample sample "1-$SHARDS" "$SAMPLE_RES" ;;
+	fit) submit ts-fit fit "" "$FIT_RES" ;;
+	compute) submit ts-compute compute "1-$SHARDS" "$COMPUTE_RES" ;;
+	merge) submit ts-merge merge "" "$MERGE_RES" ;;
+	esac
+done
+merge=$after
+echo "watch with: squeue -u ${USER:-$(id -un)}; logs in $LOGS; the warehouse appears at $DB when job $merge has finished"
