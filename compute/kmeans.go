@@ -59,7 +59,15 @@ type KMeansOptions struct {
 	// progress display; ElbowScan calls it after each k of each restart);
 	// it must not block for long.
 	Done func()
+	// Stop, when not nil, is asked before each restart (and, in ElbowScan,
+	// before each k of a restart); when it returns true the fit ends with
+	// ErrStopped. It lets a caller honour an interrupt within one fit.
+	Stop func() bool
 }
+
+// ErrStopped is returned by KMeans and ElbowScan when KMeansOptions.Stop
+// asked them to end early.
+var ErrStopped = errors.New("compute: k-means stopped on request")
 
 // KMeansResult is one fitted clustering.
 type KMeansResult struct {
@@ -598,6 +606,9 @@ func KMeans(x Matrix32, opt KMeansOptions, seed uint64) (KMeansResult, error) {
 	var best KMeansResult
 	total := 0
 	for r := 0; r < restarts; r++ {
+		if opt.Stop != nil && opt.Stop() {
+			return KMeansResult{}, ErrStopped
+		}
 		res := f.run(opt.K, maxIter, tol, rand.New(rand.NewPCG(seed, uint64(opt.FirstRestart+r))))
 		total += res.Iterations
 		if r == 0 || res.WCSS < best.WCSS {
@@ -711,6 +722,9 @@ func ElbowScan(x Matrix32, kmin, kmax int, opt KMeansOptions, seed uint64) (Elbo
 	for r := 0; r < restarts; r++ {
 		seeds, _ := f.seed(kmax, rand.New(rand.NewPCG(seed, uint64(opt.FirstRestart+r))), d)
 		for k := kmin; k <= kmax; k++ {
+			if opt.Stop != nil && opt.Stop() {
+				return Elbow{}, nil, ErrStopped
+			}
 			c := NewMatrix32(k, dim)
 			copy(c.Data, seeds.Data[:k*dim])
 			res := f.lloyd(c, d, kmax, maxIter, tol)

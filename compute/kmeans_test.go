@@ -1,6 +1,7 @@
 package compute
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -484,5 +485,44 @@ func BenchmarkKMeans(b *testing.B) {
 				}
 			}
 		})
+	}
+}
+
+// Stop ends a fit between restarts (and between k in a scan) with
+// ErrStopped; a Stop that never fires changes nothing.
+func TestKMeansStop(t *testing.T) {
+	rng := rand.New(rand.NewPCG(4, 4))
+	x := NewMatrix32(60, 5)
+	for i := range x.Data {
+		x.Data[i] = float32(rng.NormFloat64())
+	}
+	calls := 0
+	stopAfter := func(n int) func() bool {
+		calls = 0
+		return func() bool { calls++; return calls > n }
+	}
+	opt := KMeansOptions{K: 3, Restarts: 4, Stop: stopAfter(2)}
+	if _, err := KMeans(x, opt, 1); !errors.Is(err, ErrStopped) {
+		t.Fatalf("KMeans with Stop after 2 restarts: err = %v, want ErrStopped", err)
+	}
+	if calls != 3 {
+		t.Errorf("Stop asked %d times, want 3 (before restarts 0, 1, 2)", calls)
+	}
+	opt.Stop = stopAfter(5)
+	if _, _, err := ElbowScan(x, 2, 4, opt, 1); !errors.Is(err, ErrStopped) {
+		t.Fatalf("ElbowScan with Stop after 5 fits: err = %v, want ErrStopped", err)
+	}
+	opt.Stop = func() bool { return false }
+	a, err := KMeans(x, opt, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	opt.Stop = nil
+	b, err := KMeans(x, opt, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if a.WCSS != b.WCSS || !slices.Equal(a.Labels, b.Labels) {
+		t.Error("a Stop that never fires changed the fit")
 	}
 }

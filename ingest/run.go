@@ -124,7 +124,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		}
 		lap("sample windows")
 		// Stage 2: fit the states.
-		if err := st.fit(sample); err != nil {
+		if err := st.fit(ctx, sample); err != nil {
 			return nil, err
 		}
 		sum.Elbow = st.elbow
@@ -478,9 +478,9 @@ func pick(rng *rand.Rand, idx []int, k int) []int {
 // is fewer than Restarts, the picked k gets the remaining restarts, so its
 // centroids are exactly those of a fit with Restarts restarts. The stored
 // W(k) curve is the scan's.
-func (s *stages) fit(x compute.Matrix32) error {
+func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 	opt := compute.KMeansOptions{Restarts: s.o.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers,
-		Done: func() { s.prog.Add(1) }}
+		Done: func() { s.prog.Add(1) }, Stop: func() bool { return ctx.Err() != nil }}
 	var res compute.KMeansResult
 	if s.o.States > 0 {
 		if s.o.States > x.Rows {
@@ -491,7 +491,7 @@ func (s *stages) fit(x compute.Matrix32) error {
 		t := time.Now()
 		r, err := compute.KMeans(x, opt, s.o.Seed)
 		if err != nil {
-			return fmt.Errorf("ingest: fit states: %w", err)
+			return fmt.Errorf("ingest: fit states: %w", stopped(ctx, err))
 		}
 		s.work.since("fit: k-means", t)
 		s.fits = append(s.fits, FitStat{K: opt.K, Restarts: opt.Restarts, Iterations: r.TotalIterations, Final: true})
@@ -511,7 +511,7 @@ func (s *stages) fit(x compute.Matrix32) error {
 		t := time.Now()
 		e, fits, err := compute.ElbowScan(x, s.o.StatesMin, s.o.StatesMax, scan, s.o.Seed)
 		if err != nil {
-			return fmt.Errorf("ingest: elbow scan: %w", err)
+			return fmt.Errorf("ingest: elbow scan: %w", stopped(ctx, err))
 		}
 		t = s.work.since("fit: elbow scan", t)
 		for _, f := range fits {
@@ -525,7 +525,7 @@ func (s *stages) fit(x compute.Matrix32) error {
 			more.K, more.FirstRestart, more.Restarts = s.k, scan.Restarts, opt.Restarts-scan.Restarts
 			r, err := compute.KMeans(x, more, s.o.Seed)
 			if err != nil {
-				return fmt.Errorf("ingest: fit states: %w", err)
+				return fmt.Errorf("ingest: fit states: %w", stopped(ctx, err))
 			}
 			s.work.since("fit: final restarts", t)
 			s.fits = append(s.fits, FitStat{K: more.K, Restarts: more.Restarts, Iterations: r.TotalIterations, Final: true})
@@ -829,4 +829,13 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 		}
 		b.nets.Row(id, sub, ses, st+1, net.windows, net.meanWeight, tree)
 	}
+}
+
+// stopped turns a fit ended by KMeansOptions.Stop into the context's error,
+// so an interrupt reads as one whatever stage it reached.
+func stopped(ctx context.Context, err error) error {
+	if errors.Is(err, compute.ErrStopped) && ctx.Err() != nil {
+		return ctx.Err()
+	}
+	return err
 }

@@ -523,7 +523,7 @@ func (w *Work) Fit(ctx context.Context, workers int, from *StatesFrom, prog Prog
 		if err != nil {
 			return nil, err
 		}
-		if err := st.fit(st.capSample(x)); err != nil {
+		if err := st.fit(ctx, st.capSample(x)); err != nil {
 			return nil, err
 		}
 	}

@@ -288,9 +288,29 @@ func TestInterrupt(t *testing.T) {
 	}
 }
 
-// TestInterruptTwice: the k-means fit does not watch for Ctrl-C (a long
-// elbow scan runs to its end first), so a second Ctrl-C must end the
-// process at once, and the warehouse must still hold only the baseline.
+// TestInterruptDuringFit: one Ctrl-C in the middle of a long elbow scan
+// ends the run at the next k-means fit (KMeansOptions.Stop), with the
+// usual message and nothing written.
+func TestInterruptDuringFit(t *testing.T) {
+	cohort := bigCohort(t)
+	before := snapshot(t, baselineDB, 0)
+	db := copyDB(t, t.TempDir())
+	// The default elbow scan (k = 2..10, 5 restarts) takes minutes here.
+	bg := start(t, expand("ingest --input {cohort} --db {db} --window 30 -q", cohort, db), "10m")
+	time.Sleep(1500 * time.Millisecond)
+	sent := time.Now()
+	bg.cmd.Process.Signal(os.Interrupt)
+	st := bg.wait()
+	t.Logf("stopped %v after the signal", time.Since(sent).Round(time.Millisecond))
+	if st.ExitCode() != 1 || !strings.Contains(bg.stderr.String(), "interrupted; nothing from this run was written") {
+		t.Errorf("after one Ctrl-C: %v\nstderr: %s", st, bg.stderr.String())
+	}
+	sameSnapshot(t, "after Ctrl-C during the fit", before, snapshot(t, db, 0))
+}
+
+// TestInterruptTwice: a second Ctrl-C ends the process at once, whatever
+// the first one is waiting for, and the warehouse still holds only the
+// baseline.
 func TestInterruptTwice(t *testing.T) {
 	cohort := bigCohort(t)
 	before := snapshot(t, baselineDB, 0)
