@@ -34,6 +34,7 @@ func TestExitCodesAndStreams(t *testing.T) {
 		{"unknown command", []string{"frobnicate"}, 2, "", `no command "frobnicate"`, ""},
 		{"unknown flag", []string{"info", "--frob"}, 2, "", "see 'topostate info --help'", ""},
 		{"unknown global flag", []string{"--frob"}, 2, "", "see 'topostate --help'", ""},
+		{"required flag missing", []string{"simulate"}, 2, "", "--out FOLDER is required", ""},
 		{"no input", []string{"ingest", "--db", filepath.Join(tmp, "x.duckdb")}, 2, "", "--input is required", filepath.Join(tmp, "x.duckdb")},
 		{"info on a missing file", []string{"info", "--db", filepath.Join(tmp, "none.duckdb")}, 1, "", "none.duckdb", filepath.Join(tmp, "none.duckdb")},
 		{"bad cohort", expand(baseIngest, filepath.Join(abs, "..", "..", "bad", "series-ragged-row", "cohort"), filepath.Join(tmp, "b.duckdb")),

@@ -21,12 +21,15 @@ func exportCommand() *cli.Command {
 			"pandas read them.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
-			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Required: true, Usage: "`FOLDER` for the files (created when missing)"},
+			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "`FOLDER` for the files (created when missing)"},
 			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "parquet", Usage: "parquet or csv"},
 			&cli.StringSliceFlag{Name: "tables", Usage: "only these `TABLES` (comma-separated or repeated; default all)"},
 			&cli.StringFlag{Name: "analysis", Usage: "only the rows of this analysis (`ID`, name or latest; default all)"},
 		},
 		Action: func(c *cli.Context) error {
+			if c.String("out") == "" {
+				return usagef("export: --out FOLDER is required")
+			}
 			format, err := queries.ParseFormat(c.String("format"))
 			if err != nil || (format != queries.FormatParquet && format != queries.FormatCSV) {
 				return usagef("export: --format %q: want parquet or csv", c.String("format"))

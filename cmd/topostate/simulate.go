@@ -19,7 +19,7 @@ func simulateCommand() *cli.Command {
 		Name:  "simulate",
 		Usage: "write a synthetic cohort (invented data with known states) in the input layout",
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Required: true, Usage: "`FOLDER` to write the cohort into"},
+			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "`FOLDER` to write the cohort into"},
 			&cli.IntFlag{Name: "subjects", Value: 20, Usage: "number of subjects (alternating groups A and B)"},
 			&cli.IntFlag{Name: "regions", Value: 30, Usage: "regions per series"},
 			&cli.IntFlag{Name: "timepoints", Value: 600, Usage: "time points per series"},
@@ -34,6 +34,9 @@ func simulateCommand() *cli.Command {
 			&cli.BoolFlag{Name: "truth", Hidden: true, Usage: "also write truth.tsv: the latent state of every subject at every time point"},
 		},
 		Action: func(c *cli.Context) error {
+			if c.String("out") == "" {
+				return usagef("simulate: --out FOLDER is required")
+			}
 			spec := compute.CohortSpec{
 				Subjects: c.Int("subjects"), Regions: c.Int("regions"), Timepoints: c.Int("timepoints"),
 				States: c.Int("states"), TR: c.Float64("tr"), Stickiness: c.Float64("stickiness"),
