@@ -49,10 +49,11 @@ type Summary struct {
 	Occupancies []float64 // cohort mean occupancy per state
 
 	// PhaseTimes are the wall times of the stages in order: "sample
-	// windows", "fit states", "subjects" (stage 3 while the results are
-	// not being written), "write" (building rows and inserting them, stage
-	// 4 and the analysis-level tables), "commit". Callers may put their own
-	// phases in front (the command adds "validate").
+	// windows", "fit states", "subjects" (stage 3 until the last subject's
+	// rows are built; most inserts overlap it), "write" (the
+	// analysis-level tables and the inserts still running after the last
+	// subject), "commit". Callers may put their own phases in front (the
+	// command adds "validate").
 	PhaseTimes []PhaseTime
 	// WorkerTimes split the parallel stages into their parts ("sample:
 	// read", "subjects: assign", ...), in seconds summed over the workers,
@@ -355,10 +356,17 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	s.prog.Stage("sampling windows", n)
 	perSubject := max(1, (2*s.o.FitMax+n-1)/n)
 	D := compute.PairCount(s.p)
-	// The pool can hold at most perSubject rows of each series (and no
-	// more rows than there are windows); reserving that much up front
-	// avoids the copies of a growing slice (pages not written stay free).
-	pool := make([]float32, 0, int(min(int64(n)*int64(perSubject), s.totalWindows))*D)
+	// The pool holds at most perSubject rows of each series and no more
+	// rows than there are windows; exemplars (local maxima of a series
+	// that changes slowly from window to window) were about a fifth of
+	// the windows on generated cohorts, so a quarter is reserved up front
+	// (the memory is touched when reserved) and append grows the pool
+	// beyond that when needed.
+	reserve := min(int64(n)*int64(perSubject), s.totalWindows)
+	if s.o.Exemplars {
+		reserve = min(reserve, s.totalWindows/4)
+	}
+	pool := make([]float32, 0, int(reserve)*D)
 	rows := 0
 	err := parallel(ctx, n, s.workers, func(i int) ([]float32, error) {
 		m, err := s.windows("sample", s.c.Inputs[i])
