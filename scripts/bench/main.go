@@ -570,10 +570,10 @@ func printResult(w io.Writer, r result) {
 		if n == "" {
 			n = p.Phase
 		}
-		fmt.Fprintf(tw, "  %s\t%7.1f\n", n, p.Seconds)
+		fmt.Fprintf(tw, "  %s\t%7.2f\n", n, p.Seconds)
 		total += p.Seconds
 	}
-	fmt.Fprintf(tw, "  sum of phases\t%7.1f\n", total)
+	fmt.Fprintf(tw, "  sum of phases\t%7.2f\n", total)
 	fmt.Fprintf(tw, "wall (%s)\t%7.1f s\n", r.RSSSource, r.WallSeconds)
 	fmt.Fprintf(tw, "CPU user + system\t%7.1f s (%.1f + %.1f)\n", r.UserSeconds+r.SystemSeconds, r.UserSeconds, r.SystemSeconds)
 	fmt.Fprintf(tw, "peak resident memory\t%7.0f MiB\n", r.PeakRSSMiB)
@@ -586,7 +586,7 @@ func printResult(w io.Writer, r result) {
 	fmt.Fprintln(tw, "\t")
 	fmt.Fprintln(tw, "parallel stages, seconds summed over workers\t")
 	for _, p := range r.Timings.WorkerTimes {
-		fmt.Fprintf(tw, "  %s\t%7.1f\n", p.Phase, p.Seconds)
+		fmt.Fprintf(tw, "  %s\t%7.2f\n", p.Phase, p.Seconds)
 	}
 	fmt.Fprintln(tw, "\t")
 	tw.Flush()
