@@ -158,19 +158,6 @@ func rowNorms(x Matrix32, workers int) []float64 {
 	return xn
 }
 
-// pointDist is d(x_i, c) with the squared Euclidean distance written as
-// ||x||^2 + ||c||^2 - 2 x.c (clamped at 0) or the L1 distance.
-func pointDist(d Distance, xi []float32, xn float64, c []float32, cn float64) float64 {
-	if d == CityBlock {
-		return l1Dist(xi, c)
-	}
-	v := xn + cn - 2*dot32(xi, c)
-	if v < 0 {
-		v = 0
-	}
-	return v
-}
-
 // assignRows labels rows with their nearest centroid (ties to the lowest
 // index). A row whose distances are all NaN gets label -1 and distance NaN.
 // xn may be nil; norms are then computed per row.
@@ -325,7 +312,8 @@ func (f *kmFit) seed(k int, r *rand.Rand, dist []float64) (Matrix32, []int) {
 				}
 				var v float64
 				if f.d == SquaredEuclidean {
-					// xn + cn - 2 x.c as in pointDist, with the centre widened once.
+					// ||x||^2 + ||c||^2 - 2 x.c clamped at 0, as in assignRows,
+					// with the centre widened once.
 					v = max(xn+cn-2*dotMixed(f.x.Row(i), cw), 0)
 				} else {
 					v = l1Dist(f.x.Row(i), cj)
@@ -584,6 +572,8 @@ func (f *kmFit) lloyd(c Matrix32, d []float64, stride, maxIter int, tol float64)
 // stops when the labels no longer change, when W = 0, when
 // (W_old - W_new)/W_old < Tol, or after MaxIter steps (Converged false).
 // The restart with the lowest W is returned (ties: the lowest r).
+// SquaredEuclidean iterations skip the distances that Elkan's bounds
+// settle (kmeans_bounds.go) and give the labels of plain Lloyd iterations.
 //
 // Empty clusters: after every assignment, each empty cluster (in index
 // order) takes the row farthest from its own centre among clusters with more

@@ -9,7 +9,7 @@ import (
 	"testing"
 )
 
-// Hamerly's bounds (Hamerly, 2010) only skip distance computations whose
+// Elkan's bounds (Elkan, ICML 2003) only skip distance computations whose
 // outcome is certain, so a restart must give the labels and iteration count
 // of plain Lloyd iterations (the definition in METHODS 3) from the same
 // seeding. Centres come from running float64 sums in one path and from sums

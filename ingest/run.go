@@ -50,10 +50,11 @@ type Summary struct {
 	Occupancies []float64 // cohort mean occupancy per state
 
 	// PhaseTimes are the wall times of the stages in order: "sample
-	// windows", "fit states", "subjects" (stage 3 while the results are
-	// not being written), "write" (building rows and inserting them, stage
-	// 4 and the analysis-level tables), "commit". Callers may put their own
-	// phases in front (the command adds "validate").
+	// windows", "fit states", "subjects" (stage 3 until the last subject's
+	// rows are built; most inserts overlap it), "write" (the
+	// analysis-level tables and the inserts still running after the last
+	// subject), "commit". Callers may put their own phases in front (the
+	// command adds "validate").
 	PhaseTimes []PhaseTime
 	// WorkerTimes split the parallel stages into their parts ("sample:
 	// read", "subjects: assign", ...), in seconds summed over the workers,
@@ -371,10 +372,17 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	n := len(s.c.Inputs)
 	s.prog.Stage("sampling windows", n)
 	D := compute.PairCount(s.p)
-	// The pool can hold at most perSeries rows of each series (and no
-	// more rows than there are windows); reserving that much up front
-	// avoids the copies of a growing slice (pages not written stay free).
-	pool := make([]float32, 0, int(min(int64(n)*int64(s.perSeries()), s.totalWindows))*D)
+	// The pool holds at most perSeries rows of each series and no more
+	// rows than there are windows; exemplars (local maxima of a series
+	// that changes slowly from window to window) were about a fifth of
+	// the windows on generated cohorts, so a quarter is reserved up front
+	// (the memory is touched when reserved) and append grows the pool
+	// beyond that when needed.
+	reserve := min(int64(n)*int64(s.perSeries()), s.totalWindows)
+	if s.o.Exemplars {
+		reserve = min(reserve, s.totalWindows/4)
+	}
+	pool := make([]float32, 0, int(reserve)*D)
 	rows := 0
 	err := s.sampleRange(ctx, 0, n, func(i int, rowsOf []float32) error {
 		pool = append(pool, rowsOf...)
