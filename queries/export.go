@@ -272,6 +272,12 @@ func exportTable(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analys
 		return fail(err)
 	}
 	defer os.Remove(tmp.Name())
+	// CreateTemp makes the file private (0600); an exported table is as
+	// readable as any file the user writes (0644 before the umask).
+	if err := tmp.Chmod(0o644); err != nil {
+		tmp.Close()
+		return fail(err)
+	}
 	if o.Format == FormatCSV {
 		ef.Rows, err = exportCSV(ctx, conn, plan, queryOf, tmp)
 	} else {

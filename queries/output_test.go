@@ -188,6 +188,9 @@ func TestExport(t *testing.T) {
 				t.Fatalf("%d files, want %d tables + dictionary + codebook", len(files), len(dict))
 			}
 			for _, f := range files[:len(dict)] {
+				if st, err := os.Stat(f.Path); err != nil || st.Mode().Perm()&0o044 == 0 {
+					t.Errorf("%s: exported file is not readable by others (mode %v, %v)", f.Table, st.Mode(), err)
+				}
 				where := c.where
 				if f.Table == "schema_version" {
 					where = ""
