@@ -295,8 +295,9 @@ func TestInterruptDuringFit(t *testing.T) {
 	cohort := bigCohort(t)
 	before := snapshot(t, baselineDB, 0)
 	db := copyDB(t, t.TempDir())
-	// The default elbow scan (k = 2..10, 5 restarts) takes minutes here.
-	bg := start(t, expand("ingest --input {cohort} --db {db} --window 30 -q", cohort, db), "10m")
+	// Validation and sampling take about 0.3 s on this cohort; the elbow
+	// scan with 20 restarts per k takes over 10 s, so 1.5 s lands in it.
+	bg := start(t, expand("ingest --input {cohort} --db {db} --window 30 --restarts 20 -q", cohort, db), "10m")
 	time.Sleep(1500 * time.Millisecond)
 	sent := time.Now()
 	bg.cmd.Process.Signal(os.Interrupt)
