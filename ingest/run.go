@@ -847,3 +847,20 @@ func stopped(ctx context.Context, err error) error {
 	}
 	return err
 }
+
+// IntoFile validates the cohort o names and writes it as one analysis into
+// the warehouse file at path (created when missing): LoadCohort, then Run on
+// a connection to that file. The command line does the same steps itself,
+// to interleave its own checks; library users and tests call this.
+func IntoFile(ctx context.Context, path string, o Options, prog Progress) (*Summary, error) {
+	c, err := LoadCohort(o)
+	if err != nil {
+		return nil, err
+	}
+	db, err := schema.Open(path, false, nil)
+	if err != nil {
+		return nil, err
+	}
+	defer db.Close()
+	return Run(ctx, db, c, o, prog)
+}

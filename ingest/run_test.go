@@ -50,12 +50,7 @@ func testOptions(dir string) Options {
 
 func ingestInto(t *testing.T, dbPath string, o Options) *Summary {
 	t.Helper()
-	db, err := schema.Open(dbPath, false, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
-	s, err := loadAndRun(db, o)
+	s, err := IntoFile(context.Background(), dbPath, o, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -11,7 +11,6 @@ import (
 
 	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/ingest"
-	"github.com/topostate/topostate/schema"
 )
 
 // The test warehouse: an invented cohort of 17 subjects (the simulator's
@@ -82,22 +81,13 @@ func buildWarehouse(dir string) error {
 	if err := ingest.WriteCohort(cohortDir, names, 2, ids, series, []string{"group", "age", "sleep hours"}, rows); err != nil {
 		return err
 	}
-	db, err := schema.Open(warehousePath, false, nil)
-	if err != nil {
-		return err
-	}
-	defer db.Close()
 	for _, a := range []struct {
 		name   string
 		window int
 	}{{"first", 20}, {"second", 26}} {
 		o := ingest.Defaults()
 		o.Input, o.Window, o.States, o.Restarts, o.Grid, o.Seed, o.Analysis = cohortDir, a.window, 3, 3, "-0.4:1:29", 5, a.name
-		c, err := ingest.LoadCohort(o)
-		if err != nil {
-			return err
-		}
-		if _, err := ingest.Run(context.Background(), db, c, o, nil); err != nil {
+		if _, err := ingest.IntoFile(context.Background(), warehousePath, o, nil); err != nil {
 			return err
 		}
 	}

@@ -48,18 +48,9 @@ func build(dir string) error {
 		return err
 	}
 	warehouse = filepath.Join(dir, "w.duckdb")
-	db, err := schema.Open(warehouse, false, nil)
-	if err != nil {
-		return err
-	}
-	defer db.Close()
 	o := ingest.Defaults()
 	o.Input, o.Window, o.States, o.Restarts, o.Grid, o.Analysis = cohort, 20, 2, 2, "-0.5:1:16", "cmdtest"
-	c, err := ingest.LoadCohort(o)
-	if err != nil {
-		return err
-	}
-	_, err = ingest.Run(context.Background(), db, c, o, nil)
+	_, err := ingest.IntoFile(context.Background(), warehouse, o, nil)
 	return err
 }
 

@@ -81,17 +81,8 @@ func buildWarehouse(dir string) (string, error) {
 	}
 	o := ingest.Defaults()
 	o.Input, o.Window, o.StatesMin, o.StatesMax, o.Restarts, o.Grid, o.Seed, o.Analysis = cohort, 20, 2, 5, 3, "-1:1:41", 5, "figs"
-	c, err := ingest.LoadCohort(o)
-	if err != nil {
-		return "", err
-	}
 	path := filepath.Join(dir, "w.duckdb")
-	db, err := schema.Open(path, false, nil)
-	if err != nil {
-		return "", err
-	}
-	defer db.Close()
-	if _, err := ingest.Run(context.Background(), db, c, o, nil); err != nil {
+	if _, err := ingest.IntoFile(context.Background(), path, o, nil); err != nil {
 		return "", err
 	}
 	return path, nil
