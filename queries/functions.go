@@ -145,11 +145,7 @@ func Functions() []*Function {
 				"assumes no ties; with ties it is conservative.",
 			in: []duckdb.TypeInfo{tList, tList}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE", "method", "VARCHAR"),
 			fn: func(a []driver.Value) (any, error) {
-				x, err := doubles("a", a[0])
-				if err != nil {
-					return nil, err
-				}
-				y, err := doubles("b", a[1])
+				x, y, err := pair(a)
 				if err != nil {
 					return nil, err
 				}
@@ -166,11 +162,7 @@ func Functions() []*Function {
 			Doc:       "Sup-norm distance max_g |a[g] - b[g]| of two curves on the same grid; an error when the lengths differ.",
 			in:        []duckdb.TypeInfo{tList, tList}, out: tDouble,
 			fn: func(a []driver.Value) (any, error) {
-				x, err := doubles("a", a[0])
-				if err != nil {
-					return nil, err
-				}
-				y, err := doubles("b", a[1])
+				x, y, err := pair(a)
 				if err != nil {
 					return nil, err
 				}
@@ -185,11 +177,7 @@ func Functions() []*Function {
 				"math/rand/v2's PCG generator seeded with (seed, 0): the same arguments give the same p.",
 			in: []duckdb.TypeInfo{tList, tList, tInteger, tBigint}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE"),
 			fn: func(a []driver.Value) (any, error) {
-				x, err := doubles("a", a[0])
-				if err != nil {
-					return nil, err
-				}
-				y, err := doubles("b", a[1])
+				x, y, err := pair(a)
 				if err != nil {
 					return nil, err
 				}
@@ -230,11 +218,7 @@ func Functions() []*Function {
 				"two-sided p-value. An error when a group has fewer than 2 values or both variances are 0.",
 			in: []duckdb.TypeInfo{tList, tList}, out: structOf("t", "DOUBLE", "df", "DOUBLE", "pvalue", "DOUBLE"),
 			fn: func(a []driver.Value) (any, error) {
-				x, err := doubles("a", a[0])
-				if err != nil {
-					return nil, err
-				}
-				y, err := doubles("b", a[1])
+				x, y, err := pair(a)
 				if err != nil {
 					return nil, err
 				}
@@ -321,6 +305,17 @@ func checkSizes(m, n int64) error {
 
 // doubles converts a DOUBLE[] argument. A NULL element is an error: dropping
 // it silently would change the sample size.
+// pair decodes the two DOUBLE[] arguments a and b that most functions take.
+func pair(a []driver.Value) (x, y []float64, err error) {
+	if x, err = doubles("a", a[0]); err != nil {
+		return nil, nil, err
+	}
+	if y, err = doubles("b", a[1]); err != nil {
+		return nil, nil, err
+	}
+	return x, y, nil
+}
+
 func doubles(arg string, v driver.Value) ([]float64, error) {
 	l, ok := v.([]any)
 	if !ok {
