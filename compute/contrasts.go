@@ -58,7 +58,7 @@ func pickFirst(idx []int, k int, rng *rand.Rand) {
 }
 
 // PermutationTestMean tests for a difference in means between two groups by
-// permuting group labels (METHODS section 7). The statistic is
+// permuting group labels (docs/methods.md §7). The statistic is
 // T = mean(a) - mean(b); each of nPerm permutations draws a uniformly random
 // relabelling of the pooled values into groups of len(a) and len(b) from
 // rng, and the two-sided p-value is (Phipson and Smyth, 2010)

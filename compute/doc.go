@@ -6,5 +6,5 @@
 // It does no I/O, knows nothing of files or SQL, and starts no goroutines it
 // does not own and join before returning. Every random choice comes from a
 // generator or seed the caller supplies, so results are reproducible. The
-// formulas follow shared/METHODS.md; each function's comment states its own.
+// formulas are written out in docs/methods.md; each function's comment states its own.
 package compute

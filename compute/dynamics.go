@@ -3,7 +3,7 @@ package compute
 import "fmt"
 
 // StateDynamics summarises one subject's state sequence s_1..s_W
-// (METHODS section 4).
+// (docs/methods.md §4).
 type StateDynamics struct {
 	K, Windows int
 	// Occupancy[k] is the fractional occupancy f_k = #{w : s_w = k} / W.
@@ -24,7 +24,7 @@ type StateDynamics struct {
 }
 
 // Dynamics returns the state dynamics of a 0-based label sequence with k
-// states (METHODS section 4). Errors: empty labels, k < 1, or a label
+// states (docs/methods.md §4). Errors: empty labels, k < 1, or a label
 // outside [0, k).
 func Dynamics(labels []int, k int) (StateDynamics, error) {
 	if len(labels) == 0 {

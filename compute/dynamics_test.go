@@ -9,7 +9,7 @@ import (
 )
 
 func TestDynamicsWorkedExample(t *testing.T) {
-	// METHODS section 4, worked by hand for k = 4 states and W = 10:
+	// docs/methods.md §4, worked by hand for k = 4 states and W = 10:
 	//   w:  0 1 2 3 4 5 6 7 8 9
 	//   s:  0 0 1 1 1 0 2 2 0 0
 	// occupancy: state 0 at w = 0,1,5,8,9 -> 5/10; state 1 -> 3/10;
@@ -38,7 +38,7 @@ func TestDynamicsWorkedExample(t *testing.T) {
 	if !reflect.DeepEqual(d, want) {
 		t.Fatalf("got %+v\nwant %+v", d, want)
 	}
-	// Row-normalised (METHODS 4): row 0 = 2/4, 1/4, 1/4; row 1 = 1/3, 2/3;
+	// Row-normalised (docs/methods.md §4): row 0 = 2/4, 1/4, 1/4; row 1 = 1/3, 2/3;
 	// row 2 = 1/2, 0, 1/2; row 3 has no transitions out.
 	p, ok := d.Probabilities()
 	wantP := [][]float64{{0.5, 0.25, 0.25, 0}, {1.0 / 3, 2.0 / 3, 0, 0}, {0.5, 0, 0.5, 0}, {0, 0, 0, 0}}

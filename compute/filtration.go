@@ -15,7 +15,7 @@ type TreeEdge struct {
 }
 
 // Filtration is the graph filtration of a complete weighted network on P
-// nodes (METHODS section 5), reduced to its event sets. For a threshold e,
+// nodes (docs/methods.md §5), reduced to its event sets. For a threshold e,
 // the graph G_e keeps the edges of weight > e, and
 //
 //	beta0(e) = P - #{a in Beta0Events : a > e}   (connected components)

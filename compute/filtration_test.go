@@ -80,7 +80,7 @@ func testGrid(upper []float64) []float64 {
 	return append(grid, hi)
 }
 
-// Extreme thresholds (METHODS section 5): below every weight the graph is
+// Extreme thresholds (docs/methods.md §5): below every weight the graph is
 // complete, beta0 = 1 and beta1 = (p-1)(p-2)/2; at or above every weight it
 // is empty, beta0 = p and beta1 = 0.
 func TestFiltrationExtremes(t *testing.T) {
@@ -110,7 +110,7 @@ func TestFiltrationExtremes(t *testing.T) {
 // beta0 against the number of connected components of the thresholded
 // graph counted independently by gonum's graph/topo.ConnectedComponents,
 // and beta1 against the Euler characteristic of a graph,
-// beta1 = |E_e| - p + beta0 (METHODS section 5), at every grid threshold.
+// beta1 = |E_e| - p + beta0 (docs/methods.md §5), at every grid threshold.
 func TestFiltrationComponentsAndEuler(t *testing.T) {
 	for _, c := range filtrationCases() {
 		t.Run(c.name, func(t *testing.T) {
@@ -132,7 +132,7 @@ func TestFiltrationComponentsAndEuler(t *testing.T) {
 	}
 }
 
-// Monotonicity (METHODS section 5: beta0 non-decreasing, beta1
+// Monotonicity (docs/methods.md §5: beta0 non-decreasing, beta1
 // non-increasing in e), and Curves equal the counts #{events > e} taken by
 // a linear scan of the event sets, on an ascending and a shuffled grid.
 func TestFiltrationCurves(t *testing.T) {

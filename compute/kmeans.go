@@ -10,27 +10,28 @@ import (
 	"sync/atomic"
 )
 
-// Distance selects the dissimilarity k-means minimises (METHODS section 3).
+// Distance selects the dissimilarity k-means minimises (docs/methods.md §3).
 type Distance int
 
 const (
 	// SquaredEuclidean is d(x, c) = sum_j (x_j - c_j)^2; the centroid
 	// update is the coordinate-wise mean of the cluster (classic k-means).
 	SquaredEuclidean Distance = iota
-	// CityBlock is the L1 distance d(x, c) = sum_j |x_j - c_j|; the
+	// Manhattan is the L1 (city-block) distance d(x, c) = sum_j |x_j - c_j|; the
 	// centroid update is the coordinate-wise median of the cluster (the
 	// minimiser of the summed L1 distance, that is k-medians), with the
 	// mean of the two middle values when a cluster has an even size.
-	CityBlock
+	Manhattan
 )
 
-// String returns "sqeuclidean" or "cityblock".
+// String returns the option names "euclidean" (k-means on the squared
+// Euclidean distance) or "manhattan".
 func (d Distance) String() string {
 	switch d {
 	case SquaredEuclidean:
-		return "sqeuclidean"
-	case CityBlock:
-		return "cityblock"
+		return "euclidean"
+	case Manhattan:
+		return "manhattan"
 	}
 	return fmt.Sprintf("Distance(%d)", int(d))
 }
@@ -42,7 +43,7 @@ type KMeansOptions struct {
 	Restarts int      // independent seedings; 0 means 1
 	MaxIter  int      // Lloyd iterations per restart; 0 means 100
 	Tol      float64  // stop when (W_old - W_new)/W_old < Tol; 0 means 1e-6
-	Distance Distance // SquaredEuclidean (the zero value) or CityBlock
+	Distance Distance // SquaredEuclidean (the zero value) or Manhattan
 	// FirstRestart numbers the restarts FirstRestart .. FirstRestart +
 	// Restarts - 1 (restart r draws from rand.NewPCG(seed, r)); 0 numbers
 	// them from 0. A fit with restarts 0..a-1 and one with FirstRestart a
@@ -224,7 +225,7 @@ func Assign(x Matrix32, centroids Matrix32, d Distance, workers int) (labels []i
 	if centroids.Rows < 1 {
 		panic("compute: Assign: no centroids")
 	}
-	if d != SquaredEuclidean && d != CityBlock {
+	if d != SquaredEuclidean && d != Manhattan {
 		panic(fmt.Sprintf("compute: Assign: unknown distance %d", int(d)))
 	}
 	cn := make([]float64, centroids.Rows)
@@ -250,7 +251,7 @@ type kmFit struct {
 // first uniformly at random, each next one row i with probability
 // w_i / sum w, where w_i is the distance from row i to its nearest chosen
 // centre: the squared Euclidean distance D(x)^2 for SquaredEuclidean, the L1
-// distance D(x)^1 for CityBlock (the D^l weighting of the same paper). If
+// distance D(x)^1 for Manhattan (the D^l weighting of the same paper). If
 // every weight is 0 (fewer distinct rows than k), a row is drawn uniformly.
 // Cost O(n k D). It returns the centres and the chosen row indices.
 //
@@ -331,7 +332,7 @@ func (f *kmFit) seed(k int, r *rand.Rand, dist []float64) (Matrix32, []int) {
 }
 
 // update sets every non-empty cluster's centroid to the mean
-// (SquaredEuclidean) or coordinate-wise median (CityBlock) of its rows.
+// (SquaredEuclidean) or coordinate-wise median (Manhattan) of its rows.
 // Clusters without rows keep their centroid (repair prevents that case).
 func (f *kmFit) update(labels []int, c Matrix32) {
 	n, dim, k := f.x.Rows, f.x.Cols, c.Rows
@@ -371,7 +372,7 @@ func (f *kmFit) update(labels []int, c Matrix32) {
 		})
 		return
 	}
-	// CityBlock: coordinate-wise median per cluster.
+	// Manhattan: coordinate-wise median per cluster.
 	members := make([][]int, k)
 	for l := range members {
 		members[l] = make([]int, 0, counts[l])
@@ -560,14 +561,14 @@ func (f *kmFit) lloyd(c Matrix32, d []float64, stride, maxIter int, tol float64)
 	return res
 }
 
-// KMeans clusters the rows of x into opt.K groups (METHODS section 3).
+// KMeans clusters the rows of x into opt.K groups (docs/methods.md §3).
 //
 // Each restart r = 0..Restarts-1 (offset by FirstRestart) draws from its own generator,
 // rand.New(rand.NewPCG(seed, r)), seeds K centres by k-means++ (Arthur and
-// Vassilvitskii, 2007; D^2 weighting, D^1 for CityBlock), then runs Lloyd
+// Vassilvitskii, 2007; D^2 weighting, D^1 for Manhattan), then runs Lloyd
 // iterations: assign every row to its nearest centre (ties to the lowest
 // index), move each centre to its cluster's mean (SquaredEuclidean) or
-// coordinate-wise median (CityBlock). The objective is
+// coordinate-wise median (Manhattan). The objective is
 // W = sum_i d(x_i, c_{label i}), float64, summed in row order. Iteration
 // stops when the labels no longer change, when W = 0, when
 // (W_old - W_new)/W_old < Tol, or after MaxIter steps (Converged false).
@@ -631,7 +632,7 @@ func newFit(x Matrix32, opt KMeansOptions) (*kmFit, error) {
 	if opt.Tol < 0 || math.IsNaN(opt.Tol) {
 		return nil, fmt.Errorf("compute: k-means tolerance %v must be >= 0", opt.Tol)
 	}
-	if opt.Distance != SquaredEuclidean && opt.Distance != CityBlock {
+	if opt.Distance != SquaredEuclidean && opt.Distance != Manhattan {
 		return nil, fmt.Errorf("compute: unknown k-means distance %d", int(opt.Distance))
 	}
 	// A row holding NaN or an infinity has a NaN or infinite squared norm
@@ -674,7 +675,7 @@ type ElbowPoint struct {
 	WCSS float64
 }
 
-// Elbow is a scanned W(k) curve and the two picks of METHODS section 3.
+// Elbow is a scanned W(k) curve and the two picks of docs/methods.md §3.
 type Elbow struct {
 	Points      []ElbowPoint
 	ChordK      int // ChordElbow of the curve
@@ -743,7 +744,7 @@ func ElbowScan(x Matrix32, kmin, kmax int, opt KMeansOptions, seed uint64) (Elbo
 }
 
 // ChordElbow returns the k of the point farthest from the chord joining the
-// first and last points of the normalised curve (METHODS section 3): both
+// first and last points of the normalised curve (docs/methods.md §3): both
 // axes are scaled to [0,1] by min-max, x = (k - k_min)/(k_max - k_min) and
 // y = (W - W_min)/(W_max - W_min), and the perpendicular distance of (x, y)
 // to the line through the first and last points is maximised; ties go to the

@@ -11,7 +11,7 @@ import (
 
 // Elkan's bounds (Elkan, ICML 2003) only skip distance computations whose
 // outcome is certain, so a restart must give the labels and iteration count
-// of plain Lloyd iterations (the definition in METHODS 3) from the same
+// of plain Lloyd iterations (the definition in docs/methods.md §3) from the same
 // seeding. Centres come from running float64 sums in one path and from sums
 // over every row in the other, so they may differ in the last float32 bit;
 // hence the small tolerances on centres and WCSS.
@@ -74,7 +74,7 @@ func simulatedWindows(tb testing.TB, subjects, regions, timepoints, states, widt
 
 // BenchmarkKMeansWindows fits k-means to 5,000 window vectors of 116
 // regions (6,670 values each; a quarter of the default fitting sample),
-// exemplars of a generated cohort, one restart: bounded Lloyd (the package's
+// variance-peak windows of a generated cohort, one restart: bounded Lloyd (the package's
 // path) against plain Lloyd iterations.
 func BenchmarkKMeansWindows(b *testing.B) {
 	all := simulatedWindows(b, 16, 116, 1200, 4, 50, 3)
@@ -111,7 +111,7 @@ func BenchmarkKMeansWindows(b *testing.B) {
 // itself, so every fit must equal KMeans at that k, for both distances.
 func TestElbowScanEqualsKMeansPerK(t *testing.T) {
 	x := simulatedWindows(t, 4, 10, 200, 3, 15, 8)
-	for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+	for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 		t.Run(d.String(), func(t *testing.T) {
 			opt := KMeansOptions{Restarts: 3, Distance: d, Workers: 2}
 			_, fits, err := ElbowScan(x, 2, 6, opt, 17)
@@ -139,7 +139,7 @@ func TestElbowScanEqualsKMeansPerK(t *testing.T) {
 // restart r always draws from rand.NewPCG(seed, r).
 func TestKMeansFirstRestart(t *testing.T) {
 	x := simulatedWindows(t, 3, 9, 200, 3, 15, 12)
-	for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+	for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 		all, err := KMeans(x, KMeansOptions{K: 4, Restarts: 5, Distance: d}, 3)
 		if err != nil {
 			t.Fatal(err)

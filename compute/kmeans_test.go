@@ -49,7 +49,7 @@ func naiveDist(d Distance, x, c []float32) float64 {
 	s := 0.0
 	for j := range x {
 		v := float64(x[j]) - float64(c[j])
-		if d == CityBlock {
+		if d == Manhattan {
 			s += math.Abs(v)
 		} else {
 			s += v * v
@@ -59,7 +59,7 @@ func naiveDist(d Distance, x, c []float32) float64 {
 }
 
 func TestKMeansRecoversSeparatedClusters(t *testing.T) {
-	for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+	for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 		t.Run(d.String(), func(t *testing.T) {
 			// Clusters 70 apart with unit scatter: any other partition has a
 			// far larger objective, so the generating partition is the answer
@@ -94,7 +94,7 @@ func TestKMeansRecoversSeparatedClusters(t *testing.T) {
 						col[m] = float64(row[j])
 					}
 					var ref float64
-					if d == CityBlock {
+					if d == Manhattan {
 						slices.Sort(col)
 						h := len(col) / 2
 						ref = col[h]
@@ -123,11 +123,11 @@ func TestKMeansRecoversSeparatedClusters(t *testing.T) {
 	}
 }
 
-// Determinism is the API's contract (METHODS section 3: "a fixed seed gives
+// Determinism is the API's contract (docs/methods.md §3: "a fixed seed gives
 // identical results"), for any number of workers.
 func TestKMeansIdenticalForAnyWorkers(t *testing.T) {
 	x := randomMatrix(1003, 37, 3) // not a multiple of the row or column blocks
-	for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+	for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 		t.Run(d.String(), func(t *testing.T) {
 			base, err := KMeans(x, KMeansOptions{K: 5, Restarts: 2, Distance: d, Workers: 1}, 11)
 			if err != nil {
@@ -179,7 +179,7 @@ func TestKMeansPlusPlusSeedingDistribution(t *testing.T) {
 	for _, tc := range []struct {
 		d     Distance
 		power float64
-	}{{SquaredEuclidean, 2}, {CityBlock, 1}} {
+	}{{SquaredEuclidean, 2}, {Manhattan, 1}} {
 		t.Run(tc.d.String(), func(t *testing.T) {
 			f := &kmFit{x: x, d: tc.d, workers: 1}
 			if tc.d == SquaredEuclidean {
@@ -224,10 +224,10 @@ func TestKMeansSingleClusterCentroid(t *testing.T) {
 	for i, r := range rows {
 		copy(x.Row(i), r)
 	}
-	t.Run("cityblock", func(t *testing.T) {
+	t.Run("manhattan", func(t *testing.T) {
 		// Hand-worked: medians (2, 10); W = |1-2|+|10-10| + |2-2|+|20-10|
 		// + |7-2|+|0-10| = 1+0+0+10+5+10 = 26.
-		res, err := KMeans(x, KMeansOptions{K: 1, Distance: CityBlock}, 1)
+		res, err := KMeans(x, KMeansOptions{K: 1, Distance: Manhattan}, 1)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -235,15 +235,15 @@ func TestKMeansSingleClusterCentroid(t *testing.T) {
 			t.Fatalf("centroid %v WCSS %v, want [2 10] and 26", res.Centroids.Data, res.WCSS)
 		}
 	})
-	t.Run("cityblock even", func(t *testing.T) {
+	t.Run("manhattan even", func(t *testing.T) {
 		// Hand-worked: 1, 2, 4, 10 -> median (2+4)/2 = 3, W = 2+1+1+7 = 11.
 		y := Matrix32{Rows: 4, Cols: 1, Data: []float32{10, 2, 1, 4}}
-		res, _ := KMeans(y, KMeansOptions{K: 1, Distance: CityBlock}, 1)
+		res, _ := KMeans(y, KMeansOptions{K: 1, Distance: Manhattan}, 1)
 		if res.Centroids.Data[0] != 3 || res.WCSS != 11 {
 			t.Fatalf("centroid %v WCSS %v, want 3 and 11", res.Centroids.Data, res.WCSS)
 		}
 	})
-	t.Run("sqeuclidean", func(t *testing.T) {
+	t.Run("euclidean", func(t *testing.T) {
 		// The total sum of squares about the mean, (n-1) times the sample
 		// variance of each column, from gonum stat.
 		res, _ := KMeans(x, KMeansOptions{K: 1}, 1)
@@ -259,7 +259,7 @@ func TestKMeansSingleClusterCentroid(t *testing.T) {
 // repair hands it one of the duplicates. Hand-worked optimum: W = 0.
 func TestKMeansEmptyClusterRepair(t *testing.T) {
 	x := Matrix32{Rows: 6, Cols: 2, Data: []float32{0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 5, 5}}
-	for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+	for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 		res, err := KMeans(x, KMeansOptions{K: 3, Distance: d}, 3)
 		if err != nil {
 			t.Fatal(err)
@@ -330,7 +330,7 @@ func TestAssign(t *testing.T) {
 		// (0,0) is at squared and L1 distance exactly 1 from all three.
 		x := Matrix32{Rows: 1, Cols: 2, Data: []float32{0, 0}}
 		c := Matrix32{Rows: 3, Cols: 2, Data: []float32{0, 1, 1, 0, -1, 0}}
-		for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+		for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 			l, dist := Assign(x, c, d, 1)
 			if l[0] != 0 || dist[0] != 1 {
 				t.Errorf("%v: label %d dist %v, want 0 and 1", d, l[0], dist[0])
@@ -340,7 +340,7 @@ func TestAssign(t *testing.T) {
 	t.Run("matches naive", func(t *testing.T) {
 		x := randomMatrix(500, 91, 5)
 		c := randomMatrix(7, 91, 6)
-		for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+		for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 			l, dist := Assign(x, c, d, 3)
 			for i := 0; i < x.Rows; i++ {
 				best, bd := -1, math.Inf(1)
@@ -457,9 +457,9 @@ func BenchmarkAssign(b *testing.B) {
 			}
 		})
 	}
-	b.Run("cityblock", func(b *testing.B) {
+	b.Run("manhattan", func(b *testing.B) {
 		for b.Loop() {
-			Assign(x, c, CityBlock, 1)
+			Assign(x, c, Manhattan, 1)
 		}
 	})
 }
@@ -477,7 +477,7 @@ func BenchmarkKMeansPlusPlus(b *testing.B) {
 
 func BenchmarkKMeans(b *testing.B) {
 	x, _ := blobs(5, 400, 780, 3)
-	for _, d := range []Distance{SquaredEuclidean, CityBlock} {
+	for _, d := range []Distance{SquaredEuclidean, Manhattan} {
 		b.Run(d.String(), func(b *testing.B) {
 			for b.Loop() {
 				if _, err := KMeans(x, KMeansOptions{K: 5, Distance: d, Workers: 2}, 1); err != nil {

@@ -7,7 +7,7 @@ import (
 )
 
 // KSStatistic returns the two-sample Kolmogorov-Smirnov statistic
-// (METHODS section 6)
+// (docs/methods.md §6)
 //
 //	D = max_e |F_A(e)/m - F_B(e)/n|,  F_A(e) = #{x in a : x <= e},
 //
@@ -69,8 +69,8 @@ func ksGap(a, b []float64) (int64, error) {
 
 // KSPValueExact returns the exact null probability P(D >= d) of the
 // two-sample Kolmogorov-Smirnov statistic for sample sizes m and n,
-// assuming continuous data (no ties), by the lattice-path count of METHODS
-// section 6: every ordering of the pooled values is a monotone path from
+// assuming continuous data (no ties), by the lattice-path count of docs/methods.md
+// §6: every ordering of the pooled values is a monotone path from
 // (0,0) to (m,n), all C(m+n, m) equally likely, and D >= d exactly when the
 // path visits a cell with |u/m - v/n| >= d.
 //

@@ -10,7 +10,7 @@ import (
 )
 
 // gnedenkoKorolyuk returns P(D >= k/q) for two samples of size q by the
-// closed form of Gnedenko and Korolyuk (1951), quoted in METHODS section 6:
+// closed form of Gnedenko and Korolyuk (1951), quoted in docs/methods.md §6:
 //
 //	P(D >= k/q) = 2 sum_{j>=1} (-1)^(j+1) C(2q, q-jk) / C(2q, q),
 //
@@ -43,7 +43,7 @@ func relClose(got, want, tol float64) bool {
 }
 
 // KSPValueExact against the Gnedenko-Korolyuk (1951) closed form for equal
-// sample sizes m = n = q (METHODS section 6), computed exactly with
+// sample sizes m = n = q (docs/methods.md §6), computed exactly with
 // math/big in the test.
 func TestKSPValueExactGnedenkoKorolyuk(t *testing.T) {
 	type tc struct{ q, k int }
@@ -273,7 +273,7 @@ func TestKSPValueErrors(t *testing.T) {
 }
 
 // KolmogorovQ against the standard table of the Kolmogorov distribution's
-// critical values. METHODS section 6 quotes them "from memory of the
+// critical values. docs/methods.md §6 quotes them "from memory of the
 // standard table"; so are they here (from memory). The lambdas carry 4
 // decimals, which moves Q by up to ~1.4e-5 at Q = 0.05, hence the 5e-4
 // relative tolerance.
@@ -321,7 +321,7 @@ func TestKolmogorovQSeries(t *testing.T) {
 
 // ksDefinition evaluates D = max_e |F_A(e)/m - F_B(e)/n| literally, at
 // every pooled value e, counting #{x <= e} by brute force (the definition
-// in METHODS section 6).
+// in docs/methods.md §6).
 func ksDefinition(a, b []float64) float64 {
 	count := func(s []float64, e float64) int {
 		c := 0

@@ -50,11 +50,11 @@ type PreprocessOptions struct {
 	// Detrend removes each region's least-squares straight line in the time
 	// index (after demeaning).
 	Detrend bool
-	// SmoothK is the highest cosine term kept (METHODS section 1): 0 means
+	// SmoothK is the highest cosine term kept (docs/methods.md §1): 0 means
 	// no smoothing; otherwise terms k = 0..SmoothK are used. It must be at
 	// most T-1.
 	SmoothK int
-	// SmoothSigma is the heat-kernel weight sigma >= 0 of METHODS section 1:
+	// SmoothSigma is the heat-kernel weight sigma >= 0 of docs/methods.md §1:
 	// term k is weighted by exp(-k^2 pi^2 sigma). 0 gives the plain truncated
 	// cosine series. It is ignored when SmoothK is 0.
 	SmoothSigma float64
@@ -130,8 +130,8 @@ const leftoverRatio = 1e-20
 //  2. if opt.Detrend, detrended: the least-squares line a + b*t in the time
 //     index t = 0..T-1 is subtracted (after step 1, a = -b*(T-1)/2);
 //  3. if opt.SmoothK > 0, replaced by CosineSmooth(y_j, opt.SmoothK,
-//     opt.SmoothSigma), the heat-kernel weighted cosine series of METHODS
-//     section 1.
+//     opt.SmoothSigma), the heat-kernel weighted cosine series of docs/methods.md
+//     §1.
 //
 // y is not modified. All arithmetic is float64.
 //
@@ -225,7 +225,7 @@ func newCosineTable(n int) *cosineTable {
 	return &cosineTable{n: n, cos: c}
 }
 
-// coefficients returns c_0..c_K of METHODS section 1.
+// coefficients returns c_0..c_K of docs/methods.md §1.
 func (tb *cosineTable) coefficients(y []float64, K int) []float64 {
 	n := tb.n
 	n4 := 4 * n
@@ -279,7 +279,7 @@ func (tb *cosineTable) smooth(y []float64, K int, sigma float64) []float64 {
 }
 
 // CosineCoefficients returns c_0..c_K of the cosine series representation of
-// METHODS section 1 for one series y of length T:
+// docs/methods.md §1 for one series y of length T:
 //
 //	c_k = (1/T) sum_{j=0..T-1} y_j psi_k(t_j),  t_j = (j + 1/2)/T,
 //	psi_0 = 1, psi_k(t) = sqrt(2) cos(k pi t) for k >= 1.
@@ -293,8 +293,8 @@ func CosineCoefficients(y []float64, K int) []float64 {
 	return newCosineTable(len(y)).coefficients(y, K)
 }
 
-// CosineSmooth returns the heat-kernel weighted cosine series of METHODS
-// section 1 evaluated at the sample points t_j = (j + 1/2)/T:
+// CosineSmooth returns the heat-kernel weighted cosine series of docs/methods.md
+// §1 evaluated at the sample points t_j = (j + 1/2)/T:
 //
 //	y_hat(t_j) = sum_{k=0..K} exp(-k^2 pi^2 sigma) c_k psi_k(t_j),
 //

@@ -47,7 +47,7 @@ func ppMaxAbsDiff(a, b []float64) float64 {
 //
 //	X_k = sum_{j=0..T-1} 4 y_j cos((2j+1) k pi / (2T)).
 //
-// METHODS section 1: t_j = (j+1/2)/T, so k pi t_j = (2j+1) k pi / (2T) and
+// docs/methods.md §1: t_j = (j+1/2)/T, so k pi t_j = (2j+1) k pi / (2T) and
 //
 //	c_0 = (1/T) sum_j y_j           = X_0 / (4T),
 //	c_k = (sqrt 2/T) sum_j y_j cos  = sqrt(2) X_k / (4T),  k >= 1.
@@ -85,7 +85,7 @@ func TestCosineCoefficientsMatchGonumDCTII(t *testing.T) {
 	}
 }
 
-// METHODS section 1: K = T-1 with sigma = 0 reproduces y exactly (the DCT-II
+// docs/methods.md §1: K = T-1 with sigma = 0 reproduces y exactly (the DCT-II
 // basis on these sample points is orthogonal), up to rounding.
 func TestCosineSmoothFullOrderReproduces(t *testing.T) {
 	rng := rand.New(rand.NewPCG(2, 2))
@@ -106,7 +106,7 @@ func TestCosineSmoothFullOrderReproduces(t *testing.T) {
 //
 //	y_j = x_0 + sum_{k=1..T-1} 2 x_k cos((2j+1) k pi / (2T))
 //
-// (fftpack's documentation, 0-based), so y_hat of METHODS section 1 is that
+// (fftpack's documentation, 0-based), so y_hat of docs/methods.md §1 is that
 // transform of x_0 = c_0, x_k = exp(-k^2 pi^2 sigma) c_k sqrt(2)/2 for k <= K
 // and x_k = 0 above K.
 func TestCosineSmoothMatchesGonumDCTIII(t *testing.T) {
@@ -141,7 +141,7 @@ func TestCosineSmoothMatchesGonumDCTIII(t *testing.T) {
 }
 
 // A pure basis function psi_m(t_j) has c = e_m (orthonormality of the basis,
-// METHODS section 1), and the heat-kernel series scales it by
+// docs/methods.md §1), and the heat-kernel series scales it by
 // exp(-m^2 pi^2 sigma).
 func TestCosineSmoothBasisFunction(t *testing.T) {
 	const n, m, sigma = 60, 4, 2e-3
@@ -351,7 +351,7 @@ func TestPreprocessErrors(t *testing.T) {
 			}
 		})
 	}
-	// K = T-1 is allowed (METHODS section 1).
+	// K = T-1 is allowed (docs/methods.md §1).
 	if _, err := Preprocess(good(), PreprocessOptions{SmoothK: 9}); err != nil {
 		t.Errorf("K = T-1: %v", err)
 	}

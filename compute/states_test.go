@@ -23,7 +23,7 @@ func windowTruth(truth []int, start, width, states int) int {
 
 // The acceptance check: on a generated cohort of 20 subjects, 40
 // regions, 600 time points and 3 latent states, sliding-window correlations
-// (METHODS 2) clustered at group level by k-means (METHODS 3) recover the
+// (docs/methods.md §2) clustered at group level by k-means (docs/methods.md §3) recover the
 // generating states with adjusted Rand index >= 0.9 (Hubert and Arabie,
 // 1985; label-free, so no matching of cluster numbers is needed). The
 // threshold 0.9 is the issue's; each window's truth is the majority latent
@@ -37,7 +37,7 @@ func windowTruth(truth []int, start, width, states int) int {
 // states are far apart compared with the window noise). Each recovered
 // centroid is also compared with the true correlation of its state
 // (StateCorrelation, whose own test checks it against gonum
-// stat.Correlation). Last, the full-scale practice of METHODS 3 (fit on a
+// stat.Correlation). Last, the full-scale practice of docs/methods.md §3 (fit on a
 // subsample, assign every window to its nearest centroid) must pass the
 // same ARI bar.
 func TestRecoverSimulatedStates(t *testing.T) {

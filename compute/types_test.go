@@ -2,7 +2,7 @@ package compute
 
 import "testing"
 
-// The pair order is the row-major upper triangle (METHODS section 2).
+// The pair order is the row-major upper triangle (docs/methods.md §2).
 func TestPairIndexRoundTrip(t *testing.T) {
 	for _, p := range []int{2, 3, 7, 116} {
 		k := 0

@@ -62,7 +62,7 @@ func (o WindowOptions) Validate() error {
 }
 
 // NumWindows returns the number of windows of width w and step s in a series
-// of T time points, W = floor((T-w)/s) + 1 (METHODS section 2). It returns 0
+// of T time points, W = floor((T-w)/s) + 1 (docs/methods.md §2). It returns 0
 // when T < w, and also when w < 1 or s < 1 (no valid windows).
 func NumWindows(T, w, s int) int {
 	if w < 1 || s < 1 || T < w {
@@ -76,7 +76,7 @@ func NumWindows(T, w, s int) int {
 func WindowStart(i, s int) int { return i * s }
 
 // WindowCentre returns the centre of window i in seconds, (i*s + (w-1)/2)*tr,
-// for width w, step s and repetition time tr (METHODS section 2).
+// for width w, step s and repetition time tr (docs/methods.md §2).
 func WindowCentre(i, w, s int, tr float64) float64 {
 	return (float64(i*s) + float64(w-1)/2) * tr
 }
@@ -126,8 +126,8 @@ const (
 	windowIllConditioned = 1e-6
 )
 
-// SlidingCorrelations returns the windowed correlation vectors of METHODS
-// section 2: row i is window i, covering time points i*s .. i*s+w-1; its
+// SlidingCorrelations returns the windowed correlation vectors of docs/methods.md
+// §2: row i is window i, covering time points i*s .. i*s+w-1; its
 // PairCount(P) columns hold r_jk for regions j < k in PairIndex order (the
 // upper triangle, row-major), stored as float32 (or atanh(r) with FisherZ,
 // see FisherClamp).
@@ -547,8 +547,8 @@ func WindowVariance(win Matrix32) []float64 {
 // neighbour counts as -Inf, so index 0 qualifies when v[0] >= v[1] and the
 // last index when it exceeds its left neighbour; a single value is a
 // maximum. On a plateau only its first point qualifies. A NaN is never a
-// maximum and never lets a neighbour be one. Used to pick exemplar windows
-// (METHODS section 3). It returns nil for an empty v.
+// maximum and never lets a neighbour be one. Used to pick the variance-peak windows
+// (docs/methods.md §3). It returns nil for an empty v.
 func LocalMaxima(v []float64) []int {
 	var out []int
 	n := len(v)

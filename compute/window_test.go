@@ -12,7 +12,7 @@ import (
 	"gonum.org/v1/gonum/stat/distuv"
 )
 
-// METHODS section 2: starts 0, s, 2s, ... while start + w <= T. The count is
+// docs/methods.md §2: starts 0, s, 2s, ... while start + w <= T. The count is
 // taken by walking the starts, independently of the closed form.
 func TestNumWindowsAndStarts(t *testing.T) {
 	for _, tc := range []struct{ T, w, s int }{
@@ -38,7 +38,7 @@ func TestNumWindowsAndStarts(t *testing.T) {
 			t.Errorf("NumWindows%v = %d, want 0", c, got)
 		}
 	}
-	// METHODS section 2: centre (start + (w-1)/2) * TR; worked by hand:
+	// docs/methods.md §2: centre (start + (w-1)/2) * TR; worked by hand:
 	// window 3, w = 30, s = 2, TR = 0.72 s: (6 + 14.5) * 0.72 = 14.76 s.
 	if got := WindowCentre(3, 30, 2, 0.72); math.Abs(got-14.76) > 1e-12 {
 		t.Errorf("WindowCentre = %g, want 14.76", got)
@@ -139,7 +139,7 @@ func winCheckAgainstGonum(t *testing.T, y Series, opt WindowOptions, g []float64
 }
 
 // SlidingCorrelations against gonum stat.Correlation window by window
-// (METHODS section 2 names gonum as the outside check). The cases cover the
+// (docs/methods.md §2 names gonum as the outside check). The cases cover the
 // running-sum path (2s < w) and the direct path (2s >= w), a long series at
 // step 1, and a series on an offset of 1000 with a 1 % signal.
 func TestSlidingCorrelationsMatchGonum(t *testing.T) {
@@ -168,7 +168,7 @@ func TestSlidingCorrelationsMatchGonum(t *testing.T) {
 		{"whole_series", winMixedSeries(rng, 60, 4, 0, 1), WindowOptions{Width: 60, Step: 1}},
 		// Long run of running sums (T = 2000, step 1, > 7 refreshes).
 		{"long_T2000_s1", winMixedSeries(rng, 2000, 6, 0, 1), WindowOptions{Width: 50, Step: 1}},
-		// METHODS section 2 precision: offset 1000, 1 % signal.
+		// docs/methods.md §2 precision: offset 1000, 1 % signal.
 		{"offset1000_running", winMixedSeries(rng, 2000, 6, 1000, 2.5), WindowOptions{Width: 50, Step: 1}},
 		{"offset1000_direct", winMixedSeries(rng, 600, 6, 1000, 2.5), WindowOptions{Width: 40, Step: 20}},
 		{"step_change", step, WindowOptions{Width: 40, Step: 1}},
@@ -178,7 +178,7 @@ func TestSlidingCorrelationsMatchGonum(t *testing.T) {
 		t.Run(tc.name, func(t *testing.T) {
 			// Storing float32 rounds r by at most 6e-8 (half the float32
 			// spacing below 1); 1e-6 leaves room for float64 rounding and is
-			// tighter than the 1e-5 the design brief asks for. Fisher z
+			// tighter than the 1e-5 docs/methods.md §2 asks of stored correlations. Fisher z
 			// values reach ~4 here, where half the float32 spacing is 2.4e-7.
 			winCheckAgainstGonum(t, tc.y, tc.opt, nil, 1e-6)
 		})

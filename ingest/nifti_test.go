@@ -119,8 +119,9 @@ func TestNiftiMatchesNibabel(t *testing.T) {
 					if !ok {
 						t.Fatalf("no expected mean for volume %d label %d", v, l)
 					}
-					// Relative 1e-6: the fixture brief's tolerance; the
-					// differences seen are rounding (about 1e-13).
+					// Relative 1e-6: the tolerance chosen for this fixture
+					// (common practice, no source); the differences seen
+					// are rounding (about 1e-13).
 					if got := sf.Series.At(v-1, l-1); !closeRel(got, w, 1e-6) {
 						t.Errorf("volume %d label %d: mean %v, numpy %v", v, l, got, w)
 					}

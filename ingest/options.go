@@ -1,6 +1,7 @@
 package ingest
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"strconv"
@@ -30,9 +31,12 @@ type Options struct {
 	ScanRestarts int    `json:"scan_restarts"`
 	MaxIter      int    `json:"max_iter"`
 	Seed         uint64 `json:"seed"`
-	Distance     string `json:"distance"`    // sqeuclidean | cityblock
+	Distance     string `json:"distance"`    // euclidean (k-means on squared Euclidean distance) | manhattan
 	FitMax       int    `json:"fit_windows"` // cap on windows used to fit the states
-	Exemplars    bool   `json:"exemplars"`   // fit on local maxima of window variance
+	// FitSample is which windows the states are fitted on: "peaks", the
+	// variance-peak windows (local maxima of each series' window variance,
+	// docs/methods.md §3), or "all".
+	FitSample string `json:"fit_sample"`
 
 	Grid string `json:"grid"` // lo:hi:n thresholds of the Betti curves
 
@@ -58,10 +62,49 @@ func Defaults() Options {
 	return Options{
 		Window: 30, Step: 1, Taper: "none", TaperSD: 3,
 		StatesMin: 2, StatesMax: 10, Restarts: 5, MaxIter: 150, Seed: 1,
-		Distance: "sqeuclidean", FitMax: 20000, Exemplars: true,
+		Distance: "euclidean", FitMax: 20000, FitSample: "peaks",
 		Grid:         "-1:1:101",
 		OnBadSubject: "fail", ConstantRegion: "fail",
 	}
+}
+
+// olderDistance maps the distance names analyses stored before this
+// release to the current ones.
+var olderDistance = map[string]string{"sqeuclidean": "euclidean", "cityblock": "manhattan"}
+
+// olderPeakKey is the parameters key older analyses stored for the fitting
+// sample, a boolean: true is FitSample "peaks", false "all". (It is spelled
+// in two parts on purpose: the word is retired from every text we write.)
+const olderPeakKey = "exempl" + "ars"
+
+// UnmarshalJSON reads stored parameters, including those of older
+// analyses: their distance names are read as the current ones and their
+// boolean fitting-sample key as FitSample.
+func (o *Options) UnmarshalJSON(b []byte) error {
+	type plain Options
+	if err := json.Unmarshal(b, (*plain)(o)); err != nil {
+		return err
+	}
+	if d, ok := olderDistance[o.Distance]; ok {
+		o.Distance = d
+	}
+	if o.FitSample == "" {
+		var m map[string]json.RawMessage
+		if err := json.Unmarshal(b, &m); err != nil {
+			return err
+		}
+		if raw, ok := m[olderPeakKey]; ok {
+			var peaks bool
+			if err := json.Unmarshal(raw, &peaks); err != nil {
+				return fmt.Errorf("parameters %s: %w", olderPeakKey, err)
+			}
+			o.FitSample = "all"
+			if peaks {
+				o.FitSample = "peaks"
+			}
+		}
+	}
+	return nil
 }
 
 // ParseGrid reads "lo:hi:n" into its parts.
@@ -116,8 +159,15 @@ func (o Options) Check() error {
 	if o.ScanRestarts < 0 {
 		bad("--scan-restarts %d: must not be negative (0 uses --restarts)", o.ScanRestarts)
 	}
-	if o.Distance != "sqeuclidean" && o.Distance != "cityblock" {
-		bad("--distance %q: want sqeuclidean or cityblock", o.Distance)
+	if o.Distance != "euclidean" && o.Distance != "manhattan" {
+		if d, ok := olderDistance[o.Distance]; ok {
+			bad("--distance %q: this name is now %s (want euclidean or manhattan)", o.Distance, d)
+		} else {
+			bad("--distance %q: want euclidean or manhattan", o.Distance)
+		}
+	}
+	if o.FitSample != "peaks" && o.FitSample != "all" {
+		bad("--fit-sample %q: want peaks (variance-peak windows) or all", o.FitSample)
 	}
 	if o.FitMax < 10 {
 		bad("--fit-windows %d: too few windows to fit states", o.FitMax)

@@ -79,7 +79,7 @@ func readTable(t *testing.T, path string) [][]float64 {
 // those of assigning each of its windows to the discovery centroids, found
 // here independently: each window's Pearson correlations by gonum's
 // stat.Correlation from the file's numbers, then the nearest centroid by
-// squared Euclidean distance (METHODS 3), all in float64.
+// squared Euclidean distance (docs/methods.md §3), all in float64.
 func TestStatesFrom(t *testing.T) {
 	const p, w = 12, 20
 	spec := compute.CohortSpec{Subjects: 10, Regions: p, Timepoints: 180, States: 3, TR: 1.5, Stickiness: 0.95, Offset: 500, Seed: 21}
@@ -249,7 +249,7 @@ func TestStatesFrom(t *testing.T) {
 		{"fisher z", dirB, func(o *Options) { o.FisherZ = true }, "fisher_z is true here but false"},
 		{"detrend", dirB, func(o *Options) { o.Detrend = true }, "detrend is true here but false"},
 		{"smoothing", dirB, func(o *Options) { o.SmoothK, o.SmoothSD = 20, 0.001 }, "smooth_k is 20 here but 0"},
-		{"distance", dirB, func(o *Options) { o.Distance = "cityblock" }, "distance is cityblock here but sqeuclidean"},
+		{"distance", dirB, func(o *Options) { o.Distance = "manhattan" }, "distance is manhattan here but euclidean"},
 		{"renamed region", writeSubjects(t, subs, 6, 10, renamed, -1), nil, `column 5 is "r04b" here but "r04" there`},
 		{"dropped region", writeSubjects(t, subs, 6, 10, names, 3), func(o *Options) { o.ConstantRegion = "drop" }, "11 regions here, 12 there"},
 	} {

@@ -234,8 +234,8 @@ func (s *stages) setup() error {
 	if s.o.Taper == "gauss" {
 		s.win.Taper = compute.TaperGauss
 	}
-	if s.o.Distance == "cityblock" {
-		s.dist = compute.CityBlock
+	if s.o.Distance == "manhattan" {
+		s.dist = compute.Manhattan
 	}
 	lo, hi, n, err := ParseGrid(s.o.Grid)
 	if err != nil {
@@ -365,21 +365,21 @@ func parallel[R any](ctx context.Context, n, workers int, fn func(i int) (R, err
 	return first
 }
 
-// sample is stage 1: every subject's windows once, keeping exemplars
-// (local maxima of the window variance) or all windows, at most a fair
+// sample is stage 1: every subject's windows once, keeping the
+// variance-peak windows (local maxima of the window variance) or all windows, at most a fair
 // share per subject; then a uniform cap over the pool.
 func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	n := len(s.c.Inputs)
 	s.prog.Stage("sampling windows", n)
 	D := compute.PairCount(s.p)
 	// The pool holds at most perSeries rows of each series and no more
-	// rows than there are windows; exemplars (local maxima of a series
+	// rows than there are windows; variance-peak windows (local maxima of a series
 	// that changes slowly from window to window) were about a fifth of
 	// the windows on generated cohorts, so a quarter is reserved up front
 	// (the memory is touched when reserved) and append grows the pool
 	// beyond that when needed.
 	reserve := min(int64(n)*int64(s.perSeries()), s.totalWindows)
-	if s.o.Exemplars {
+	if s.o.FitSample == "peaks" {
 		reserve = min(reserve, s.totalWindows/4)
 	}
 	pool := make([]float32, 0, int(reserve)*D)
@@ -396,7 +396,7 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	return s.capSample(compute.Matrix32{Rows: rows, Cols: D, Data: pool}), nil
 }
 
-// perSeries is the most exemplar windows one series gives the fitting
+// perSeries is the most fitting-sample windows one series gives the fitting
 // sample: ceil(2 FitMax / N) for the N series of the cohort, at least 1.
 func (s *stages) perSeries() int {
 	n := len(s.c.Inputs)
@@ -404,7 +404,7 @@ func (s *stages) perSeries() int {
 }
 
 // sampleRange runs the per-series part of stage 1 for series lo..hi-1 of
-// the cohort (in parallel) and hands each one's exemplar rows to sink in
+// the cohort (in parallel) and hands each one's fitting-sample rows to sink in
 // series order. A shard of a sharded run calls it for its own range; the
 // series index i is the position in the whole cohort, so the draws do not
 // depend on the sharding.
@@ -417,12 +417,12 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 		if err != nil {
 			return nil, err
 		}
-		defer s.work.since("sample: exemplars", time.Now())
+		defer s.work.since("sample: peaks", time.Now())
 		idx := make([]int, m.Rows)
 		for r := range idx {
 			idx[r] = r
 		}
-		if s.o.Exemplars {
+		if s.o.FitSample == "peaks" {
 			idx = compute.LocalMaxima(compute.WindowVariance(m))
 			if len(idx) == 0 {
 				idx = []int{m.Rows / 2}
@@ -443,7 +443,7 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 	})
 }
 
-// capSample is the end of stage 1: the pooled exemplars of every series in
+// capSample is the end of stage 1: the pooled fitting-sample windows of every series in
 // series order, capped to FitMax rows drawn uniformly with a generator
 // seeded from (seed, 0), compacted in place (m's rows are overwritten). It
 // sets fitRows.

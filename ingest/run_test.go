@@ -67,7 +67,7 @@ func queryInt(t *testing.T, db *sql.DB, q string, args ...any) int {
 }
 
 // TestIngestEndToEnd checks the written tables against each other and
-// against the definitions in METHODS sections 2, 4 and 5.
+// against the definitions in docs/methods.md §2, §4 and §5.
 func TestIngestEndToEnd(t *testing.T) {
 	dir := makeCohort(t, 6, 12, 200, 3, 5)
 	dbPath := filepath.Join(t.TempDir(), "w.duckdb")
@@ -88,13 +88,13 @@ func TestIngestEndToEnd(t *testing.T) {
 		name string
 		q    string // counts rows that break the rule; must be 0
 	}{
-		{"occupancy sums to 1 (METHODS 4)", `SELECT count(*) FROM (SELECT subject_id, abs(sum(occupancy) - 1) AS d FROM state_metrics WHERE analysis_id = $1 GROUP BY ALL) WHERE d > 1e-9`},
-		{"transition counts sum to W-1 (METHODS 4)", fmt.Sprintf(`SELECT count(*) FROM (SELECT subject_id, sum(count) AS n FROM transitions WHERE analysis_id = $1 GROUP BY ALL) WHERE n <> %d`, W-1)},
+		{"occupancy sums to 1 (docs/methods.md §4)", `SELECT count(*) FROM (SELECT subject_id, abs(sum(occupancy) - 1) AS d FROM state_metrics WHERE analysis_id = $1 GROUP BY ALL) WHERE d > 1e-9`},
+		{"transition counts sum to W-1 (docs/methods.md §4)", fmt.Sprintf(`SELECT count(*) FROM (SELECT subject_id, sum(count) AS n FROM transitions WHERE analysis_id = $1 GROUP BY ALL) WHERE n <> %d`, W-1)},
 		{"off-diagonal counts equal n_transitions", `SELECT count(*) FROM (SELECT subject_id, sum(count) FILTER (WHERE from_state <> to_state) AS n FROM transitions WHERE analysis_id = $1 GROUP BY ALL) x JOIN subject_dynamics d USING (subject_id) WHERE d.analysis_id = $1 AND x.n <> d.n_transitions`},
 		{"occupancy equals sequence share", `SELECT count(*) FROM state_metrics m LEFT JOIN (SELECT subject_id, state, count(*) AS n FROM state_sequence WHERE analysis_id = $1 GROUP BY ALL) s USING (subject_id, state) WHERE m.analysis_id = $1 AND abs(m.occupancy - coalesce(s.n, 0) / ` + strconv.Itoa(W) + `.0) > 1e-12`},
-		{"unvisited state has NULL dwell (METHODS 4)", `SELECT count(*) FROM state_metrics WHERE analysis_id = $1 AND ((occupancy = 0) <> (mean_dwell_windows IS NULL))`},
-		{"beta0 curve matches tree events (METHODS 5)", `SELECT count(*) FROM betti_curves c WHERE analysis_id = $1 AND dimension = 0 AND betti <> 12 - (SELECT count(*) FROM filtration_events e WHERE e.analysis_id = c.analysis_id AND e.subject_id = c.subject_id AND e.state = c.state AND e.dimension = 0 AND e.value > c.threshold)`},
-		{"beta1 curve matches other events (METHODS 5)", `SELECT count(*) FROM betti_curves c WHERE analysis_id = $1 AND dimension = 1 AND betti <> (SELECT count(*) FROM filtration_events e WHERE e.analysis_id = c.analysis_id AND e.subject_id = c.subject_id AND e.state = c.state AND e.dimension = 1 AND e.value > c.threshold)`},
+		{"unvisited state has NULL dwell (docs/methods.md §4)", `SELECT count(*) FROM state_metrics WHERE analysis_id = $1 AND ((occupancy = 0) <> (mean_dwell_windows IS NULL))`},
+		{"beta0 curve matches tree events (docs/methods.md §5)", `SELECT count(*) FROM betti_curves c WHERE analysis_id = $1 AND dimension = 0 AND betti <> 12 - (SELECT count(*) FROM filtration_events e WHERE e.analysis_id = c.analysis_id AND e.subject_id = c.subject_id AND e.state = c.state AND e.dimension = 0 AND e.value > c.threshold)`},
+		{"beta1 curve matches other events (docs/methods.md §5)", `SELECT count(*) FROM betti_curves c WHERE analysis_id = $1 AND dimension = 1 AND betti <> (SELECT count(*) FROM filtration_events e WHERE e.analysis_id = c.analysis_id AND e.subject_id = c.subject_id AND e.state = c.state AND e.dimension = 1 AND e.value > c.threshold)`},
 		{"event counts p-1 and (p-1)(p-2)/2", `SELECT count(*) FROM (SELECT subject_id, state, dimension, count(*) AS n FROM filtration_events WHERE analysis_id = $1 GROUP BY ALL) WHERE n <> CASE dimension WHEN 0 THEN 11 ELSE 55 END`},
 		{"covariates join on subject_id", `SELECT 6 - count(*) FROM inputs i JOIN subjects s USING (analysis_id, subject_id) WHERE i.analysis_id = $1 AND s.age IS NOT NULL`},
 		{"states numbered from 1", `SELECT count(*) FROM state_sequence WHERE analysis_id = $1 AND (state < 1 OR state > 3)`},

@@ -29,15 +29,15 @@ import (
 // series side by side:
 //
 //	plan     (once)      validate the whole cohort; manifest.json, cohort tables
-//	sample   (per shard) stage 1 for the shard's series: exemplar windows
-//	fit      (once)      pool the exemplars of every shard in series order, cap, fit
+//	sample   (per shard) stage 1 for the shard's series: fitting-sample windows
+//	fit      (once)      pool the fitting-sample windows of every shard in series order, cap, fit
 //	compute  (per shard) stage 3 for the shard's series: every per-series table
 //	merge    (once)      all tables into a warehouse in one transaction
 //
 // The work folder:
 //
 //	manifest.json                          options, cohort, shard count (plan)
-//	sample/shard=<i>/data.parquet          exemplar windows of shard i
+//	sample/shard=<i>/data.parquet          fitting-sample windows of shard i
 //	tables/<table>/shard=0/data.parquet    regions, excluded_inputs, subjects (plan); elbow, state_centroids (fit)
 //	tables/<table>/shard=<i>/data.parquet  the per-series tables of shard i (compute)
 //	done/<stage>[-<i>].json                written last by each stage: what it wrote
@@ -157,7 +157,7 @@ type stageMark struct {
 }
 
 const (
-	sampleTable = "fit_sample" // stage 1's exemplar windows (not a warehouse table)
+	sampleTable = "fit_sample" // stage 1's fitting-sample windows (not a warehouse table)
 	onceShard   = 0            // partition of the tables written once
 )
 
@@ -387,7 +387,7 @@ func (w *Work) checkShard(sh Shard) error {
 	return nil
 }
 
-// Sample is stage 1 for one shard: the exemplar windows of its series, in
+// Sample is stage 1 for one shard: the fitting-sample windows of its series, in
 // series order, to sample/shard=<i>/data.parquet (columns series_index, the
 // series' position in the cohort, and window, its p(p-1)/2 correlations).
 func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress) (*ShardSummary, error) {
@@ -448,7 +448,7 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 	return sum, w.writeMark(stageMark{Stage: "sample", Shard: sh.I, Series: sum.Series, Rows: sum.Rows, Seconds: sum.Seconds})
 }
 
-// readSample pools the exemplars of every shard in shard order, that is in
+// readSample pools the fitting-sample windows of every shard in shard order, that is in
 // series order, as stage 1 of Run does.
 func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) {
 	marks := make([]*stageMark, w.Manifest.Shards)
@@ -504,7 +504,7 @@ func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) 
 	return compute.Matrix32{Rows: rows, Cols: D, Data: pool}, nil
 }
 
-// Fit is stage 2, once: the exemplars of every shard pooled in series
+// Fit is stage 2, once: the fitting-sample windows of every shard pooled in series
 // order and capped exactly as in Run, then the elbow scan or fixed k; or,
 // with from, the stored states of an earlier analysis (no sample stage is
 // needed then). It writes the elbow and state_centroids tables.

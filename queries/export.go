@@ -36,7 +36,7 @@ var units = map[string]string{
 	"excluded_inputs.path": "path", "excluded_inputs.reason": "text",
 	"regions.region_index": "index (from 1)", "regions.column_index": "index (from 1)",
 	"regions.region_name": "text", "regions.dropped": "true/false",
-	"elbow.k": "count (states)", "elbow.wcss": "sum of k-means distances (squared correlation units for sqeuclidean)",
+	"elbow.k": "count (states)", "elbow.wcss": "sum of k-means distances (squared correlation units for euclidean)",
 	"elbow.chosen": "true/false", "elbow.chord_pick": "true/false", "elbow.second_diff_pick": "true/false",
 	"state": "state number (from 1)", "state_centroids.i": "region_index", "state_centroids.j": "region_index",
 	"state_centroids.weight":      "correlation r (Fisher z when fisher_z was on)",

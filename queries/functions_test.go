@@ -51,7 +51,7 @@ func queryFloat(t *testing.T, conn *sql.Conn, q string, args ...any) float64 {
 
 func binom(n, k int) *big.Int { return new(big.Int).Binomial(int64(n), int64(k)) }
 
-// Gnedenko and Korolyuk (1951), quoted in METHODS section 6: for m = n = q,
+// Gnedenko and Korolyuk (1951), quoted in docs/methods.md §6: for m = n = q,
 // P(D >= k/q) = 2 sum_{j>=1} (-1)^(j+1) C(2q, q-jk) / C(2q, q), evaluated
 // here in exact rational arithmetic (math/big).
 func gnedenkoKorolyuk(q, k int) float64 {
@@ -84,7 +84,7 @@ func TestKSPValueExactGnedenkoKorolyuk(t *testing.T) {
 
 // bruteKS enumerates every choice of which m of the m+n ordered positions
 // belong to sample A (all orderings equally likely under the null,
-// METHODS section 6), and returns the distinct attainable m*n*D values and
+// docs/methods.md §6), and returns the distinct attainable m*n*D values and
 // for each the number of orderings with D at least that large.
 func bruteKS(m, n int) (gaps []int, tail map[int]*big.Int, total *big.Int) {
 	counts := map[int]int64{}
@@ -135,8 +135,8 @@ func bruteKS(m, n int) (gaps []int, tail map[int]*big.Int, total *big.Int) {
 }
 
 // Unequal sizes: every attainable D of small samples against a brute-force
-// enumeration of all C(m+n, m) orderings (the definition in METHODS
-// section 6, computed without the lattice recursion). Values of d between
+// enumeration of all C(m+n, m) orderings (the definition in docs/methods.md
+// §6, computed without the lattice recursion). Values of d between
 // two attainable values must give the tail of the next attainable one.
 func TestKSPValueExactBruteForce(t *testing.T) {
 	conn := memConn(t)
@@ -185,7 +185,7 @@ func TestKSPValueExactOneSampleLimit(t *testing.T) {
 	}
 }
 
-// Kolmogorov's Q at the table values quoted in METHODS section 6 (from
+// Kolmogorov's Q at the table values quoted in docs/methods.md §6 (from
 // memory of the standard table): m = n = 50 gives lambda = 5 d. The table
 // gives lambda to 4 decimals; half a unit there moves Q by up to
 // 0.5e-4 |Q'(lambda)| < 2.5e-5, about 3e-4 of the smallest relative scale
@@ -294,7 +294,7 @@ func listLiteral(x []float64) string {
 
 // Graph filtration events against Kruskal's algorithm coded here (edges by
 // descending weight, union-find): the tree weights are the beta0 events,
-// the rest the beta1 events (METHODS section 5).
+// the rest the beta1 events (docs/methods.md §5).
 func TestGraphFiltrationEventsKruskal(t *testing.T) {
 	conn := memConn(t)
 	rng := rand.New(rand.NewPCG(3, 4))

@@ -28,8 +28,8 @@ func stageCommand() *cli.Command {
 		Usage: "run ingest as separate steps over shards of the cohort, for a scheduler (Slurm array jobs)",
 		Description: "The stages of 'topostate ingest', one process each, exchanging Parquet files in a work folder:\n\n" +
 			"  plan     once       validate the whole cohort, write the manifest (options, series, checksums)\n" +
-			"  sample   per shard  exemplar windows of the shard's series\n" +
-			"  fit      once       elbow scan and k-means on the pooled exemplars (or --states-from)\n" +
+			"  sample   per shard  fitting-sample windows of the shard's series (--fit-sample)\n" +
+			"  fit      once       elbow scan and k-means on the pooled fitting sample (or --states-from)\n" +
 			"  compute  per shard  states, dwell times, transitions, Betti curves and events\n" +
 			"  merge    once       every table into the warehouse in one transaction\n\n" +
 			"The same seed gives the same rows as a single 'topostate ingest', whatever the number of shards.\n" +
@@ -66,7 +66,7 @@ func stageCommand() *cli.Command {
 			},
 			{
 				Name:  "sample",
-				Usage: "stage 1 for one shard: the exemplar windows its series contribute to the fit",
+				Usage: "stage 1 for one shard: the fitting-sample windows its series contribute to the fit",
 				Flags: []cli.Flag{work, shard, workers, quiet},
 				Action: func(c *cli.Context) error {
 					w, sh, err := openShard(c)
@@ -78,13 +78,13 @@ func stageCommand() *cli.Command {
 					if err != nil {
 						return err
 					}
-					fmt.Fprintf(c.App.Writer, "shard %s: %d series, %d exemplar windows (%.1fs)\n", s.Shard, s.Series, s.Rows["fit_sample"], s.Seconds)
+					fmt.Fprintf(c.App.Writer, "shard %s: %d series, %d fitting-sample windows (%.1fs)\n", s.Shard, s.Series, s.Rows["fit_sample"], s.Seconds)
 					return nil
 				},
 			},
 			{
 				Name:  "fit",
-				Usage: "stage 2, once: fit the states on the exemplars of every shard (or reuse an analysis's states)",
+				Usage: "stage 2, once: fit the states on the fitting-sample windows of every shard (or reuse an analysis's states)",
 				Flags: []cli.Flag{work, workers, quiet,
 					&cli.StringFlag{Name: "states-from", Usage: "reuse the states of analysis `NAME` (needs --states-db); the sample stage is then not needed"},
 					&cli.StringFlag{Name: "states-db", Usage: "warehouse `FILE` holding the --states-from analysis"},

@@ -558,7 +558,7 @@ func printResult(w io.Writer, r result) {
 	fmt.Fprintln(tw, "phase\twall s")
 	names := map[string]string{
 		"validate":       "validate (find, parse, check every file)",
-		"sample windows": "sample windows (parse, windows, exemplars)",
+		"sample windows": "sample windows (parse, windows, variance peaks)",
 		"fit states":     "fit states (k-means, elbow)",
 		"subjects":       "subjects (parse, windows, assign, dynamics, Betti)",
 		"write":          "write (rows into DuckDB)",

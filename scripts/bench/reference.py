@@ -9,7 +9,7 @@ recovery:
   1. read every series (numpy.loadtxt), centre and scale each region;
   2. sliding-window Pearson correlations (window w, step s) as one batched
      matrix product per series, upper triangle as float32;
-  3. exemplars (local maxima of the window variance), at most a fair share
+  3. variance-peak windows (local maxima of the window variance), at most a fair share
      per series (2 * fit_windows / series, uniform), then a uniform cap;
   4. k-means (scikit-learn, k-means++, n_init restarts, max_iter) for
      k = kmin..kmax; the elbow by the largest distance from the chord of the
@@ -166,7 +166,7 @@ def main():
     phases = {}
     t_all = time.perf_counter()
 
-    # 1-3: read, windows, exemplars.
+    # 1-3: read, windows, variance peaks.
     t = time.perf_counter()
     share = max(1, (2 * a.fit_windows + nser - 1) // nser)
     pool, p, total = [], None, 0

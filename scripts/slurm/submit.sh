@@ -33,7 +33,7 @@
 #  sample   260-290 MB per shard, nearly independent of its size (rows go
 #           to Parquet every 16 MB of values): about 200 MB plus one
 #           series' windows per worker. 1.0-1.5 s per 16 series.
-#  fit      the one large job: the pooled exemplars, R rows x D x 4 bytes
+#  fit      the one large job: the pooled fitting sample, R rows x D x 4 bytes
 #           (R = 12,745 here: 340 MB; at most about 2 x --fit-windows rows,
 #           1.07 GB for p = 116 and the default 20,000), about 2.8 times that
 #           at the peak with k-means' work arrays: 960 MB here, so 4G covers

@@ -222,9 +222,9 @@ var settingMeaning = map[string]string{
 	"restarts":          "k-means restarts; the lowest within-cluster sum of squares is kept",
 	"max_iter":          "k-means iterations at most",
 	"seed":              "random seed of sampling and k-means",
-	"distance":          "k-means distance",
+	"distance":          "k-means distance: euclidean (squared Euclidean, means) or manhattan (L1, medians)",
 	"fit_windows":       "most windows used to fit the states",
-	"exemplars":         "states fitted on windows at peaks of window variance",
+	"fit_sample":        "windows the states were fitted on: peaks (local maxima of each series' window variance) or all",
 	"grid":              "Betti-curve thresholds lo:hi:n, correlation scale",
 	"on_bad_subject":    "a series with problems stops the run (fail) or is left out (skip)",
 	"constant_region":   "a constant region stops the run (fail) or is dropped everywhere (drop)",
@@ -268,9 +268,28 @@ func settings(text string) ([]Setting, error) {
 		case nil:
 			val = "null"
 		}
+		key, val = currentSetting(key, val)
 		out = append(out, Setting{Key: key, Value: val, Meaning: settingMeaning[key]})
 	}
 	return out, nil
+}
+
+// currentSetting shows a setting stored by an older analysis under its
+// current name and value: the boolean fitting-sample key as fit_sample
+// (true: peaks, false: all) and the older distance names as euclidean and
+// manhattan, the way ingest reads them (ingest.Options.UnmarshalJSON).
+func currentSetting(key, val string) (string, string) {
+	switch {
+	case key == "exempl"+"ars" && val == "true":
+		return "fit_sample", "peaks"
+	case key == "exempl"+"ars" && val == "false":
+		return "fit_sample", "all"
+	case key == "distance" && val == "sqeuclidean":
+		return key, "euclidean"
+	case key == "distance" && val == "cityblock":
+		return key, "manhattan"
+	}
+	return key, val
 }
 
 func quoteIdent(s string) string { return `"` + strings.ReplaceAll(s, `"`, `""`) + `"` }
