@@ -30,8 +30,22 @@ type CohortSpec struct {
 	// Offset is a constant added to every region (a scanner-like baseline,
 	// e.g. 1000); 0 means none.
 	Offset float64
-	Seed   uint64
+	// Autocorr is phi, the lag-1 autocorrelation (per time point) of the
+	// AR(1) latent factors z_t = phi z_{t-1} + sqrt(1 - phi^2) u_t, in
+	// [0, 1); 0 means DefaultAutocorr. White turns the autocorrelation off
+	// (phi = 0: time points independent given the state, the generator of
+	// earlier versions). docs/methods.md §11.
+	Autocorr float64
+	White    bool
+	Seed     uint64
 }
+
+// DefaultAutocorr is the default lag-1 autocorrelation phi of the latent
+// AR(1) factors: our own choice, a moderate value between white noise and
+// the strongly smoothed slow signal of resting-state recordings, so that a
+// window of 30-60 time points still holds several effectively independent
+// draws (docs/methods.md §11).
+const DefaultAutocorr = 0.5
 
 // SimSubject is one generated subject.
 type SimSubject struct {
@@ -68,6 +82,8 @@ func (s CohortSpec) withDefaults() (CohortSpec, error) {
 		return s, fmt.Errorf("compute: cohort noise %v must be >= 0", s.Noise)
 	case math.IsNaN(s.Offset) || math.IsInf(s.Offset, 0):
 		return s, fmt.Errorf("compute: cohort offset %v must be finite", s.Offset)
+	case !(s.Autocorr >= 0 && s.Autocorr < 1):
+		return s, fmt.Errorf("compute: cohort autocorrelation %v must be in [0, 1)", s.Autocorr)
 	}
 	if s.TR == 0 {
 		s.TR = defaultTR
@@ -77,6 +93,11 @@ func (s CohortSpec) withDefaults() (CohortSpec, error) {
 	}
 	if s.Noise == 0 {
 		s.Noise = defaultNoise
+	}
+	if s.White {
+		s.Autocorr = 0
+	} else if s.Autocorr == 0 {
+		s.Autocorr = DefaultAutocorr
 	}
 	return s, nil
 }
@@ -154,15 +175,24 @@ func StateCorrelation(spec CohortSpec, k int) ([]float64, error) {
 //     with probability q (Stickiness; group B, every second subject, uses
 //     min(q + GroupEffect, 0.999)), otherwise move to one of the other
 //     States - 1 states uniformly;
-//   - at each time point y_t = L_{s_t} z_t + Noise e_t + Offset, with z_t and
-//     e_t independent standard normal p-vectors and L_k the Cholesky factor
+//   - at each time point y_t = L_{s_t} z_t + Noise e_t + Offset, with e_t
+//     independent standard normal p-vectors (white measurement noise), z_t
+//     p independent stationary AR(1) series with unit variance,
+//     z_0 = u_0, z_t = phi z_{t-1} + sqrt(1 - phi^2) u_t (u_t standard
+//     normal; phi = Autocorr, 0 if White; lag-h autocorrelation phi^h: Box,
+//     Jenkins & Reinsel, Time Series Analysis, ch. 3, from memory), and L_k the Cholesky factor
 //     (gonum mat) of the latent correlation of state k (see
 //     StateCorrelation): regions split into modules with their own layout per
 //     state, high correlation within a module, a shared weak background
 //     between modules.
 //
-// Time points are independent given the state, so the correlation over any
-// stretch of state k tends to StateCorrelation(spec, k).
+// Because z_t has identity covariance at every t whatever the state, the
+// correlation over any stretch of state k tends to StateCorrelation(spec,
+// k); with White the time points are independent given the state. With
+// States = 1 (or GroupEffect = 0) the groups are exchangeable; the state
+// layouts depend on (Seed, k) only, never on the group, so GroupEffect
+// changes dwell times and nothing else (the null kinds of docs/methods.md
+// §12).
 func SimulateCohort(spec CohortSpec) ([]SimSubject, error) {
 	s, err := spec.withDefaults()
 	if err != nil {
@@ -187,6 +217,8 @@ func SimulateCohort(spec CohortSpec) ([]SimSubject, error) {
 	}
 	out := make([]SimSubject, s.Subjects)
 	z := make([]float64, p)
+	phi := s.Autocorr
+	innov := math.Sqrt(1 - phi*phi)
 	for i := range out {
 		r := rand.New(rand.NewPCG(s.Seed, uint64(i)))
 		stick, group := s.Stickiness, "A"
@@ -210,7 +242,11 @@ func SimulateCohort(spec CohortSpec) ([]SimSubject, error) {
 		y := NewSeries(T, p)
 		for t := 0; t < T; t++ {
 			for j := range z {
-				z[j] = r.NormFloat64()
+				if t == 0 {
+					z[j] = r.NormFloat64() // stationary start: unit variance
+				} else {
+					z[j] = phi*z[j] + innov*r.NormFloat64()
+				}
 			}
 			f := factors[truth[t]]
 			row := y.Data[t*p : (t+1)*p]

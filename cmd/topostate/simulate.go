@@ -18,6 +18,10 @@ func simulateCommand() *cli.Command {
 	return &cli.Command{
 		Name:  "simulate",
 		Usage: "write a synthetic cohort (invented data with known states) in the input layout",
+		Description: "Null cohorts for checking false-positive rates (docs/methods.md §12):\n" +
+			"   nothing differs:         --group-effect 0 (the default)\n" +
+			"   only dwell times differ: --group-effect 0.02 (identical state networks in both groups)\n" +
+			"   no states at all:        --states 1 (one stationary process)",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "`FOLDER` to write the cohort into"},
 			&cli.IntFlag{Name: "subjects", Value: 20, Usage: "number of subjects (alternating groups A and B)"},
@@ -26,9 +30,10 @@ func simulateCommand() *cli.Command {
 			&cli.IntFlag{Name: "states", Value: 3, Usage: "latent connectivity states"},
 			&cli.Float64Flag{Name: "tr", Value: 2.0, Usage: "repetition time written to the sidecars, seconds"},
 			&cli.Float64Flag{Name: "stickiness", Value: 0.97, Usage: "per-time-point probability of staying in a state"},
-			&cli.Float64Flag{Name: "group-effect", Usage: "added to group B's stickiness (longer dwell times)"},
+			&cli.Float64Flag{Name: "group-effect", Usage: "added to group B's stickiness (longer dwell times; the state networks stay identical between groups)"},
 			&cli.Float64Flag{Name: "noise", Value: 0.5, Usage: "measurement noise relative to the signal"},
 			&cli.Float64Flag{Name: "offset", Value: 1000, Usage: "constant scanner-like offset added to every region"},
+			&cli.Float64Flag{Name: "autocorr", Value: compute.DefaultAutocorr, Usage: "lag-1 autocorrelation of the latent AR(1) signals per time point, in [0, 1); 0 = independent time points"},
 			&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "seed; same seed, same cohort"},
 			// For the benchmark harness's state-recovery check (scripts/bench).
 			&cli.BoolFlag{Name: "truth", Hidden: true, Usage: "also write truth.tsv: the latent state of every subject at every time point"},
@@ -41,6 +46,7 @@ func simulateCommand() *cli.Command {
 				Subjects: c.Int("subjects"), Regions: c.Int("regions"), Timepoints: c.Int("timepoints"),
 				States: c.Int("states"), TR: c.Float64("tr"), Stickiness: c.Float64("stickiness"),
 				GroupEffect: c.Float64("group-effect"), Noise: c.Float64("noise"), Offset: c.Float64("offset"),
+				Autocorr: c.Float64("autocorr"), White: c.Float64("autocorr") == 0,
 				Seed: c.Uint64("seed"),
 			}
 			groups := map[string]string{"A": "A", "B": "B"}
@@ -53,8 +59,8 @@ func simulateCommand() *cli.Command {
 					return err
 				}
 			}
-			fmt.Fprintf(c.App.Writer, "wrote %d synthetic subjects (%d regions x %d time points, %d states) to %s\n",
-				spec.Subjects, spec.Regions, spec.Timepoints, spec.States, c.String("out"))
+			fmt.Fprintf(c.App.Writer, "wrote %d synthetic subjects (%d regions x %d time points, %d states, latent lag-1 autocorrelation %g) to %s\n",
+				spec.Subjects, spec.Regions, spec.Timepoints, spec.States, c.Float64("autocorr"), c.String("out"))
 			return nil
 		},
 	}
