@@ -57,20 +57,34 @@ func pickFirst(idx []int, k int, rng *rand.Rand) {
 	}
 }
 
-// PermutationTestMean tests for a difference in means between two groups by
-// permuting group labels (docs/methods.md §7). The statistic is
-// T = mean(a) - mean(b); each of nPerm permutations draws a uniformly random
-// relabelling of the pooled values into groups of len(a) and len(b) from
-// rng, and the two-sided p-value is (Phipson and Smyth, 2010)
+// PermutationTestMean is the studentised permutation test of equal means
+// (docs/methods.md §7): the statistic is Welch's
+//
+//	T = (mean(a) - mean(b)) / sqrt(s_a^2/m + s_b^2/n)
+//
+// (s^2 the unbiased variances, m = len(a), n = len(b)), recomputed after
+// each of nPerm uniformly random relabellings of the pooled values into
+// groups of m and n, and the two-sided p-value is (Phipson and Smyth, 2010)
 //
 //	p = (1 + #{|T*| >= |T|}) / (1 + nPerm),
 //
-// so p is never 0. Float ties are judged with the tolerance described at
-// permRelTol. It returns an error when a group is empty, a value is NaN or
-// infinite, nPerm < 1, or rng is nil.
+// so p is never 0. Studentising makes the permutation test valid for equal
+// means even when the variances differ (Janssen, 1997; Chung and Romano,
+// 2013); the raw mean difference under relabelling tests only the stronger
+// hypothesis that the two samples are exchangeable.
+//
+// The draws do not depend on which group is named first nor on the order of
+// the values inside a group: both groups are sorted and put in a canonical
+// order (canonicalGroups) before rng is used, so swapping a and b gives the
+// same p and the statistic with its sign flipped. Float ties are judged with
+// the tolerance described at permRelTol. A relabelling whose two groups are
+// both constant has T* = +-Inf (counted as extreme) or, with equal means,
+// NaN (not counted). It returns an error when a group has fewer than 2
+// values, a value is NaN or infinite, both observed variances are 0,
+// nPerm < 1, or rng is nil.
 func PermutationTestMean(a, b []float64, nPerm int, rng *rand.Rand) (TestResult, error) {
-	if len(a) == 0 || len(b) == 0 {
-		return TestResult{}, fmt.Errorf("compute: permutation test needs two non-empty groups, got sizes %d and %d", len(a), len(b))
+	if len(a) < 2 || len(b) < 2 {
+		return TestResult{}, fmt.Errorf("compute: studentised permutation test needs at least 2 values per group, got sizes %d and %d", len(a), len(b))
 	}
 	if err := checkPermArgs(nPerm, rng); err != nil {
 		return TestResult{}, err
@@ -81,22 +95,39 @@ func PermutationTestMean(a, b []float64, nPerm int, rng *rand.Rand) (TestResult,
 	if err := checkFinite("group B", b); err != nil {
 		return TestResult{}, err
 	}
-	pooled := append(slices.Clone(a), b...)
-	m, n := len(a), len(b)
-	var total, scale float64
-	for _, x := range pooled {
-		total += x
-		scale = max(scale, math.Abs(x))
+	x, y, swapped := canonicalGroups(a, b)
+	pooled := append(slices.Clone(x), y...)
+	m, n := len(x), len(y)
+	// Centre on the pooled mean so the sums of squares below lose little to
+	// cancellation.
+	var centre float64
+	for _, v := range pooled {
+		centre += v
 	}
-	stat := func(sumA float64) float64 {
-		return sumA/float64(m) - (total-sumA)/float64(n)
+	centre /= float64(len(pooled))
+	var total, totalSq float64
+	for i := range pooled {
+		pooled[i] -= centre
+		total += pooled[i]
+		totalSq += pooled[i] * pooled[i]
 	}
-	var sumA float64
-	for _, x := range a {
-		sumA += x
+	fm, fn := float64(m), float64(n)
+	welch := func(sA, qA float64) float64 {
+		sB, qB := total-sA, totalSq-qA
+		va := max(0, (qA-sA*sA/fm)/(fm-1))
+		vb := max(0, (qB-sB*sB/fn)/(fn-1))
+		return (sA/fm - sB/fn) / math.Sqrt(va/fm+vb/fn)
 	}
-	tObs := stat(sumA)
-	threshold := math.Abs(tObs) - (permRelTol*math.Abs(tObs) + permScaleTol*scale)
+	var sA, qA float64
+	for _, v := range pooled[:m] {
+		sA += v
+		qA += v * v
+	}
+	tObs := welch(sA, qA)
+	if math.IsNaN(tObs) || math.IsInf(tObs, 0) {
+		return TestResult{}, errors.New("compute: studentised permutation test: both groups have zero variance")
+	}
+	threshold := math.Abs(tObs) * (1 - permRelTol)
 	idx := make([]int, len(pooled))
 	for i := range idx {
 		idx[i] = i
@@ -104,15 +135,49 @@ func PermutationTestMean(a, b []float64, nPerm int, rng *rand.Rand) (TestResult,
 	count := 0
 	for range nPerm {
 		pickFirst(idx, m, rng)
-		var s float64
+		var s, q float64
 		for _, i := range idx[:m] {
 			s += pooled[i]
+			q += pooled[i] * pooled[i]
 		}
-		if math.Abs(stat(s)) >= threshold {
+		if math.Abs(welch(s, q)) >= threshold {
 			count++
 		}
 	}
+	if swapped {
+		tObs = -tObs
+	}
 	return TestResult{Statistic: tObs, PValue: float64(1+count) / float64(1+nPerm)}, nil
+}
+
+// canonicalGroups returns copies of a and b sorted ascending and put in a
+// canonical order: the smaller group first, and between groups of one size
+// the lexicographically smaller sorted sample first. swapped reports that
+// b came first. Permutation tests draw their relabellings for the canonical
+// pair, so the same contrast gets the same p-value whichever group is named
+// first and however the values are listed (issue: a SQL list() has no
+// guaranteed order).
+func canonicalGroups(a, b []float64) (x, y []float64, swapped bool) {
+	x, y = slices.Clone(a), slices.Clone(b)
+	slices.Sort(x)
+	slices.Sort(y)
+	if len(y) < len(x) || (len(y) == len(x) && slices.Compare(y, x) < 0) {
+		return y, x, true
+	}
+	return x, y, false
+}
+
+// canonicalCurveGroups is canonicalGroups for groups of curves: each group's
+// curves sorted lexicographically, then the smaller group (or, at equal
+// sizes, the lexicographically smaller list of curves) first.
+func canonicalCurveGroups(a, b [][]float64) (x, y [][]float64) {
+	x, y = slices.Clone(a), slices.Clone(b)
+	slices.SortFunc(x, slices.Compare)
+	slices.SortFunc(y, slices.Compare)
+	if len(y) < len(x) || (len(y) == len(x) && slices.CompareFunc(y, x, slices.Compare) < 0) {
+		return y, x
+	}
+	return x, y
 }
 
 // CurveDistance returns the sup-norm distance max_g |a[g] - b[g]| of two
@@ -140,7 +205,10 @@ func CurveDistance(a, b []float64) (float64, error) {
 // T = max over the grid of |mean curve of a - mean curve of b|, permuting
 // subject labels nPerm times with rng; p = (1 + #{T* >= T}) / (1 + nPerm)
 // (Phipson and Smyth, 2010), with float ties judged as described at
-// permRelTol. The returned Statistic is T. It returns an error when a group
+// permRelTol. The returned Statistic is T. As in PermutationTestMean, the
+// relabellings are drawn for the groups in canonical order
+// (canonicalCurveGroups), so swapping a and b or listing the subjects in
+// another order gives the same p. It returns an error when a group
 // is empty, the curves are empty or of different lengths, a value is NaN or
 // infinite, nPerm < 1, or rng is nil.
 func PermutationTestCurves(a, b [][]float64, nPerm int, rng *rand.Rand) (TestResult, error) {
@@ -150,6 +218,7 @@ func PermutationTestCurves(a, b [][]float64, nPerm int, rng *rand.Rand) (TestRes
 	if err := checkPermArgs(nPerm, rng); err != nil {
 		return TestResult{}, err
 	}
+	a, b = canonicalCurveGroups(a, b)
 	pooled := append(slices.Clone(a), b...)
 	g := len(pooled[0])
 	if g == 0 {

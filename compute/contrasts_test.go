@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"strings"
 	"testing"
 
@@ -40,12 +41,22 @@ func forEachSplit(m, n int, f func(inA []bool)) {
 	rec(0, m)
 }
 
+// welchT is Welch's t of a against b computed with gonum's
+// stat.MeanVariance (the unbiased variance), an outside reference for the
+// statistic of PermutationTestMean.
+func welchT(a, b []float64) float64 {
+	ma, va := stat.MeanVariance(a, nil)
+	mb, vb := stat.MeanVariance(b, nil)
+	return (ma - mb) / math.Sqrt(va/float64(len(a))+vb/float64(len(b)))
+}
+
 // The Monte Carlo permutation p-value against the exact permutation
 // p-value obtained by enumerating every relabelling (the definition of the
-// permutation distribution; Phipson and Smyth 2010 for the (1+b)/(1+N)
-// estimator): with N permutations drawn at random, p_hat has mean
-// (1 + N p_exact)/(1 + N) and standard deviation below sqrt(p(1-p)/N);
-// the check allows 5 standard deviations (a fixed seed, so deterministic).
+// permutation distribution of the studentised statistic, Janssen 1997;
+// Phipson and Smyth 2010 for the (1+b)/(1+N) estimator): with N
+// permutations drawn at random, p_hat has mean (1 + N p_exact)/(1 + N) and
+// standard deviation below sqrt(p(1-p)/N); the check allows 5 standard
+// deviations (a fixed seed, so deterministic).
 func TestPermutationTestMeanEnumeration(t *testing.T) {
 	rng := rand.New(rand.NewPCG(21, 22))
 	for _, c := range []struct {
@@ -60,22 +71,21 @@ func TestPermutationTestMeanEnumeration(t *testing.T) {
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			pooled := append(append([]float64{}, c.a...), c.b...)
-			mean := func(inA []bool, want bool) float64 {
-				var s float64
-				var k int
-				for i, x := range pooled {
-					if inA[i] == want {
-						s += x
-						k++
+			split := func(inA []bool) (x, y []float64) {
+				for i, v := range pooled {
+					if inA[i] {
+						x = append(x, v)
+					} else {
+						y = append(y, v)
 					}
 				}
-				return s / float64(k)
+				return x, y
 			}
-			obs := math.Abs(stat.Mean(c.a, nil) - stat.Mean(c.b, nil))
+			obs := math.Abs(welchT(c.a, c.b))
 			var hit, total int
 			forEachSplit(len(c.a), len(c.b), func(inA []bool) {
 				total++
-				if math.Abs(mean(inA, true)-mean(inA, false)) >= obs-1e-12 {
+				if math.Abs(welchT(split(inA))) >= obs*(1-1e-9) {
 					hit++
 				}
 			})
@@ -90,10 +100,137 @@ func TestPermutationTestMeanEnumeration(t *testing.T) {
 			if math.Abs(res.PValue-want) > 5*sd {
 				t.Errorf("p = %v, exact permutation p %v (%d/%d) gives E[p] = %v, sd %.2g", res.PValue, exact, hit, total, want, sd)
 			}
-			if want := stat.Mean(c.a, nil) - stat.Mean(c.b, nil); math.Abs(res.Statistic-want) > 1e-12 {
-				t.Errorf("T = %v, mean difference %v", res.Statistic, want)
+			if want := welchT(c.a, c.b); math.Abs(res.Statistic-want) > 1e-12*max(1, math.Abs(want)) {
+				t.Errorf("T = %v, Welch t %v", res.Statistic, want)
 			}
 		})
+	}
+}
+
+// rawDiffPermP is the permutation test of the raw mean difference (the
+// statistic perm_test_mean used before it was studentised), kept here only
+// to show that the false-positive check below can fail: it tests
+// exchangeability, not equal means, and rejects far too often when the
+// smaller group has the larger variance.
+func rawDiffPermP(a, b []float64, nPerm int, rng *rand.Rand) float64 {
+	pooled := append(append([]float64{}, a...), b...)
+	obs := math.Abs(stat.Mean(a, nil) - stat.Mean(b, nil))
+	idx := make([]int, len(pooled))
+	for i := range idx {
+		idx[i] = i
+	}
+	count := 0
+	x, y := make([]float64, len(a)), make([]float64, len(b))
+	for range nPerm {
+		rng.Shuffle(len(idx), func(i, j int) { idx[i], idx[j] = idx[j], idx[i] })
+		for k, i := range idx {
+			if k < len(a) {
+				x[k] = pooled[i]
+			} else {
+				y[k-len(a)] = pooled[i]
+			}
+		}
+		if math.Abs(stat.Mean(x, nil)-stat.Mean(y, nil)) >= obs*(1-1e-9) {
+			count++
+		}
+	}
+	return float64(1+count) / float64(1+nPerm)
+}
+
+// binomialUpper returns the smallest k with P(X <= k) >= 1 - tail for
+// X ~ Binomial(n, p), from gonum's stat/distuv: a rejection count above it
+// has probability below tail when the true rejection rate is p.
+func binomialUpper(n int, p, tail float64) int {
+	d := distuv.Binomial{N: float64(n), P: p}
+	for k := 0; k <= n; k++ {
+		if d.CDF(float64(k)) >= 1-tail {
+			return k
+		}
+	}
+	return n
+}
+
+// False-positive rate of the studentised permutation test where the means
+// are equal but the variances are not: SD 3 in a group of 8 against SD 1 in
+// a group of 30 (the case of issue 11, where the raw-difference permutation
+// rejected 27.7% at alpha 0.05). 2000 null data sets, 199 relabellings
+// each, fixed seeds (deterministic, cannot flake). Studentised permutation
+// tests are asymptotically exact for equal means under unequal variances
+// (Janssen 1997; Chung and Romano 2013, Theorem 2.1); at these sizes we
+// allow the rejection count up to the 0.999 binomial quantile of a test
+// whose true rate is 0.06 (0.05 plus 0.01 for small-sample error, common
+// practice, no source). The raw-difference version must exceed the same
+// bound, which shows the check can fail.
+func TestPermutationTestMeanUnequalVariances(t *testing.T) {
+	const reps, nPerm, alpha = 2000, 199, 0.05
+	bound := binomialUpper(reps, 0.06, 0.001)
+	var rejStud, rejRaw int
+	for r := range reps {
+		rng := rand.New(rand.NewPCG(1101, uint64(r)))
+		a := normals(rng, 8, 0)
+		for i := range a {
+			a[i] *= 3
+		}
+		b := normals(rng, 30, 0)
+		res, err := PermutationTestMean(a, b, nPerm, rand.New(rand.NewPCG(1102, uint64(r))))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if res.PValue <= alpha {
+			rejStud++
+		}
+		if r < 500 && rawDiffPermP(a, b, nPerm, rand.New(rand.NewPCG(1103, uint64(r)))) <= alpha {
+			rejRaw++
+		}
+	}
+	t.Logf("studentised: %d/%d rejections (%.1f%%), bound %d; raw difference: %d/500", rejStud, reps, 100*float64(rejStud)/reps, bound, rejRaw)
+	if rejStud > bound {
+		t.Errorf("studentised permutation test rejects %d of %d null data sets at alpha %v, above the bound %d", rejStud, reps, alpha, bound)
+	}
+	if rawBound := binomialUpper(500, 0.06, 0.001); rejRaw <= rawBound {
+		t.Errorf("raw-difference permutation rejected %d/500, not above %d: the check cannot tell the two apart", rejRaw, rawBound)
+	}
+}
+
+// Swapping the groups, or listing the values in another order, gives the
+// same p-value and the statistic with its sign flipped (issue 14 item 8:
+// the seed stream must not depend on which group is named first).
+func TestPermutationOrderInvariant(t *testing.T) {
+	rng := rand.New(rand.NewPCG(31, 32))
+	for _, c := range []struct{ m, n int }{{9, 11}, {10, 10}, {12, 7}} {
+		a, b := normals(rng, c.m, 0.5), normals(rng, c.n, 0)
+		ab, err := PermutationTestMean(a, b, 999, rand.New(rand.NewPCG(5, 0)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		ba, err := PermutationTestMean(b, a, 999, rand.New(rand.NewPCG(5, 0)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		ar := slices.Clone(a)
+		slices.Reverse(ar)
+		shuffled, err := PermutationTestMean(ar, b, 999, rand.New(rand.NewPCG(5, 0)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if ab.PValue != ba.PValue || ab.PValue != shuffled.PValue {
+			t.Errorf("%dv%d: p = %v (a,b), %v (b,a), %v (a reversed)", c.m, c.n, ab.PValue, ba.PValue, shuffled.PValue)
+		}
+		if math.Abs(ab.Statistic+ba.Statistic) > 1e-12*math.Abs(ab.Statistic) {
+			t.Errorf("%dv%d: T = %v and %v, want opposite signs", c.m, c.n, ab.Statistic, ba.Statistic)
+		}
+		ca, cb := randomCurves(rng, c.m, 15, 0.3), randomCurves(rng, c.n, 15, 0)
+		cab, err := PermutationTestCurves(ca, cb, 999, rand.New(rand.NewPCG(6, 0)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		cba, err := PermutationTestCurves(cb, ca, 999, rand.New(rand.NewPCG(6, 0)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if cab != cba {
+			t.Errorf("%dv%d curves: %v (a,b) vs %v (b,a)", c.m, c.n, cab, cba)
+		}
 	}
 }
 
@@ -177,7 +314,9 @@ func TestPermutationTestStrongEffect(t *testing.T) {
 			}
 		})
 		t.Run(fmt.Sprint("curves/shift=", shift), func(t *testing.T) {
-			a, b := randomCurves(rng, 10, 15, shift), randomCurves(rng, 10, 15, 0)
+			// Twice the shift: the random walks' variance grows to 15 at the
+			// grid's end, where the sup statistic's noise lives.
+			a, b := randomCurves(rng, 10, 15, 2*shift), randomCurves(rng, 10, 15, 0)
 			res, err := PermutationTestCurves(a, b, nPerm, rng)
 			if err != nil {
 				t.Fatal(err)

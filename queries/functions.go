@@ -172,9 +172,13 @@ func Functions() []*Function {
 		{
 			Name:      "perm_test_mean",
 			Signature: "perm_test_mean(a DOUBLE[], b DOUBLE[], n_perm INTEGER, seed BIGINT) -> STRUCT(statistic DOUBLE, pvalue DOUBLE)",
-			Doc: "Two-sided permutation test of mean(a) - mean(b) (the statistic) with n_perm random relabellings; " +
-				"p = (1 + #{|T*| >= |T|}) / (1 + n_perm) (Phipson and Smyth 2010). The relabellings come from " +
-				"math/rand/v2's PCG generator seeded with (seed, 0): the same arguments give the same p.",
+			Doc: "Studentised two-sided permutation test of equal means: the statistic is Welch's t of a against b, " +
+				"recomputed under n_perm random relabellings of whole observations (subjects); " +
+				"p = (1 + #{|T*| >= |T|}) / (1 + n_perm) (Phipson and Smyth 2010). Valid for equal means when the " +
+				"variances differ (Janssen 1997; Chung and Romano 2013). The relabellings come from math/rand/v2's PCG " +
+				"generator seeded with (seed, 0), drawn for the two groups sorted and in a canonical order: the same " +
+				"contrast gives the same p whichever group is named first and in whatever order the values are listed. " +
+				"An error when a group has fewer than 2 values or both variances are 0.",
 			in: []duckdb.TypeInfo{tList, tList, tInteger, tBigint}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE"),
 			fn: func(a []driver.Value) (any, error) {
 				x, y, err := pair(a)
@@ -193,7 +197,8 @@ func Functions() []*Function {
 			Signature: "curve_perm_test(a DOUBLE[][], b DOUBLE[][], n_perm INTEGER, seed BIGINT) -> STRUCT(statistic DOUBLE, pvalue DOUBLE)",
 			Doc: "Permutation test between two groups of curves on one grid (one list per subject): T = max over the " +
 				"grid of |mean curve of a - mean curve of b|, subject labels permuted n_perm times (PCG seeded with " +
-				"(seed, 0)); p = (1 + #{T* >= T}) / (1 + n_perm).",
+				"(seed, 0), drawn for the groups in a canonical order, so swapping a and b gives the same p); " +
+				"p = (1 + #{T* >= T}) / (1 + n_perm).",
 			in: []duckdb.TypeInfo{tListList, tListList, tInteger, tBigint}, out: structOf("statistic", "DOUBLE", "pvalue", "DOUBLE"),
 			fn: func(a []driver.Value) (any, error) {
 				x, err := curves("a", a[0])
@@ -232,15 +237,13 @@ func Functions() []*Function {
 		{
 			Name:      "pearson_test",
 			Signature: "pearson_test(x DOUBLE[], y DOUBLE[]) -> STRUCT(r DOUBLE, t DOUBLE, df DOUBLE, pvalue DOUBLE)",
-			Doc: "Pearson's correlation of paired lists with its t-test: t = r sqrt((n-2)/(1-r^2)), df = n-2, " +
-				"two-sided p. An error when the lengths differ, n < 3 or a list is constant.",
+			Doc: "Pearson's correlation of paired lists (x[i] and y[i] belong to one subject) with its t-test: " +
+				"t = r sqrt((n-2)/(1-r^2)), df = n-2, two-sided p. An error when the lengths differ, an element is " +
+				"NULL, n < 3 or a list is constant. Leave out incomplete pairs with one filter for both lists: " +
+				"list(x ORDER BY id) FILTER (WHERE x IS NOT NULL AND y IS NOT NULL) and the same for y.",
 			in: []duckdb.TypeInfo{tList, tList}, out: structOf("r", "DOUBLE", "t", "DOUBLE", "df", "DOUBLE", "pvalue", "DOUBLE"),
 			fn: func(a []driver.Value) (any, error) {
-				x, err := doubles("x", a[0])
-				if err != nil {
-					return nil, err
-				}
-				y, err := doubles("y", a[1])
+				x, y, err := pairedDoubles(a[0], a[1])
 				if err != nil {
 					return nil, err
 				}
@@ -303,8 +306,38 @@ func checkSizes(m, n int64) error {
 	return nil
 }
 
-// doubles converts a DOUBLE[] argument. A NULL element is an error: dropping
-// it silently would change the sample size.
+// pairedDoubles converts the x and y lists of a paired function. A NULL in
+// either is an error whose advice keeps the pairs together: filtering each
+// list on its own NULLs would shift one list against the other.
+func pairedDoubles(xv, yv driver.Value) (x, y []float64, err error) {
+	lists := [2][]float64{}
+	for k, v := range []driver.Value{xv, yv} {
+		arg := [2]string{"x", "y"}[k]
+		l, ok := v.([]any)
+		if !ok {
+			return nil, nil, fmt.Errorf("argument %s: want DOUBLE[], got %T", arg, v)
+		}
+		out := make([]float64, len(l))
+		for i, e := range l {
+			f, ok := e.(float64)
+			if !ok {
+				if e == nil {
+					return nil, nil, fmt.Errorf("argument %s: element %d is NULL; leave out incomplete pairs with one filter on both lists, "+
+						"list(x ORDER BY id) FILTER (WHERE x IS NOT NULL AND y IS NOT NULL) and the same for y "+
+						"(filtering each list on its own NULLs breaks the pairing)", arg, i+1)
+				}
+				return nil, nil, fmt.Errorf("argument %s: element %d is %T, want DOUBLE", arg, i+1, e)
+			}
+			out[i] = f
+		}
+		lists[k] = out
+	}
+	if len(lists[0]) != len(lists[1]) {
+		return nil, nil, fmt.Errorf("x has %d values and y %d: the lists must be paired, one element per subject in the same order", len(lists[0]), len(lists[1]))
+	}
+	return lists[0], lists[1], nil
+}
+
 // pair decodes the two DOUBLE[] arguments a and b that most functions take.
 func pair(a []driver.Value) (x, y []float64, err error) {
 	if x, err = doubles("a", a[0]); err != nil {
@@ -316,6 +349,8 @@ func pair(a []driver.Value) (x, y []float64, err error) {
 	return x, y, nil
 }
 
+// doubles converts a DOUBLE[] argument. A NULL element is an error: dropping
+// it silently would change the sample size.
 func doubles(arg string, v driver.Value) ([]float64, error) {
 	l, ok := v.([]any)
 	if !ok {

@@ -219,14 +219,16 @@ func TestFunctionsByHand(t *testing.T) {
 	if d := queryFloat(t, conn, `SELECT curve_distance([0, 1, 5], [1, 3, 2])`); d != 3 {
 		t.Errorf("curve_distance = %v, want 3", d)
 	}
-	// Exact two-sided permutation p of mean differences for [1,2,3] vs
-	// [4,5,6]: 2 of the 20 splits are as extreme (by hand); 20,000 random
-	// relabellings must land within 4 standard errors.
+	// Exact two-sided studentised permutation p for [1,2,3] vs [4,5,6]:
+	// Welch's t is -3/sqrt(1/3 + 1/3) = -3.6742 (by hand) and only the 2
+	// fully separated splits of the 20 reach |t| >= 3.67 (by hand; the next,
+	// {1,2,4} vs {3,5,6}, has |t| = 1.87); 20,000 random relabellings must
+	// land within 4 standard errors.
 	if err := conn.QueryRowContext(ctx, `SELECT s.statistic, s.pvalue FROM (SELECT perm_test_mean([1,2,3], [4,5,6], 20000, 7) AS s)`).Scan(&stat, &p); err != nil {
 		t.Fatal(err)
 	}
-	if stat != -3 || math.Abs(p-0.1) > 4*math.Sqrt(0.1*0.9/20000) {
-		t.Errorf("perm_test_mean = %v %v, want -3 and about 0.1", stat, p)
+	if math.Abs(stat+3/math.Sqrt(2.0/3)) > 1e-12 || math.Abs(p-0.1) > 4*math.Sqrt(0.1*0.9/20000) {
+		t.Errorf("perm_test_mean = %v %v, want -3.6742 and about 0.1", stat, p)
 	}
 	// Same for curves: each subject's curve is its value repeated, so the
 	// sup of the mean gap is the absolute mean difference.
@@ -235,6 +237,18 @@ func TestFunctionsByHand(t *testing.T) {
 	}
 	if stat != 3 || math.Abs(p-0.1) > 4*math.Sqrt(0.1*0.9/20000) {
 		t.Errorf("curve_perm_test = %v %v, want 3 and about 0.1", stat, p)
+	}
+	// Issue 14 item 8: the same contrast gives the same p whichever group
+	// is named first (and however a group's values are listed).
+	for _, q := range [][2]string{
+		{`SELECT perm_test_mean([0.3, 1.9, 2.2, 0.8, 1.1], [2.5, 3.1, 1.7, 2.9], 999, 3).pvalue`,
+			`SELECT perm_test_mean([2.9, 1.7, 3.1, 2.5], [1.1, 0.8, 2.2, 1.9, 0.3], 999, 3).pvalue`},
+		{`SELECT curve_perm_test([[0.1, 1.0], [0.5, 1.2], [0.2, 0.4]], [[1.1, 2.0], [0.9, 1.5], [1.4, 1.9]], 999, 3).pvalue`,
+			`SELECT curve_perm_test([[1.4, 1.9], [1.1, 2.0], [0.9, 1.5]], [[0.2, 0.4], [0.1, 1.0], [0.5, 1.2]], 999, 3).pvalue`},
+	} {
+		if p1, p2 := queryFloat(t, conn, q[0]), queryFloat(t, conn, q[1]); p1 != p2 {
+			t.Errorf("swapped groups: p = %v and %v\n%s\n%s", p1, p2, q[0], q[1])
+		}
 	}
 }
 
@@ -412,11 +426,17 @@ func TestFunctionsNullsAndErrors(t *testing.T) {
 		{`SELECT curve_perm_test([[]], [[2.0]], 10, 1)`, "empty curves"},
 		{`SELECT ks_test(['NaN'::DOUBLE], [1.0])`, "NaN"},
 		{`SELECT curve_distance([1.0, 2.0], [1.0])`, "curve_distance: compute: curves on different grids"},
-		{`SELECT perm_test_mean([1.0], [2.0], 0, 1)`, "nPerm >= 1"},
+		{`SELECT perm_test_mean([1.0, 2.0], [2.0, 4.0], 0, 1)`, "nPerm >= 1"},
+		{`SELECT perm_test_mean([1.0], [2.0, 3.0], 10, 1)`, "at least 2 values per group"},
+		{`SELECT perm_test_mean([1.0, 1.0], [2.0, 2.0], 10, 1)`, "zero variance"},
 		{`SELECT curve_perm_test([[1.0, 2.0]], [[2.0]], 10, 1)`, "grid points"},
 		{`SELECT curve_perm_test([[1.0], NULL], [[2.0]], 10, 1)`, "curve 2 is NULL"},
 		{`SELECT welch_t_test([1.0], [1.0, 2.0])`, "at least 2 values"},
 		{`SELECT pearson_test([1.0, 2.0, 3.0], [1.0, 2.0])`, "paired"},
+		// Issue 14 item 9: the advice for a NULL must filter x and y
+		// together, never each list on its own NULLs.
+		{`SELECT pearson_test([1.0, NULL, 3.0, 4.0], [1.0, 2.0, 3.0, 5.0])`, "FILTER (WHERE x IS NOT NULL AND y IS NOT NULL)"},
+		{`SELECT pearson_test([1.0, 2.0, 3.0, 4.0], [1.0, 2.0, NULL, 5.0])`, "argument y: element 3 is NULL"},
 		{`SELECT graph_filtration_events([0.1, 0.2], 0)`, "not p(p-1)/2"},
 		{`SELECT graph_filtration_events([0.1], 2)`, "want 0 or 1"},
 		{`SELECT bh_adjust(1.5, [1.5])`, "not in [0, 1]"},

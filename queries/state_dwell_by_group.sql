@@ -42,7 +42,8 @@ tests AS (
            CASE WHEN len(a) >= 2 AND len(b) >= 2
                  AND (list_stddev_samp(a) > 0 OR list_stddev_samp(b) > 0)
                 THEN welch_t_test(a, b) END AS welch,
-           CASE WHEN len(a) >= 1 AND len(b) >= 1
+           CASE WHEN len(a) >= 2 AND len(b) >= 2
+                 AND (list_stddev_samp(a) > 0 OR list_stddev_samp(b) > 0)
                 THEN perm_test_mean(a, b, getvariable('n_perm')::INTEGER, getvariable('seed') + state) END AS perm
     FROM samples
 )
