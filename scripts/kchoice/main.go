@@ -11,7 +11,7 @@
 // cohorts with `topostate simulate --states k --noise x --seed s` (the
 // command is built first; the data are invented by topostate's own
 // generator) and runs the real ingest path (ingest.IntoFile, default
-// options with --k-rule gap, so one run yields all three picks: the gap
+// options with --k-rule gap --states-min 1, so one run yields all three picks: the gap
 // pick, and the chord and second-difference picks of the same W(k) scan).
 // The uptime load average is printed before and after: the timings depend
 // on the machine and its load.
@@ -118,7 +118,7 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 					return fmt.Errorf("simulate: %v\n%s", err, out)
 				}
 				o := ingest.Defaults()
-				o.Input, o.KRule, o.Workers, o.Seed = dir, "gap", workers, seed
+				o.Input, o.KRule, o.StatesMin, o.Workers, o.Seed = dir, "gap", 1, workers, seed
 				db := filepath.Join(tmp, "w.duckdb")
 				os.Remove(db)
 				sum, err := ingest.IntoFile(context.Background(), db, o, nil)
