@@ -675,11 +675,19 @@ type ElbowPoint struct {
 	WCSS float64
 }
 
-// Elbow is a scanned W(k) curve and the two picks of docs/methods.md §3.
+// Elbow is a scanned W(k) curve and the two picks of docs/methods.md §3,
+// plus, when the caller sets them, the rule that chose k (docs/methods.md
+// §3.x) and the gap statistic.
 type Elbow struct {
 	Points      []ElbowPoint
 	ChordK      int // ChordElbow of the curve
 	SecondDiffK int // SecondDifferenceElbow of the curve
+	// Rule names the rule whose pick was used ("gap", "chord",
+	// "second-diff"); "" when the caller did not choose (ElbowScan leaves it
+	// empty).
+	Rule string `json:",omitempty"`
+	// Gap is the gap statistic over the same k, when it was computed.
+	Gap *Gap `json:",omitempty"`
 }
 
 // ElbowScan fits KMeans for k = kmin..kmax with opt (opt.K is ignored) and

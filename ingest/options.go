@@ -22,10 +22,19 @@ type Options struct {
 	SmoothSD float64 `json:"smooth_sigma"`
 	FisherZ  bool    `json:"fisher_z"`
 
-	States    int `json:"states"` // fixed k; 0: pick by the elbow over StatesMin..StatesMax
+	States    int `json:"states"` // fixed k; 0: pick by KRule over StatesMin..StatesMax
 	StatesMin int `json:"states_min"`
 	StatesMax int `json:"states_max"`
-	Restarts  int `json:"restarts"`
+	// KRule is the rule that picks k from the scan (docs/methods.md §3.x):
+	// "gap" (the gap statistic), "chord" or "second-diff" (the two elbow
+	// rules). An older analysis without the key used "chord".
+	KRule string `json:"k_rule"`
+	// GapReferences is B, the number of uniform reference sets of the gap
+	// statistic; GapWindows caps the fitting windows it uses (a uniform
+	// subsample of the fitting sample when there are more).
+	GapReferences int `json:"gap_references"`
+	GapWindows    int `json:"gap_windows"`
+	Restarts      int `json:"restarts"`
 	// ScanRestarts is the number of restarts per k of the elbow scan; the
 	// picked k then gets the rest up to Restarts. 0 means Restarts.
 	ScanRestarts int    `json:"scan_restarts"`
@@ -61,7 +70,7 @@ type Options struct {
 func Defaults() Options {
 	return Options{
 		Window: 30, Step: 1, Taper: "none", TaperSD: 3,
-		StatesMin: 2, StatesMax: 10, Restarts: 5, MaxIter: 150, Seed: 1,
+		StatesMin: 2, StatesMax: 10, KRule: "chord", GapReferences: 10, GapWindows: 400, Restarts: 5, MaxIter: 150, Seed: 1,
 		Distance: "euclidean", FitMax: 20000, FitSample: "peaks",
 		Grid:         "-1:1:101",
 		OnBadSubject: "fail", ConstantRegion: "fail",
@@ -147,11 +156,26 @@ func (o Options) Check() error {
 	if o.SmoothK < 0 || o.SmoothSD < 0 {
 		bad("--smooth-k and --smooth-sigma must not be negative")
 	}
-	if o.States == 1 || o.States < 0 {
-		bad("--states %d: need at least 2 states (0 picks k by the elbow)", o.States)
+	if o.States < 0 {
+		bad("--states %d: must not be negative (0 picks k by --k-rule; 1 means one state, no dynamics)", o.States)
 	}
-	if o.States == 0 && (o.StatesMin < 2 || o.StatesMax < o.StatesMin+2) {
-		bad("--states-min %d --states-max %d: the elbow needs 2 <= min and at least three k values (max >= min+2)", o.StatesMin, o.StatesMax)
+	switch o.KRule {
+	case "gap":
+		if o.States == 0 && (o.StatesMin < 1 || o.StatesMax < o.StatesMin+1) {
+			bad("--states-min %d --states-max %d: the gap rule needs 1 <= min < max", o.StatesMin, o.StatesMax)
+		}
+		if o.GapReferences < 1 {
+			bad("--gap-references %d: need at least 1 reference set (10 or more recommended)", o.GapReferences)
+		}
+		if o.States == 0 && o.GapWindows <= o.StatesMax {
+			bad("--gap-windows %d: must exceed --states-max %d (every k needs more windows than states)", o.GapWindows, o.StatesMax)
+		}
+	case "chord", "second-diff":
+		if o.States == 0 && (o.StatesMin < 1 || o.StatesMax < o.StatesMin+2) {
+			bad("--states-min %d --states-max %d: the %s rule needs 1 <= min and at least three k values (max >= min+2)", o.StatesMin, o.StatesMax, o.KRule)
+		}
+	default:
+		bad("--k-rule %q: want gap, chord or second-diff", o.KRule)
 	}
 	if o.Restarts < 1 || o.MaxIter < 1 {
 		bad("--restarts and --max-iter must be at least 1")

@@ -526,8 +526,28 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			s.fits = append(s.fits, FitStat{K: f.Centroids.Rows, Restarts: scan.Restarts, Iterations: f.TotalIterations})
 		}
 		s.elbow = &e
-		s.k = e.ChordK
-		res = fits[e.ChordK-s.o.StatesMin]
+		e.Rule = s.o.KRule
+		switch e.Rule {
+		case "chord":
+			s.k = e.ChordK
+		case "second-diff":
+			s.k = e.SecondDiffK
+		case "gap":
+			gopt := compute.GapOptions{References: s.o.GapReferences, Sample: s.o.GapWindows, MaxIter: s.o.MaxIter,
+				Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
+			s.prog.Stage(fmt.Sprintf("gap statistic, %d reference sets", s.o.GapReferences), s.o.GapReferences+1)
+			tg := time.Now()
+			g, err := compute.GapStatistic(x, s.o.StatesMin, s.o.StatesMax, gopt, s.o.Seed)
+			if err != nil {
+				return fmt.Errorf("ingest: gap statistic: %w", stopped(ctx, err))
+			}
+			t = s.work.since("fit: gap statistic", tg)
+			e.Gap = &g
+			s.k = g.K
+		default:
+			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+		}
+		res = fits[s.k-s.o.StatesMin]
 		if scan.Restarts < opt.Restarts {
 			more := opt
 			more.K, more.FirstRestart, more.Restarts = s.k, scan.Restarts, opt.Restarts-scan.Restarts
@@ -576,8 +596,14 @@ func (s *stages) writeStates(ctx context.Context, w *schema.Writer) error {
 	eb := schema.NewBatch(schema.Elbow)
 	defer eb.Release()
 	if s.elbow != nil {
-		for _, pt := range s.elbow.Points {
-			eb.Row(id, pt.K, pt.WCSS, pt.K == s.k, pt.K == s.elbow.ChordK, pt.K == s.elbow.SecondDiffK)
+		for i, pt := range s.elbow.Points {
+			var logW, refLogW, gap, se, pick any
+			if g := s.elbow.Gap; g != nil && i < len(g.Points) && g.Points[i].K == pt.K {
+				gp := g.Points[i]
+				logW, refLogW, gap, se, pick = gp.LogW, gp.RefLogW, gp.Gap, gp.SE, pt.K == g.K
+			}
+			eb.Row(id, pt.K, pt.WCSS, pt.K == s.k, pt.K == s.elbow.ChordK, pt.K == s.elbow.SecondDiffK,
+				logW, refLogW, gap, se, pick)
 		}
 	}
 	cb := schema.NewBatch(schema.StateCentroids)

@@ -69,7 +69,12 @@ CREATE TABLE IF NOT EXISTS elbow (
     wcss            DOUBLE NOT NULL,  -- within-cluster sum of squared distances on the fitting windows
     chosen          BOOLEAN NOT NULL, -- the k used for the analysis
     chord_pick      BOOLEAN NOT NULL, -- the chord-distance rule picks this k
-    second_diff_pick BOOLEAN NOT NULL -- the largest-second-difference rule picks this k
+    second_diff_pick BOOLEAN NOT NULL, -- the largest-second-difference rule picks this k
+    gap_log_wcss    DOUBLE,           -- log W(k) on the gap statistic's sample of the fitting windows; NULL: no gap computed (older analyses, or a rule other than gap)
+    gap_ref_log_wcss DOUBLE,          -- mean log W*(k) over the uniform reference sets in the principal-component box; NULL as gap_log_wcss
+    gap             DOUBLE,           -- gap statistic Gap(k) = gap_ref_log_wcss - gap_log_wcss; NULL as gap_log_wcss
+    gap_se          DOUBLE,           -- s(k) = sd of the reference log W*(k) times sqrt(1 + 1/B); NULL as gap_log_wcss
+    gap_pick        BOOLEAN           -- the gap rule (smallest k with Gap(k) >= Gap(k+1) - s(k+1)) picks this k; NULL as gap_log_wcss
 );
 
 CREATE TABLE IF NOT EXISTS state_centroids (

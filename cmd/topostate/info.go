@@ -55,7 +55,10 @@ func infoCommand() *cli.Command {
 				fmt.Fprintf(c.App.Writer, "%s holds no analyses yet; add one with 'topostate ingest --input FOLDER --db %s'\n", c.String("db"), c.String("db"))
 				return nil
 			}
-			return tw.Flush()
+			if err := tw.Flush(); err != nil {
+				return err
+			}
+			return writeKChoices(c.Context, db, c.App.Writer)
 		},
 	}
 }

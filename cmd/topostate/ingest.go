@@ -34,9 +34,12 @@ func ingestFlags() []cli.Flag {
 		&cli.IntFlag{Name: "smooth-k", Usage: "cosine-series smoothing with terms 0..`K` (0: none)"},
 		&cli.Float64Flag{Name: "smooth-sigma", Usage: "heat-kernel weight `SIGMA` of the cosine series"},
 		&cli.BoolFlag{Name: "fisher-z", Usage: "cluster Fisher z = atanh(r) instead of r; state networks are averaged in z"},
-		&cli.IntFlag{Name: "states", Usage: "fixed number of states `K` (0: pick k by the elbow)"},
-		&cli.IntFlag{Name: "states-min", Value: d.StatesMin, Usage: "smallest `K` of the elbow scan"},
-		&cli.IntFlag{Name: "states-max", Value: d.StatesMax, Usage: "largest `K` of the elbow scan"},
+		&cli.IntFlag{Name: "states", Usage: "fixed number of states `K` (0: pick k by --k-rule; 1: one state, no dynamics)"},
+		&cli.IntFlag{Name: "states-min", Value: d.StatesMin, Usage: "smallest `K` of the scan (1 lets the rule conclude: no evidence of more than one state)"},
+		&cli.IntFlag{Name: "states-max", Value: d.StatesMax, Usage: "largest `K` of the scan"},
+		&cli.StringFlag{Name: "k-rule", Value: d.KRule, Usage: "`RULE` that picks k from the scan: gap (gap statistic), chord or second-diff (elbow of W(k))"},
+		&cli.IntFlag{Name: "gap-references", Value: d.GapReferences, Usage: "`B` uniform reference sets of the gap statistic"},
+		&cli.IntFlag{Name: "gap-windows", Value: d.GapWindows, Usage: "the gap statistic uses at most `N` of the fitting windows (a uniform subsample)"},
 		&cli.IntFlag{Name: "restarts", Value: d.Restarts, Usage: "k-means restarts: the best of `N` fits is kept"},
 		&cli.IntFlag{Name: "scan-restarts", Value: d.ScanRestarts, Usage: "`N` restarts per k of the elbow scan (0: --restarts); the picked k gets the rest up to --restarts"},
 		&cli.IntFlag{Name: "max-iter", Value: d.MaxIter, Usage: "at most `N` k-means iterations per restart"},
@@ -64,6 +67,7 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		Window: c.Int("window"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
 		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),
+		KRule: c.String("k-rule"), GapReferences: c.Int("gap-references"), GapWindows: c.Int("gap-windows"),
 		Restarts: c.Int("restarts"), ScanRestarts: c.Int("scan-restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
 		FitMax: c.Int("fit-windows"), FitSample: c.String("fit-sample"), Grid: c.String("grid"),
 		OnBadSubject: c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
@@ -174,11 +178,7 @@ func printSummary(w io.Writer, dbPath string, s *ingest.Summary) {
 		fmt.Fprintf(w, "  windows          %d (%d used to fit the states)\n", s.Windows, s.FitWindows)
 	}
 	if e := s.Elbow; e != nil {
-		fmt.Fprintf(w, "  states           %d, picked by the elbow (chord rule) over k=%d..%d\n", s.States, e.Points[0].K, e.Points[len(e.Points)-1].K)
-		if e.SecondDiffK != e.ChordK {
-			fmt.Fprintf(w, "  note             the largest-second-difference rule picks k=%d instead; both are in table elbow,\n"+
-				"                   and --states %d re-runs with that choice\n", e.SecondDiffK, e.SecondDiffK)
-		}
+		fmt.Fprintf(w, "  states           %s\n", elbowChoice(e, s.States, s.FitWindows))
 	} else if f := s.StatesFrom; f != nil {
 		fmt.Fprintf(w, "  states           %d, reused from analysis %q (id %d) in %s\n", s.States, f.Analysis, f.AnalysisID, f.DB)
 	} else {

@@ -110,8 +110,7 @@ func stageCommand() *cli.Command {
 					case s.StatesFrom != nil:
 						fmt.Fprintf(c.App.Writer, "states: %d, reused from analysis %q (id %d) in %s (%.1fs)\n", s.States, s.StatesFrom.Analysis, s.StatesFrom.AnalysisID, s.StatesFrom.DB, s.Seconds)
 					case s.Elbow != nil:
-						fmt.Fprintf(c.App.Writer, "states: %d, picked by the elbow (chord rule) over k=%d..%d; fitted on %d windows (%.1fs)\n",
-							s.States, s.Elbow.Points[0].K, s.Elbow.Points[len(s.Elbow.Points)-1].K, s.FitWindows, s.Seconds)
+						fmt.Fprintf(c.App.Writer, "states: %s (%.1fs)\n", elbowChoice(s.Elbow, s.States, s.FitWindows), s.Seconds)
 					default:
 						fmt.Fprintf(c.App.Writer, "states: %d (fixed by --states); fitted on %d windows (%.1fs)\n", s.States, s.FitWindows, s.Seconds)
 					}

@@ -1,0 +1,168 @@
+// Command kchoice measures how often each rule for the number of states
+// (docs/methods.md §3.x: the gap statistic, the chord elbow, the largest
+// second difference) finds the true number of latent states of simulated
+// cohorts, and prints one confusion table (true k by picked k) per rule and
+// noise level.
+//
+//	nice -n 10 go run ./scripts/kchoice                  # 20 cohorts per true k, noise 0.3 and 0.6
+//	go run ./scripts/kchoice -cohorts 5 -noise 0.5       # a quick look
+//
+// For every true k in -states and every noise level it writes -cohorts
+// cohorts with `topostate simulate --states k --noise x --seed s` (the
+// command is built first; the data are invented by topostate's own
+// generator) and runs the real ingest path (ingest.IntoFile, default
+// options with --k-rule gap --states-min 1, so one run yields all three picks: the gap
+// pick, and the chord and second-difference picks of the same W(k) scan).
+// The uptime load average is printed before and after: the timings depend
+// on the machine and its load.
+package main
+
+import (
+	"context"
+	"flag"
+	"fmt"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/topostate/topostate/ingest"
+)
+
+func main() {
+	cohorts := flag.Int("cohorts", 20, "cohorts per true k and noise level")
+	statesList := flag.String("states", "1,2,3,5", "true numbers of latent states")
+	noiseList := flag.String("noise", "0.3,0.6", "noise levels (topostate simulate --noise)")
+	subjects := flag.Int("subjects", 10, "subjects per cohort")
+	regions := flag.Int("regions", 20, "regions per series")
+	timepoints := flag.Int("timepoints", 400, "time points per series")
+	workers := flag.Int("workers", 2, "ingest workers")
+	flag.Parse()
+	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers); err != nil {
+		fmt.Fprintln(os.Stderr, "kchoice:", err)
+		os.Exit(1)
+	}
+}
+
+func ints(s string) ([]int, error) {
+	var out []int
+	for _, f := range strings.Split(s, ",") {
+		v, err := strconv.Atoi(strings.TrimSpace(f))
+		if err != nil {
+			return nil, fmt.Errorf("list %q: %w", s, err)
+		}
+		out = append(out, v)
+	}
+	return out, nil
+}
+
+func uptime() string {
+	b, err := os.ReadFile("/proc/loadavg")
+	if err != nil {
+		return "unknown"
+	}
+	return strings.Join(strings.Fields(string(b))[:3], " ")
+}
+
+func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int) error {
+	states, err := ints(statesList)
+	if err != nil {
+		return err
+	}
+	var noises []float64
+	for _, f := range strings.Split(noiseList, ",") {
+		v, err := strconv.ParseFloat(strings.TrimSpace(f), 64)
+		if err != nil {
+			return fmt.Errorf("noise %q: %w", f, err)
+		}
+		noises = append(noises, v)
+	}
+	tmp, err := os.MkdirTemp("", "kchoice-")
+	if err != nil {
+		return err
+	}
+	defer os.RemoveAll(tmp)
+	bin := filepath.Join(tmp, "topostate")
+	if out, err := exec.Command("go", "build", "-o", bin, "./cmd/topostate").CombinedOutput(); err != nil {
+		return fmt.Errorf("build: %v\n%s", err, out)
+	}
+	fmt.Printf("cohorts: %d subjects x %d time points x %d regions, stickiness 0.97 (default), %d cohorts per true k and noise level\n",
+		subjects, timepoints, regions, cohorts)
+	fmt.Printf("load average before: %s\n", uptime())
+	start := time.Now()
+	rules := []string{"gap", "chord", "second-diff"}
+	const kmax = 10
+	var gapSeconds float64
+	runs := 0
+	for _, noise := range noises {
+		// table[rule][true k index][picked k]
+		table := make(map[string][][]int)
+		for _, r := range rules {
+			table[r] = make([][]int, len(states))
+			for i := range states {
+				table[r][i] = make([]int, kmax+1)
+			}
+		}
+		for si, k := range states {
+			for c := 0; c < cohorts; c++ {
+				seed := uint64(1000*k + c + 1)
+				dir := filepath.Join(tmp, "cohort")
+				os.RemoveAll(dir)
+				cmd := exec.Command(bin, "simulate", "--out", dir, "--subjects", strconv.Itoa(subjects),
+					"--regions", strconv.Itoa(regions), "--timepoints", strconv.Itoa(timepoints),
+					"--states", strconv.Itoa(k), "--noise", strconv.FormatFloat(noise, 'g', -1, 64),
+					"--seed", strconv.FormatUint(seed, 10))
+				if out, err := cmd.CombinedOutput(); err != nil {
+					return fmt.Errorf("simulate: %v\n%s", err, out)
+				}
+				o := ingest.Defaults()
+				o.Input, o.KRule, o.StatesMin, o.Workers, o.Seed = dir, "gap", 1, workers, seed
+				db := filepath.Join(tmp, "w.duckdb")
+				os.Remove(db)
+				sum, err := ingest.IntoFile(context.Background(), db, o, nil)
+				if err != nil {
+					return fmt.Errorf("ingest (k=%d noise %v seed %d): %w", k, noise, seed, err)
+				}
+				e := sum.Elbow
+				table["gap"][si][e.Gap.K]++
+				table["chord"][si][e.ChordK]++
+				table["second-diff"][si][e.SecondDiffK]++
+				for _, p := range sum.WorkerTimes {
+					if p.Phase == "fit: gap statistic" {
+						gapSeconds += p.Seconds
+					}
+				}
+				runs++
+			}
+		}
+		for _, r := range rules {
+			fmt.Printf("\nrule %s, noise %v (rows: true k; columns: picked k)\n", r, noise)
+			fmt.Printf("| true k |")
+			for p := 1; p <= kmax; p++ {
+				fmt.Printf(" %d |", p)
+			}
+			fmt.Printf(" correct |\n|---|")
+			for p := 0; p <= kmax; p++ {
+				fmt.Printf("---|")
+			}
+			fmt.Println()
+			correct, total := 0, 0
+			for si, k := range states {
+				fmt.Printf("| %d |", k)
+				for p := 1; p <= kmax; p++ {
+					fmt.Printf(" %d |", table[r][si][p])
+				}
+				fmt.Printf(" %d/%d |\n", table[r][si][k], cohorts)
+				correct += table[r][si][k]
+				total += cohorts
+			}
+			fmt.Printf("accuracy %s noise %v: %d/%d = %.2f\n", r, noise, correct, total, float64(correct)/float64(total))
+		}
+	}
+	fmt.Printf("\n%d ingests in %.0f s (gap statistic: %.1f s in total, %.2f s per ingest)\n",
+		runs, time.Since(start).Seconds(), gapSeconds, gapSeconds/float64(max(runs, 1)))
+	fmt.Printf("load average after: %s\n", uptime())
+	return nil
+}
