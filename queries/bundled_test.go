@@ -65,33 +65,39 @@ func welchRef(a, b []float64) (t, df, p float64) {
 // len(a) and len(b) and returns the exact two-sided permutation p-value
 // P(|T*| >= |T|) of the mean difference.
 func exactPermP(a, b []float64) float64 {
+	// perm_test_mean is studentised: its statistic is Welch's t (welchRef),
+	// so the exact distribution enumerates Welch's t over every split.
 	pooled := append(slices.Clone(a), b...)
 	n, m := len(pooled), len(a)
-	var total float64
-	for _, x := range pooled {
-		total += x
-	}
-	stat := func(sumA float64) float64 { return sumA/float64(m) - (total-sumA)/float64(n-m) }
-	var sumA float64
-	for _, x := range a {
-		sumA += x
-	}
-	obs := math.Abs(stat(sumA)) * (1 - 1e-9)
+	obsT, _, _ := welchRef(a, b)
+	obs := math.Abs(obsT) * (1 - 1e-9)
 	var hit, all int
-	var rec func(start, left int, s float64)
-	rec = func(start, left int, s float64) {
+	pick := make([]bool, n)
+	var rec func(start, left int)
+	rec = func(start, left int) {
 		if left == 0 {
 			all++
-			if math.Abs(stat(s)) >= obs {
+			ga := make([]float64, 0, m)
+			gb := make([]float64, 0, n-m)
+			for i, x := range pooled {
+				if pick[i] {
+					ga = append(ga, x)
+				} else {
+					gb = append(gb, x)
+				}
+			}
+			if t, _, _ := welchRef(ga, gb); math.Abs(t) >= obs {
 				hit++
 			}
 			return
 		}
 		for i := start; i <= n-left; i++ {
-			rec(i+1, left-1, s+pooled[i])
+			pick[i] = true
+			rec(i+1, left-1)
+			pick[i] = false
 		}
 	}
-	rec(0, m, 0)
+	rec(0, m)
 	return float64(hit) / float64(all)
 }
 

@@ -38,6 +38,8 @@ var units = map[string]string{
 	"regions.region_name": "text", "regions.dropped": "true/false",
 	"elbow.k": "count (states)", "elbow.wcss": "sum of k-means distances (squared correlation units for euclidean)",
 	"elbow.chosen": "true/false", "elbow.chord_pick": "true/false", "elbow.second_diff_pick": "true/false",
+	"elbow.gap_log_wcss": "log of elbow.wcss units", "elbow.gap_ref_log_wcss": "log of elbow.wcss units",
+	"elbow.gap": "difference of logs (unitless)", "elbow.gap_se": "difference of logs (unitless)", "elbow.gap_pick": "true/false",
 	"state": "state number (from 1)", "state_centroids.i": "region_index", "state_centroids.j": "region_index",
 	"state_centroids.weight":      "correlation r (Fisher z when fisher_z was on)",
 	"state_sequence.window_index": "window number (from 1)", "state_sequence.window_start": "time point (from 0)",
