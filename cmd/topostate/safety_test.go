@@ -11,6 +11,8 @@ import (
 	"strings"
 	"sync"
 	"testing"
+
+	"github.com/topostate/topostate/schema"
 )
 
 // Regression tests of issue 13's classes (data safety): each runs the real
@@ -245,4 +247,116 @@ func TestSQLCannotWrite(t *testing.T) {
 		}
 	}
 	sameTree(t, "after the allowed statements", before, hashTree(t, tmp), nil)
+}
+
+// execSQL runs statements on a warehouse opened for writing, as another
+// DuckDB client of the user would.
+func execSQL(t *testing.T, path string, stmts ...string) {
+	t.Helper()
+	db, err := schema.Open(path, false, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	for _, s := range stmts {
+		if _, err := db.Exec(s); err != nil {
+			t.Fatalf("%s: %v", s, err)
+		}
+	}
+}
+
+
+// TestDurableCommit: with the checkpoint failing after the COMMIT (as a
+// full disk makes it fail; a test hook, as the crash tests use), ingest
+// must not report success: exit 1, nothing on standard output, and a
+// message saying where the analysis is. A later command completes it.
+func TestDurableCommit(t *testing.T) {
+	tmp := t.TempDir()
+	db := copyDB(t, tmp)
+	abs, _ := filepath.Abs(goodCohort)
+	r := runCmd(t, cmdOpts{args: expand(baseIngest+" --analysis second", abs, db), env: []string{"TOPOSTATE_TEST_FAIL_CHECKPOINT=1"}})
+	if r.code != 1 || r.stdout != "" || !strings.Contains(r.stderr, "not written into the database file") || !strings.Contains(r.stderr, ".wal") {
+		t.Errorf("ingest with a failing checkpoint: exit %d\nstdout: %s\nstderr: %s", r.code, r.stdout, r.stderr)
+	}
+	if r := runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db}}); r.code != 0 {
+		t.Errorf("upgrade after the failed checkpoint: exit %d: %s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM analyses WHERE name = 'second'`); got != "1" {
+		t.Errorf("the committed analysis is not in the file after completing: %s", got)
+	}
+	if _, err := os.Stat(db + ".wal"); err == nil {
+		t.Errorf("%s.wal left after completing", db)
+	}
+}
+
+// TestDropOwnTablesOnly: drop deletes rows only from topostate's own
+// tables (the DDL's list): a user's table with an analysis_id column keeps
+// its rows, and a user's view with that column does not stop it.
+func TestDropOwnTablesOnly(t *testing.T) {
+	tmp := t.TempDir()
+	db := copyDB(t, tmp)
+	execSQL(t, db,
+		`CREATE TABLE my_notes (analysis_id INTEGER, note VARCHAR)`,
+		`INSERT INTO my_notes VALUES (1, 'keep me')`,
+		`CREATE VIEW my_view AS SELECT analysis_id, name FROM analyses`)
+	r := runCmd(t, cmdOpts{args: []string{"drop", "--db", db, "--analysis", "baseline", "--yes"}})
+	if r.code != 0 {
+		t.Fatalf("drop beside a user's view and table: exit %d: %s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM my_notes WHERE analysis_id = 1`); got != "1" {
+		t.Errorf("drop deleted rows of a user's table (%s left)", got)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM analyses`); got != "0" {
+		t.Errorf("%s analyses after the drop", got)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM my_view`); got != "0" {
+		t.Errorf("the user's view reads %s rows", got)
+	}
+}
+
+// TestLayout1 uses a layout-1 file (the baseline with its recorded layout
+// set back to 1; main's layout-1 DDL is the same as these tables, see
+// schema/testdata/layout1.sql and schema's TestUpgradeLayout1 for added
+// tables and columns). Read-only commands refuse it with what to do and
+// leave it byte-identical; upgrade, and any writing command, upgrade it.
+func TestLayout1(t *testing.T) {
+	tmp := t.TempDir()
+	db := copyDB(t, tmp)
+	execSQL(t, db, `UPDATE schema_version SET version = 1`, `CHECKPOINT`)
+	before := hashTree(t, tmp)
+	for _, args := range [][]string{
+		{"info", "--db", db},
+		{"query", "--db", db, "--sql", "SELECT 1"},
+		{"export", "--db", db, "--out", filepath.Join(tmp, "x")},
+		{"report", "--db", db, "--out", filepath.Join(tmp, "r.html")},
+		{"plot", "--db", db, "--out", filepath.Join(tmp, "p")},
+	} {
+		r := runCmd(t, cmdOpts{args: args})
+		if r.code != 1 || !strings.Contains(r.stderr, "topostate upgrade --db") || strings.Contains(r.stderr, "Binder Error") {
+			t.Errorf("%s on a layout-1 file: exit %d: %s", args[0], r.code, r.stderr)
+		}
+	}
+	sameTree(t, "read-only commands on a layout-1 file", before, hashTree(t, tmp), nil)
+	abs, _ := filepath.Abs(goodCohort)
+	r := runCmd(t, cmdOpts{args: expand(baseIngest+" --analysis second", abs, db)})
+	if r.code != 0 {
+		t.Fatalf("ingest into a layout-1 file: exit %d: %s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT max(version) FROM schema_version`); got != "2" {
+		t.Errorf("layout %s after an ingest, want 2", got)
+	}
+	r = runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db}})
+	if r.code != 0 || !strings.Contains(r.stdout, "nothing to do") {
+		t.Errorf("upgrade of a layout-2 file: exit %d: %s%s", r.code, r.stdout, r.stderr)
+	}
+	db2 := filepath.Join(tmp, "second.duckdb")
+	copyFile(t, baselineDB, db2)
+	execSQL(t, db2, `UPDATE schema_version SET version = 1`, `CHECKPOINT`)
+	r = runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db2}})
+	if r.code != 0 || !strings.Contains(r.stdout, "from layout version 1 to 2") {
+		t.Errorf("upgrade: exit %d: %s%s", r.code, r.stdout, r.stderr)
+	}
+	if r := runCmd(t, cmdOpts{args: []string{"info", "--db", db2}}); r.code != 0 {
+		t.Errorf("info after upgrade: exit %d: %s", r.code, r.stderr)
+	}
 }
