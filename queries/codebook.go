@@ -193,7 +193,7 @@ func (f *codebookFacts) entry(d schema.ColumnDoc) []string {
 }
 
 // writeCodebook writes DIR/codebook.csv for the exported columns docs.
-func writeCodebook(ctx context.Context, conn *sql.Conn, docs []schema.ColumnDoc, analysis *int64, dir string) (ExportedFile, error) {
+func writeCodebook(ctx context.Context, conn *sql.Conn, docs []schema.ColumnDoc, analysis *int64, dir string, st *staging) (ExportedFile, error) {
 	ef := ExportedFile{Table: "codebook", Path: filepath.Join(dir, CodebookFile), Rows: int64(len(docs))}
 	fail := func(err error) (ExportedFile, error) { return ef, fmt.Errorf("queries: export codebook: %w", err) }
 	facts, err := loadCodebookFacts(ctx, conn, docs, analysis)
@@ -204,7 +204,7 @@ func writeCodebook(ctx context.Context, conn *sql.Conn, docs []schema.ColumnDoc,
 	if err != nil {
 		return fail(err)
 	}
-	defer os.Remove(tmp.Name())
+	st.add(tmp.Name(), ef.Path) // renamed by Export once every file is written
 	w := csv.NewWriter(tmp)
 	w.Write(CodebookHeader)
 	for _, d := range docs {
@@ -217,9 +217,6 @@ func writeCodebook(ctx context.Context, conn *sql.Conn, docs []schema.ColumnDoc,
 	}
 	if err == nil {
 		err = os.Chmod(tmp.Name(), 0o644)
-	}
-	if err == nil {
-		err = os.Rename(tmp.Name(), ef.Path)
 	}
 	if err != nil {
 		return fail(err)

@@ -75,6 +75,9 @@ type ExportOptions struct {
 	// SliceRows bounds the rows read from DuckDB at once (a large table is
 	// read in slices of subjects); 0 means 1,000,000.
 	SliceRows int
+	// Protect lists files no exported file may overwrite (the warehouse
+	// and its .wal), by any name: see schema.Clobbers.
+	Protect []string
 }
 
 // ExportedFile is one file Export wrote.
@@ -127,35 +130,91 @@ func Export(ctx context.Context, conn *sql.Conn, o ExportOptions) ([]ExportedFil
 		}
 		analysis = &id
 	}
+	finals := []string{filepath.Join(o.Dir, DictionaryFile+"."+string(o.Format)), filepath.Join(o.Dir, CodebookFile)}
+	for _, t := range tables {
+		finals = append(finals, filepath.Join(o.Dir, t+"."+string(o.Format)))
+	}
+	for _, f := range finals {
+		for _, p := range o.Protect {
+			if schema.Clobbers(f, p) {
+				return nil, &ParamError{Param: "out", Err: fmt.Errorf("%s is the warehouse %s (or its .wal file) by another name; export never writes over it: choose another folder", f, p)}
+			}
+		}
+	}
 	if err := os.MkdirAll(o.Dir, 0o755); err != nil {
 		return nil, fmt.Errorf("queries: export: %w", err)
 	}
+	// Every file is written as a temporary in o.Dir first; only when all
+	// are whole are they renamed into place (the renames do not look at
+	// ctx). A failed or interrupted export leaves the folder's earlier
+	// files as they were and removes its temporaries.
+	st := &staging{}
+	defer st.discard()
 	var out []ExportedFile
 	var docs []schema.ColumnDoc
 	for _, td := range dict {
 		if !slices.Contains(tables, td.Name) {
 			continue
 		}
-		f, err := exportTable(ctx, conn, td, analysis, o)
+		f, err := exportTable(ctx, conn, td, analysis, o, st)
 		if err != nil {
-			return out, err
+			return nil, err
 		}
 		out = append(out, f)
 		cols, err := tableColumns(ctx, conn, td)
 		if err != nil {
-			return out, err
+			return nil, err
 		}
 		docs = append(docs, cols...)
 	}
-	f, err := writeDictionary(docs, o)
+	f, err := writeDictionary(docs, o, st)
 	if err != nil {
-		return out, err
+		return nil, err
 	}
 	out = append(out, f)
-	if f, err = writeCodebook(ctx, conn, docs, analysis, o.Dir); err != nil {
-		return out, err
+	if f, err = writeCodebook(ctx, conn, docs, analysis, o.Dir, st); err != nil {
+		return nil, err
 	}
-	return append(out, f), nil
+	out = append(out, f)
+	if err := ctx.Err(); err != nil {
+		return nil, err
+	}
+	if err := st.commit(); err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+// staging holds finished temporaries until every file of an export is
+// written.
+type staging struct{ tmps, finals []string }
+
+func (s *staging) add(tmp, final string) {
+	s.tmps, s.finals = append(s.tmps, tmp), append(s.finals, final)
+}
+
+// discard removes the temporaries not yet renamed.
+func (s *staging) discard() {
+	for _, t := range s.tmps {
+		os.Remove(t)
+	}
+	s.tmps, s.finals = nil, nil
+}
+
+// commit renames every temporary into place. A rename that fails (rare:
+// the folder changed meanwhile) is reported with the files already
+// replaced, so the message says exactly what the folder holds.
+func (s *staging) commit() error {
+	for i, t := range s.tmps {
+		if err := os.Rename(t, s.finals[i]); err != nil {
+			done := s.finals[:i]
+			s.tmps = s.tmps[i:]
+			s.finals = s.finals[i:]
+			return fmt.Errorf("queries: export: %w; files already replaced: %v; the rest keep their earlier contents", err, done)
+		}
+	}
+	s.tmps, s.finals = nil, nil
+	return nil
 }
 
 // tableColumns returns the dictionary rows of a table, adding the subjects
@@ -252,7 +311,7 @@ func planSlices(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analysi
 	return out, nil
 }
 
-func exportTable(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analysis *int64, o ExportOptions) (ExportedFile, error) {
+func exportTable(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analysis *int64, o ExportOptions, st *staging) (ExportedFile, error) {
 	ef := ExportedFile{Table: td.Name, Path: filepath.Join(o.Dir, td.Name+"."+string(o.Format))}
 	fail := func(err error) (ExportedFile, error) {
 		return ef, fmt.Errorf("queries: export %s: %w", td.Name, err)
@@ -273,7 +332,7 @@ func exportTable(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analys
 	if err != nil {
 		return fail(err)
 	}
-	defer os.Remove(tmp.Name())
+	st.add(tmp.Name(), ef.Path) // renamed by Export once every file is written
 	// CreateTemp makes the file private (0600); an exported table is as
 	// readable as any file the user writes (0644 before the umask).
 	if err := tmp.Chmod(0o644); err != nil {
@@ -289,9 +348,6 @@ func exportTable(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analys
 		err = cerr
 	}
 	if err != nil {
-		return fail(err)
-	}
-	if err := os.Rename(tmp.Name(), ef.Path); err != nil {
 		return fail(err)
 	}
 	return ef, nil
@@ -382,7 +438,7 @@ func exportParquet(ctx context.Context, conn *sql.Conn, plan []slice, queryOf fu
 }
 
 // writeDictionary writes the data dictionary rows in o.Format.
-func writeDictionary(docs []schema.ColumnDoc, o ExportOptions) (ExportedFile, error) {
+func writeDictionary(docs []schema.ColumnDoc, o ExportOptions, st *staging) (ExportedFile, error) {
 	ef := ExportedFile{Table: DictionaryFile, Path: filepath.Join(o.Dir, DictionaryFile+"."+string(o.Format)), Rows: int64(len(docs))}
 	header := []string{"table", "column", "type", "nullable", "meaning", "unit"}
 	record := func(d schema.ColumnDoc) []string {
@@ -392,8 +448,13 @@ func writeDictionary(docs []schema.ColumnDoc, o ExportOptions) (ExportedFile, er
 		}
 		return []string{d.Table, d.Column, d.Type, fmt.Sprint(d.Nullable), d.Description, unit}
 	}
-	f, err := os.Create(ef.Path)
+	f, err := os.CreateTemp(o.Dir, "."+DictionaryFile+"-*.tmp")
 	if err != nil {
+		return ef, fmt.Errorf("queries: export dictionary: %w", err)
+	}
+	st.add(f.Name(), ef.Path)
+	if err := f.Chmod(0o644); err != nil {
+		f.Close()
 		return ef, fmt.Errorf("queries: export dictionary: %w", err)
 	}
 	if o.Format == FormatCSV {
@@ -429,7 +490,6 @@ func writeDictionary(docs []schema.ColumnDoc, o ExportOptions) (ExportedFile, er
 		err = cerr
 	}
 	if err != nil {
-		os.Remove(ef.Path)
 		return ef, fmt.Errorf("queries: export dictionary: %w", err)
 	}
 	return ef, nil

@@ -249,13 +249,18 @@ func isNumericType(t string) bool {
 	return strings.HasPrefix(strings.ToUpper(t), "DECIMAL")
 }
 
-// Run binds values to q's parameters (see Bind) and runs its SQL on conn.
-// The caller closes the rows.
+// Run binds values to q's parameters (see Bind) and runs its SQL on conn,
+// each statement checked by the read-only guard (Prepare). The caller
+// closes the rows.
 func Run(ctx context.Context, conn *sql.Conn, q *Query, values map[string]string) (*sql.Rows, error) {
 	if _, err := Bind(ctx, conn, q, values); err != nil {
 		return nil, err
 	}
-	rows, err := conn.QueryContext(ctx, q.SQL)
+	last, err := Prepare(ctx, conn, q.SQL)
+	if err != nil {
+		return nil, err
+	}
+	rows, err := conn.QueryContext(ctx, last)
 	if err != nil {
 		return nil, fmt.Errorf("queries: %s: %w", queryLabel(q), err)
 	}

@@ -306,8 +306,11 @@ func (w *Writer) Commit(ctx context.Context) error {
 	}
 	w.pq = map[string]*parquetFile{}
 	w.done = true
+	// Success means the analysis is in the file the user named, not only in
+	// its .wal: a full disk at the checkpoint is reported (ErrNotDurable).
+	err = Checkpoint(ctx, w.conn, fmt.Sprintf("analysis %q (id %d)", w.Name, w.ID))
 	w.conn.Close()
-	return nil
+	return err
 }
 
 // pauseEnv is a test hook, not a user setting (undocumented on purpose):

@@ -38,6 +38,11 @@ func dropCommand() *cli.Command {
 			if _, err := os.Stat(path); errors.Is(err, fs.ErrNotExist) {
 				return fmt.Errorf("drop: %s does not exist", path)
 			}
+			// drop writes the file, so it upgrades an older layout first
+			// (as ingest does); the read-only look below needs the layout.
+			if err := upgradeIfOld(c, path); err != nil {
+				return err
+			}
 			// Look first with a read-only handle, so the write lock is not
 			// held while a person reads the question.
 			id, series, err := findAnalysis(c.Context, path, name)
@@ -119,23 +124,20 @@ func dropAnalysis(ctx context.Context, path string, id int, name string) (rows i
 	if err := tx.QueryRowContext(ctx, `SELECT name FROM analyses WHERE analysis_id = ?`, id).Scan(&still); err != nil || still != name {
 		return 0, 0, fmt.Errorf("drop: analysis %q changed while asking; nothing was removed, run again", name)
 	}
-	q, err := tx.QueryContext(ctx, `SELECT table_name FROM information_schema.columns
-		WHERE table_schema = 'main' AND column_name = 'analysis_id'
-			AND table_name NOT IN ('analyses', 'dropped_analyses')
-		ORDER BY table_name`)
-	if err != nil {
-		return 0, 0, fmt.Errorf("drop: %w", err)
-	}
+	// Only topostate's own tables (the fixed list of its DDL), never a
+	// user's table or view that happens to have an analysis_id column.
 	var names []string
-	for q.Next() {
-		var t string
-		if err := q.Scan(&t); err != nil {
-			q.Close()
-			return 0, 0, fmt.Errorf("drop: %w", err)
+	for _, t := range schema.DDLColumns() {
+		if t.Table == "analyses" || t.Table == "dropped_analyses" {
+			continue
 		}
-		names = append(names, t)
+		for _, col := range t.Columns {
+			if col.Name == "analysis_id" {
+				names = append(names, t.Table)
+				break
+			}
+		}
 	}
-	q.Close()
 	names = append(names, "analyses") // last: the analysis disappears with its rows
 	for _, t := range names {
 		res, err := tx.ExecContext(ctx, fmt.Sprintf("DELETE FROM %s WHERE analysis_id = ?", schema.Quote(t)), id)
@@ -154,5 +156,29 @@ func dropAnalysis(ctx context.Context, path string, id int, name string) (rows i
 	if err := tx.Commit(); err != nil {
 		return 0, 0, fmt.Errorf("drop: commit: %w", err)
 	}
+	conn, err := db.Conn(ctx)
+	if err != nil {
+		return 0, 0, fmt.Errorf("drop: %w", err)
+	}
+	defer conn.Close()
+	if err := schema.Checkpoint(ctx, conn, fmt.Sprintf("the drop of analysis %q", name)); err != nil {
+		return 0, 0, err
+	}
 	return rows, len(names), nil
+}
+
+// upgradeIfOld upgrades a file of an older layout in place (a writing
+// command's right; read-only commands only explain).
+func upgradeIfOld(c *cli.Context, path string) error {
+	db, err := schema.Open(path, true, nil)
+	if err != nil {
+		return err
+	}
+	err = schema.CheckLayout(c.Context, db)
+	db.Close()
+	if !errors.Is(err, schema.ErrOldLayout) {
+		return nil // other problems are reported by the command's own open
+	}
+	_, err = upgradeFile(c, path)
+	return err
 }

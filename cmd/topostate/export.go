@@ -40,7 +40,8 @@ func exportCommand() *cli.Command {
 			}
 			defer db.Close()
 			files, err := queries.Export(c.Context, db.Conn, queries.ExportOptions{
-				Dir: c.String("out"), Format: format, Tables: c.StringSlice("tables"), Analysis: c.String("analysis")})
+				Dir: c.String("out"), Format: format, Tables: c.StringSlice("tables"), Analysis: c.String("analysis"),
+				Protect: []string{c.String("db")}})
 			var pe *queries.ParamError
 			if errors.As(err, &pe) {
 				return usageError{err}

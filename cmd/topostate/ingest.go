@@ -1,10 +1,8 @@
 package main
 
 import (
-	"errors"
 	"fmt"
 	"io"
-	"io/fs"
 	"os"
 	"runtime"
 	"runtime/debug"
@@ -118,7 +116,7 @@ func ingestCommand() *cli.Command {
 
 // runIngest validates the whole cohort first, so a bad cohort never opens
 // the file for writing; a file this run created is removed again when the
-// run fails.
+// run fails and nothing was ever committed to it (see newfile.go).
 func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (*ingest.Summary, error) {
 	start := time.Now()
 	cohort, err := ingest.LoadCohort(o)
@@ -129,14 +127,8 @@ func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (
 		return nil, err // interrupted while validating: do not create or open the file
 	}
 	validate := ingest.PhaseTime{Phase: "validate", Seconds: time.Since(start).Seconds()}
-	_, statErr := os.Stat(dbPath)
-	created := errors.Is(statErr, fs.ErrNotExist)
 	sum, err := ingestInto(c, cohort, o, dbPath)
 	if err != nil {
-		if created {
-			os.Remove(dbPath)
-			os.Remove(dbPath + ".wal")
-		}
 		return nil, err
 	}
 	sum.PhaseTimes = append([]ingest.PhaseTime{validate}, sum.PhaseTimes...)
@@ -144,12 +136,18 @@ func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (
 	return sum, nil
 }
 
-func ingestInto(c *cli.Context, cohort *ingest.Cohort, o ingest.Options, dbPath string) (*ingest.Summary, error) {
+func ingestInto(c *cli.Context, cohort *ingest.Cohort, o ingest.Options, dbPath string) (sum *ingest.Summary, err error) {
+	created := missing(dbPath)
 	db, err := schema.Open(dbPath, false, nil)
 	if err != nil {
-		return nil, err
+		return nil, err // the lock is another run's: never remove its file
 	}
 	defer db.Close()
+	defer func() {
+		if err != nil && created {
+			discardIfEmpty(db, dbPath)
+		}
+	}()
 	if o.StatesFrom, err = loadStatesFrom(c, db, dbPath); err != nil {
 		return nil, err
 	}

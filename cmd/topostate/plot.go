@@ -3,6 +3,7 @@ package main
 import (
 	"errors"
 	"fmt"
+	"path/filepath"
 	"strings"
 
 	"github.com/urfave/cli/v2"
@@ -55,6 +56,17 @@ func plotCommand() *cli.Command {
 			}
 			for _, n := range d.Notes {
 				fmt.Fprintf(c.App.ErrWriter, "plot: note: %s\n", n)
+			}
+			figs, err := figures.Figures(d)
+			if err != nil {
+				return err
+			}
+			for _, f := range figs {
+				for _, ext := range formats {
+					if err := refuseClobber("plot", "--out", filepath.Join(c.String("out"), f.Name+"."+ext), c.String("db")); err != nil {
+						return err
+					}
+				}
 			}
 			files, err := figures.WriteAll(d, c.String("out"), formats, c.Int("dpi"))
 			if err != nil {

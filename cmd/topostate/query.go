@@ -194,6 +194,9 @@ func queryAction(c *cli.Context, o queryOptions) error {
 		}
 	}
 	params := o.params
+	if err := refuseClobber("query", "--out", outPath, o.db); err != nil {
+		return err
+	}
 
 	db, err := queries.Open(c.Context, o.db)
 	if err != nil {
@@ -201,26 +204,22 @@ func queryAction(c *cli.Context, o queryOptions) error {
 	}
 	defer db.Close()
 
-	w := out
-	var f *os.File
-	if outPath != "" {
-		if f, err = os.Create(outPath); err != nil {
-			return fmt.Errorf("query: %w", err)
-		}
-		w = f
+	if outPath == "" {
+		_, err = runQuery(c, db, q, params, format, out)
+		return err
 	}
-	n, err := runQuery(c, db, q, params, format, w)
-	if f != nil {
-		if cerr := f.Close(); err == nil {
-			err = cerr
-		}
-		if err != nil {
-			os.Remove(outPath)
-			return err
-		}
-		fmt.Fprintf(c.App.ErrWriter, "wrote %d rows to %s\n", n, outPath)
+	// The result goes to a temporary beside --out and replaces it only
+	// when the query succeeded: a failed query leaves an existing file.
+	var n int64
+	if err := writeAtomic("query", outPath, func(w io.Writer) error {
+		var err error
+		n, err = runQuery(c, db, q, params, format, w)
+		return err
+	}); err != nil {
+		return err
 	}
-	return err
+	fmt.Fprintf(c.App.ErrWriter, "wrote %d rows to %s\n", n, outPath)
+	return nil
 }
 
 func runQuery(c *cli.Context, db *queries.DB, q *queries.Query, params map[string]string, format queries.Format, w io.Writer) (int64, error) {
@@ -228,7 +227,11 @@ func runQuery(c *cli.Context, db *queries.DB, q *queries.Query, params map[strin
 		if _, err := queries.Bind(c.Context, db.Conn, q, params); err != nil {
 			return 0, err
 		}
-		return queries.WriteParquet(c.Context, db.Conn, q.SQL, w)
+		last, err := queries.Prepare(c.Context, db.Conn, q.SQL)
+		if err != nil {
+			return 0, err
+		}
+		return queries.WriteParquet(c.Context, db.Conn, last, w)
 	}
 	rows, err := queries.Run(c.Context, db.Conn, q, params)
 	if err != nil {

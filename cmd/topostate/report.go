@@ -42,6 +42,9 @@ func reportCommand() *cli.Command {
 			if n := c.Int("n-perm"); n < 1 || n > 10_000_000 {
 				return usagef("report: --n-perm %d: want 1 to 10000000", n)
 			}
+			if err := refuseClobber("report", "--out", out, c.String("db")); err != nil {
+				return err
+			}
 			db, err := openRead(c.Context, c.String("db"))
 			if err != nil {
 				return err

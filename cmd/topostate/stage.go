@@ -1,9 +1,7 @@
 package main
 
 import (
-	"errors"
 	"fmt"
-	"io/fs"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -156,14 +154,8 @@ func stageCommand() *cli.Command {
 						return err
 					}
 					dbPath := c.String("db")
-					_, statErr := os.Stat(dbPath)
-					created := errors.Is(statErr, fs.ErrNotExist)
 					sum, err := mergeInto(c, w, dbPath)
 					if err != nil {
-						if created {
-							os.Remove(dbPath)
-							os.Remove(dbPath + ".wal")
-						}
 						return err
 					}
 					printSummary(c.App.Writer, dbPath, sum)
@@ -258,10 +250,15 @@ func stageStatesFrom(c *cli.Context) (*ingest.StatesFrom, error) {
 }
 
 func mergeInto(c *cli.Context, w *ingest.Work, dbPath string) (*ingest.Summary, error) {
+	created := missing(dbPath)
 	db, err := schema.Open(dbPath, false, nil)
 	if err != nil {
-		return nil, err
+		return nil, err // the lock is another run's: never remove its file
 	}
 	defer db.Close()
-	return w.Merge(c.Context, db, c.String("analysis"), progress(c))
+	sum, err := w.Merge(c.Context, db, c.String("analysis"), progress(c))
+	if err != nil && created {
+		discardIfEmpty(db, dbPath) // see newfile.go
+	}
+	return sum, err
 }

@@ -167,14 +167,26 @@ func rectPath(r vg.Rectangle) vg.Path {
 }
 
 // Write writes the figure as path (.png at dpi dots per inch, or .svg).
+// The image is written to a temporary file beside path and renamed into
+// place when whole, so a failed run leaves an existing file as it was.
 func (f *Figure) Write(path string, dpi int) (err error) {
-	out, err := os.Create(path)
+	out, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+"-*.tmp")
 	if err != nil {
 		return fmt.Errorf("figures: %w", err)
 	}
+	defer os.Remove(out.Name()) // a no-op after the rename
 	defer func() {
 		if cerr := out.Close(); err == nil && cerr != nil {
 			err = fmt.Errorf("figures: %w", cerr)
+		}
+		if err == nil {
+			err = os.Chmod(out.Name(), 0o644)
+		}
+		if err == nil {
+			err = os.Rename(out.Name(), path)
+		}
+		if err != nil && !strings.HasPrefix(err.Error(), "figures:") {
+			err = fmt.Errorf("figures: %w", err)
 		}
 	}()
 	var w io.WriterTo

@@ -1,0 +1,143 @@
+package schema
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/marcboeker/go-duckdb"
+)
+
+// layout1File writes a layout-1 warehouse from testdata/layout1.sql (main's
+// DDL at layout 1, frozen), with one analysis row, after applying edit to
+// the DDL text (to leave out a table or a column that a later layout adds).
+func layout1File(t *testing.T, edit func(string) string) string {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join("testdata", "layout1.sql"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ddl := string(b)
+	if edit != nil {
+		ddl = edit(ddl)
+	}
+	path := tempPath(t)
+	c, err := duckdb.NewConnector(path, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	db := sql.OpenDB(c)
+	defer db.Close()
+	insert := `INSERT INTO analyses (analysis_id, name, created_at, tool_version, parameters, input_dir, n_subjects, n_regions, n_states, n_windows, fit_windows)
+			VALUES (1, 'old', now(), 'v0', '{}', '/in', 3, 5, 2, 24, 24)`
+	if !strings.Contains(ddl, "fit_windows") {
+		insert = strings.Replace(strings.Replace(insert, ", fit_windows)", ")", 1), ", 24)", ")", 1)
+	}
+	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (1, now())`, insert} {
+		if _, err := db.Exec(q); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return path
+}
+
+// TestUpgradeLayout1 upgrades layout-1 files in place: the missing tables
+// and columns of the current DDL appear (new columns nullable, NULL for the
+// old rows), the version becomes 2, and the old rows are kept. DuckDB's
+// information_schema is the referee.
+func TestUpgradeLayout1(t *testing.T) {
+	ctx := context.Background()
+	cases := map[string]func(string) string{
+		"as main had it": nil,
+		// A later layout's additions, simulated by removing them from layout 1.
+		"without a table and a column": func(s string) string {
+			i := strings.Index(s, "CREATE TABLE IF NOT EXISTS state_networks (")
+			j := i + strings.Index(s[i:], ");") + 2
+			s = s[:i] + s[j:]
+			return strings.Replace(s, "    fit_windows  INTEGER NOT NULL     -- windows used to fit the states\n", "", 1)
+		},
+	}
+	for name, edit := range cases {
+		t.Run(name, func(t *testing.T) {
+			path := layout1File(t, edit)
+			ro, err := Open(path, true, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := CheckLayout(ctx, ro); !errors.Is(err, ErrOldLayout) || !strings.Contains(err.Error(), "topostate upgrade --db") {
+				t.Errorf("CheckLayout on a layout-1 file: %v", err)
+			}
+			ro.Close()
+			db, err := Open(path, false, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer db.Close()
+			from, err := Upgrade(ctx, db)
+			if err != nil || from != 1 {
+				t.Fatalf("Upgrade: from %d, %v", from, err)
+			}
+			var v int
+			if err := db.QueryRow(`SELECT max(version) FROM schema_version`).Scan(&v); err != nil || v != Version {
+				t.Errorf("version %d after the upgrade (%v), want %d", v, err, Version)
+			}
+			for _, tb := range DDLColumns() {
+				for _, c := range tb.Columns {
+					var n int
+					db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = ? AND column_name = ?`, tb.Table, c.Name).Scan(&n)
+					if n != 1 {
+						t.Errorf("%s.%s missing after the upgrade", tb.Table, c.Name)
+					}
+				}
+			}
+			var name string
+			var fit sql.NullInt64
+			if err := db.QueryRow(`SELECT name, fit_windows FROM analyses WHERE analysis_id = 1`).Scan(&name, &fit); err != nil || name != "old" {
+				t.Errorf("the old analysis row after the upgrade: %q, %v", name, err)
+			}
+			if edit != nil && fit.Valid {
+				t.Errorf("an added column holds %v for an old row, want NULL", fit.Int64)
+			}
+			if edit == nil && (!fit.Valid || fit.Int64 != 24) {
+				t.Errorf("fit_windows %v after the upgrade, want 24", fit)
+			}
+			// A second upgrade has nothing to do.
+			if from, err := Upgrade(ctx, db); err != nil || from != Version {
+				t.Errorf("second Upgrade: from %d, %v", from, err)
+			}
+		})
+	}
+}
+
+// TestDDLColumnsCoverDDL: the column parser sees every CREATE TABLE and as
+// many columns as the dictionary parser (two parsers of one text).
+func TestDDLColumnsCoverDDL(t *testing.T) {
+	tables := DDLColumns()
+	if got, want := len(tables), strings.Count(ddlV1, "CREATE TABLE IF NOT EXISTS"); got != want {
+		t.Fatalf("%d tables parsed, DDL has %d", got, want)
+	}
+	dict := Dictionary()
+	for i, tb := range tables {
+		if tb.Table != dict[i].Name || len(tb.Columns) != len(dict[i].Columns) {
+			t.Errorf("%s: %d columns parsed, dictionary has %s with %d", tb.Table, len(tb.Columns), dict[i].Name, len(dict[i].Columns))
+		}
+	}
+}
+
+// TestOpenRefusesOptionPaths: a '?' or '%' in a path would be read by the
+// driver as connection settings (another file, other options); refused.
+func TestOpenRefusesOptionPaths(t *testing.T) {
+	dir := t.TempDir()
+	for _, p := range []string{filepath.Join(dir, "w?access_mode=read_write.duckdb"), filepath.Join(dir, "w%zz.duckdb"), ""} {
+		if _, err := Open(p, false, nil); err == nil {
+			t.Errorf("Open(%q) succeeded", p)
+		}
+	}
+	if ents, _ := os.ReadDir(dir); len(ents) != 0 {
+		t.Errorf("a refused open created %d files", len(ents))
+	}
+}
