@@ -63,7 +63,7 @@ func welchRef(a, b []float64) (t, df, p float64) {
 
 // exactPermP enumerates every split of the pooled values into groups of
 // len(a) and len(b) and returns the exact two-sided permutation p-value
-// P(|T*| >= |T|) of the mean difference.
+// P(|T*| >= |T|) of Welch's t (the studentised statistic).
 func exactPermP(a, b []float64) float64 {
 	// perm_test_mean is studentised: its statistic is Welch's t (welchRef),
 	// so the exact distribution enumerates Welch's t over every split.
