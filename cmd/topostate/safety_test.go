@@ -265,7 +265,6 @@ func execSQL(t *testing.T, path string, stmts ...string) {
 	}
 }
 
-
 // TestDurableCommit: with the checkpoint failing after the COMMIT (as a
 // full disk makes it fail; a test hook, as the crash tests use), ingest
 // must not report success: exit 1, nothing on standard output, and a
