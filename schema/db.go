@@ -8,7 +8,6 @@ import (
 	"errors"
 	"fmt"
 	"os"
-	"regexp"
 	"strings"
 
 	"github.com/marcboeker/go-duckdb"
@@ -232,38 +231,17 @@ type DDLTable struct {
 // (DOUBLE, VARCHAR[], DECIMAL(9,3), ...), without constraints.
 type DDLColumn struct{ Name, Type string }
 
-var ddlColumnRe = regexp.MustCompile(`^"?(\w+)"?\s+(.+?)(\s+(NOT\s+NULL|PRIMARY\s+KEY|UNIQUE|DEFAULT\s.*))*\s*,?$`)
-
-// DDLColumns parses the CREATE TABLE blocks of the embedded DDL (one column
-// per line, comments after "--"), in order. These are the only tables
+// DDLColumns lists the CREATE TABLE blocks of the embedded DDL in order,
+// from the same parse as Dictionary. These are the only tables
 // topostate owns: drop and upgrade touch nothing else.
 func DDLColumns() []DDLTable {
 	var out []DDLTable
-	var cur *DDLTable
-	for _, raw := range strings.Split(ddlV1, "\n") {
-		line := raw
-		if i := strings.Index(line, "--"); i >= 0 {
-			line = line[:i]
+	for _, t := range Dictionary() {
+		d := DDLTable{Table: t.Name}
+		for _, c := range t.Columns {
+			d.Columns = append(d.Columns, DDLColumn{Name: c.Column, Type: c.Type})
 		}
-		line = strings.TrimSpace(line)
-		if line == "" {
-			continue
-		}
-		if m := createRe.FindStringSubmatch(line); m != nil {
-			out = append(out, DDLTable{Table: m[1]})
-			cur = &out[len(out)-1]
-			continue
-		}
-		if cur == nil {
-			continue
-		}
-		if strings.HasPrefix(line, ")") {
-			cur = nil
-			continue
-		}
-		if m := ddlColumnRe.FindStringSubmatch(line); m != nil {
-			cur.Columns = append(cur.Columns, DDLColumn{Name: m[1], Type: strings.TrimSpace(m[2])})
-		}
+		out = append(out, d)
 	}
 	return out
 }

@@ -24,7 +24,7 @@ type TableDoc struct {
 
 var (
 	createRe = regexp.MustCompile(`^CREATE TABLE IF NOT EXISTS (\w+) \($`)
-	columnRe = regexp.MustCompile(`^(\w+)\s+([A-Z]+)((?:\s+NOT NULL|\s+PRIMARY KEY|\s+UNIQUE)*)\s*,?\s*(?:--\s*(.*))?$`)
+	columnRe = regexp.MustCompile(`^(\w+)\s+([A-Z]+(?:\([0-9, ]+\))?(?:\[\])?)((?:\s+NOT NULL|\s+PRIMARY KEY|\s+UNIQUE)*)\s*,?\s*(?:--\s*(.*))?$`)
 )
 
 // Dictionary reads the table and column descriptions from the comments of
