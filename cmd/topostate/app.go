@@ -86,7 +86,9 @@ func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	defer stop()
 	var finished atomic.Bool
 	defer finished.Store(true) // runs before stop: no message for a normal end
+	announced := make(chan struct{})
 	context.AfterFunc(ctx, func() {
+		defer close(announced)
 		stop() // a second Ctrl-C ends the process at once
 		if !finished.Load() {
 			fmt.Fprintln(stderr, "topostate: stop requested; stopping at the next safe point (Ctrl-C again stops at once; the warehouse keeps only whole analyses either way)")
@@ -106,6 +108,7 @@ func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return exitOK
 	}
 	if errors.Is(err, context.Canceled) {
+		<-announced // the acknowledgement comes before the verdict, however fast the stop
 		fmt.Fprintln(stderr, "topostate: interrupted; nothing from this run was written")
 		return exitFailure
 	}
