@@ -14,8 +14,8 @@ import (
 // Options are every setting of one ingest. They are stored as JSON with the
 // analysis, so the field names are part of the warehouse.
 type Options struct {
-	Input    string  `json:"input"`
-	TR       float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
+	Input string  `json:"input"`
+	TR    float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
 	// Window is the window width in time points; 0 (the default) takes it
 	// from the rule of docs/methods.md §2, the smallest whole number of time
 	// points spanning at least 1/MinFreq seconds at the cohort's shortest
@@ -116,7 +116,7 @@ func Defaults() Options {
 	return Options{
 		Window: 0, MinFreq: DefaultMinFreq, Step: 1, Taper: "none", TaperSD: 0,
 		StatesMin: 1, StatesMax: 10, KRule: "strength", GapReferences: 10, GapWindows: 400,
-		StrengthSplits: 5, StrengthWindows: 1000, StrengthThreshold: compute.DefaultStrengthThreshold, Restarts: 5, MaxIter: 150, Seed: 1,
+		StrengthSplits: 5, StrengthWindows: 1000, StrengthThreshold: compute.DefaultStrengthThreshold, Restarts: 3, MaxIter: 50, Seed: 1,
 		Distance: "euclidean", FitMax: 20000, FitSample: "peaks",
 		Grid:         "-1:1:101",
 		OnBadSubject: "fail", ConstantRegion: "fail",

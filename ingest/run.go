@@ -188,6 +188,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.Occupancies = occ
 	sum.WorkerTimes = st.work.list()
 	sum.Fits = st.fits
+	sum.Warnings = c.Warnings // fit may have added one
 	return sum, nil
 }
 
@@ -581,6 +582,9 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 				res = r
 			}
 		}
+	}
+	if !res.Converged {
+		s.c.Warnings = append(s.c.Warnings, fmt.Sprintf("the k-means fit at k = %d stopped at --max-iter %d before converging (relative change of W above 1e-6); its states may move with more iterations: raise --max-iter", s.k, s.o.MaxIter))
 	}
 	// Relabel: most frequent state first, ties by old label.
 	count := make([]int, s.k)
