@@ -124,10 +124,10 @@ func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int) er
 		return err
 	}
 	type row struct {
-		state      int
+		state              int
 		waitlist, practice []float64
-		welch      compute.WelchResult
-		perm       compute.TestResult
+		welch              compute.WelchResult
+		perm               compute.TestResult
 	}
 	rs := make([]row, k)
 	rows, err := db.QueryContext(ctx, `
