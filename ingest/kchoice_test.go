@@ -1,9 +1,12 @@
 package ingest
 
 import (
+	"fmt"
 	"path/filepath"
+	"strconv"
 	"testing"
 
+	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/schema"
 )
 
@@ -49,4 +52,69 @@ func TestGapRuleFindsTrueK(t *testing.T) {
 		}
 		db.Close()
 	}
+}
+
+// TestDefaultRuleFindsTrueK runs the real ingest path with the default
+// options (prediction strength, Tibshirani and Walther 2005, over k =
+// 1..10, the default window from --min-freq) on generated cohorts with one,
+// two and four latent states: the pick must be the true k, and the elbow
+// table must hold the strength columns with the chosen row as their pick.
+// TR 1.5 s gives the default window ceil(1/(0.01 x 1.5)) = 67 time points;
+// stickiness 0.99 gives a mean dwell of 100 time points (150 s), longer than
+// the window, as states must be for windows of that width to resolve them.
+func TestDefaultRuleFindsTrueK(t *testing.T) {
+	for _, want := range []int{1, 2, 4} {
+		dir := makeStickyCohort(t, 8, 16, 600, want, 31)
+		dbPath := filepath.Join(t.TempDir(), "w.duckdb")
+		o := Defaults()
+		o.Input, o.Grid, o.Seed = dir, "-0.5:1:31", 13
+		o.AllRules = true
+		sum := ingestInto(t, dbPath, o)
+		t.Logf("true %d: strength %d gap %d chord %d second %d", want, sum.Elbow.Strength.K, sum.Elbow.Gap.K, sum.Elbow.ChordK, sum.Elbow.SecondDiffK)
+		if sum.Elbow == nil || sum.Elbow.Strength == nil || sum.States != sum.Elbow.Strength.K || sum.States != want {
+			t.Errorf("%d latent states: picked %d (strength %+v)", want, sum.States, sum.Elbow.Strength)
+			continue
+		}
+		db, err := schema.Open(dbPath, true, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if n := queryInt(t, db, `SELECT count(*) FROM elbow WHERE strength IS NULL OR strength_se IS NULL`); n != 0 {
+			t.Errorf("%d elbow rows without strength values", n)
+		}
+		if n := queryInt(t, db, `SELECT count(*) FROM elbow WHERE strength_pick AND chosen AND k = ?`, sum.States); n != 1 {
+			t.Errorf("the chosen row is not the strength pick k = %d", sum.States)
+		}
+		if n := queryInt(t, db, `SELECT count(*) FROM analyses WHERE (parameters->>'window')::INT = 67`); n != 1 {
+			t.Errorf("stored window is not the rule's 67 time points")
+		}
+		db.Close()
+	}
+}
+
+// makeStickyCohort is makeCohort with stickiness 0.99.
+func makeStickyCohort(t *testing.T, subjects, regions, timepoints, states int, seed uint64) string {
+	t.Helper()
+	dir := filepath.Join(t.TempDir(), "cohort")
+	spec := compute.CohortSpec{Subjects: subjects, Regions: regions, Timepoints: timepoints, States: states,
+		TR: 1.5, Stickiness: 0.99, Offset: 500, Seed: seed}
+	subs, err := compute.SimulateCohort(spec)
+	if err != nil {
+		t.Fatal(err)
+	}
+	names := make([]string, regions)
+	for j := range names {
+		names[j] = fmt.Sprintf("r%02d", j)
+	}
+	ids := make([]string, len(subs))
+	series := make([]compute.Series, len(subs))
+	rows := make([]SyntheticParticipant, len(subs))
+	for i, s := range subs {
+		ids[i], series[i] = s.ID, s.Series
+		rows[i] = SyntheticParticipant{ID: s.ID, Cells: []string{s.Group, strconv.Itoa(30 + i)}}
+	}
+	if err := WriteCohort(dir, names, 1.5, ids, series, []string{"group", "age"}, rows); err != nil {
+		t.Fatal(err)
+	}
+	return dir
 }
