@@ -40,8 +40,9 @@ func main() {
 	regions := flag.Int("regions", 20, "regions per series")
 	timepoints := flag.Int("timepoints", 400, "time points per series")
 	workers := flag.Int("workers", 2, "ingest workers")
+	stickiness := flag.Float64("stickiness", 0.97, "per-time-point probability of staying in a state (topostate simulate --stickiness; mean dwell 1/(1-q) time points)")
 	flag.Parse()
-	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers); err != nil {
+	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers, *stickiness); err != nil {
 		fmt.Fprintln(os.Stderr, "kchoice:", err)
 		os.Exit(1)
 	}
@@ -67,7 +68,7 @@ func uptime() string {
 	return strings.Join(strings.Fields(string(b))[:3], " ")
 }
 
-func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int) error {
+func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int, stickiness float64) error {
 	states, err := ints(statesList)
 	if err != nil {
 		return err
@@ -90,8 +91,8 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 		return fmt.Errorf("build: %v\n%s", err, out)
 	}
 	d := ingest.Defaults()
-	fmt.Printf("cohorts: %d subjects x %d time points x %d regions, TR 2 s, stickiness 0.97, latent autocorrelation 0.5 (simulate's defaults), %d cohorts per true k and noise level\n",
-		subjects, timepoints, regions, cohorts)
+	fmt.Printf("cohorts: %d subjects x %d time points x %d regions, TR 2 s, stickiness %g (mean dwell %.0f time points), latent autocorrelation 0.5 (simulate's default), %d cohorts per true k and noise level\n",
+		subjects, timepoints, regions, stickiness, 1/(1-stickiness), cohorts)
 	fmt.Printf("ingest defaults: window %d time points (1/min-freq = %g s at TR 2 s), k = %d..%d, %d restarts, %d iterations; strength %d halvings of at most %d windows, threshold %g; gap B = %d on at most %d windows\n",
 		ingest.WindowFor(2, d.MinFreq), 1/d.MinFreq, d.StatesMin, d.StatesMax, d.Restarts, d.MaxIter, d.StrengthSplits, d.StrengthWindows, d.StrengthThreshold, d.GapReferences, d.GapWindows)
 	fmt.Printf("load average before: %s\n", uptime())
@@ -117,7 +118,7 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 				cmd := exec.Command(bin, "simulate", "--out", dir, "--subjects", strconv.Itoa(subjects),
 					"--regions", strconv.Itoa(regions), "--timepoints", strconv.Itoa(timepoints),
 					"--states", strconv.Itoa(k), "--noise", strconv.FormatFloat(noise, 'g', -1, 64),
-					"--seed", strconv.FormatUint(seed, 10))
+					"--seed", strconv.FormatUint(seed, 10), "--stickiness", strconv.FormatFloat(stickiness, 'g', -1, 64))
 				if out, err := cmd.CombinedOutput(); err != nil {
 					return fmt.Errorf("simulate: %v\n%s", err, out)
 				}
