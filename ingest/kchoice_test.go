@@ -15,9 +15,9 @@ import (
 // generator) with one and with two latent states: the gap statistic
 // (Tibshirani, Walther and Hastie, 2001) must pick 1 for the one-state
 // cohort and more than 1 for the two-state one. (It picks 3 there, not 2:
-// windows that straddle a state change form a third group of intermediate
-// correlations; see README "Number of states" for what is not yet measured.)
-// The one-state
+// with mean dwells of 20 time points most 20-point windows straddle a state
+// change and form a continuum between the states; README "Number of
+// states" has the measured accuracy of every rule.) The one-state
 // analysis must then be stored with k = 1 and trivial dynamics (every window
 // in state 1, no transitions), and the elbow table must hold the gap columns.
 func TestGapRuleFindsTrueK(t *testing.T) {
