@@ -30,8 +30,9 @@ type StrengthOptions struct {
 
 // DefaultStrengthThreshold is the prediction strength a number of clusters
 // must reach: the middle of the range 0.8-0.9 Tibshirani and Walther (2005)
-// recommend; 0.85 was the best of 0.8, 0.85 and 0.9 on simulated cohorts
-// (README "Number of states").
+// recommend; 0.85 did best of 0.8, 0.85 and 0.9 in a one-off measurement
+// when the rule was introduced (5 simulated cohorts per true k in
+// {1, 2, 3, 5} at two noise levels, window 30: 17 of 20 right at noise 0.3).
 const DefaultStrengthThreshold = 0.85
 
 // StrengthPoint is the prediction strength at one k.
