@@ -352,11 +352,17 @@ func confounded(rng *rand.Rand, subjects, sessions int, skew bool) (y, g, c []fl
 	return y, g, c, ids
 }
 
-type rates struct{ adjusted, parametric, naive, n int }
+type rates struct {
+	adjusted, parametric, naive, n int
+	blocked                        bool
+}
 
 func (r rates) String() string {
 	f := func(k int) string { return fmt.Sprintf("%d/%d = %.3f", k, r.n, float64(k)/float64(r.n)) }
-	return fmt.Sprintf("Freedman-Lane perm p %s, parametric p %s, naive %s", f(r.adjusted), f(r.parametric), f(r.naive))
+	if r.blocked {
+		return fmt.Sprintf("Freedman-Lane whole-block perm p %s (parametric p not given), rows permuted ignoring subjects %s", f(r.adjusted), f(r.naive))
+	}
+	return fmt.Sprintf("Freedman-Lane perm p %s, parametric p %s, naive unadjusted studentised permutation %s", f(r.adjusted), f(r.parametric), f(r.naive))
 }
 
 // calibrate counts rejections at alpha 0.05 over reps null cohorts. The
@@ -366,7 +372,7 @@ func (r rates) String() string {
 // block).
 func calibrate(t *testing.T, reps, subjects, sessions, nPerm int, skew bool, seed uint64) rates {
 	rng := rand.New(rand.NewPCG(seed, 99))
-	var r rates
+	r := rates{blocked: sessions > 1}
 	for range reps {
 		y, g, c, ids := confounded(rng, subjects, sessions, skew)
 		prng := rand.New(rand.NewPCG(rng.Uint64(), 0))
