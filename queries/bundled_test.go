@@ -540,7 +540,7 @@ func TestBundledHeaders(t *testing.T) {
 			t.Errorf("%s lives in %s; name files after their query", q.Name, q.File)
 		}
 	}
-	want := []string{"betti_curves_by_group", "covariate_association", "filtration_tests_by_group",
+	want := []string{"adjusted_group_contrast", "betti_curves_by_group", "covariate_association", "filtration_tests_by_group",
 		"state_dwell_by_group", "state_pairs_ks", "subject_features", "transitions_by_group"}
 	if !slices.Equal(names, want) {
 		t.Errorf("bundled %v, want %v", names, want)
@@ -598,6 +598,7 @@ func TestInjectionHarmless(t *testing.T) {
 		{"state_dwell_by_group", map[string]string{"group_column": `group" FROM subjects; DROP TABLE subjects; --`, "group_a": "a", "group_b": "b"}, true},
 		{"state_pairs_ks", map[string]string{"analysis": "1; DROP TABLE subjects"}, true},
 		{"covariate_association", map[string]string{"covariate": evil}, true},
+		{"adjusted_group_contrast", map[string]string{"group_a": "day", "group_b": "night", "adjust": "age," + evil}, true},
 	} {
 		q, err := Lookup(FS, c.query)
 		if err != nil {
