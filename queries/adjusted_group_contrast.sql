@@ -60,7 +60,8 @@ all_design AS (
            coalesce(list(CASE WHEN a.is_numeric THEN c.value::DOUBLE END ORDER BY a.k)
                     FILTER (WHERE a.is_numeric AND c.value IS NOT NULL), []) AS num,
            coalesce(list(c.value ORDER BY a.k) FILTER (WHERE NOT a.is_numeric AND c.value IS NOT NULL), []) AS fac,
-           count(c.value) AS n_given
+           count(c.value) AS n_given,
+           coalesce(list(a.name ORDER BY NOT a.is_numeric, a.k) FILTER (WHERE a.name IS NOT NULL), []) AS names
     FROM grp g
     LEFT JOIN adj a ON true
     LEFT JOIN cov_long c ON c.subject_id = g.subject_id AND c.name = a.name
@@ -107,7 +108,8 @@ samples AS (
            list(CASE WHEN d.side = 'a' THEN 1.0 ELSE 0.0 END ORDER BY d.subject_id) AS x,
            list(d.num ORDER BY d.subject_id) AS num,
            list(d.fac ORDER BY d.subject_id) AS fac,
-           list(d.subject_id ORDER BY d.subject_id) AS ids
+           list(d.subject_id ORDER BY d.subject_id) AS ids,
+           any_value(d.names) AS names
     FROM long l JOIN design d USING (subject_id)
     GROUP BY l.mi, l.measure, l.state
 ),
@@ -121,7 +123,7 @@ sized AS (
 tests AS (
     SELECT *,
            CASE WHEN n_a >= 2 AND n_b >= 2 AND n >= n_columns + 2
-                THEN lm_test(y, x, num, fac, ids, getvariable('n_perm')::INTEGER,
+                THEN lm_test(y, x, num, fac, names, ids, getvariable('n_perm')::INTEGER,
                              getvariable('seed') + 100 * mi + coalesce(state, 0)) END AS r
     FROM sized
 )

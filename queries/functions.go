@@ -258,12 +258,12 @@ func Functions() []*Function {
 		},
 		{
 			Name: "lm_test",
-			Signature: "lm_test(y DOUBLE[], x DOUBLE[], covariates DOUBLE[][], factors VARCHAR[][], ids VARCHAR[], n_perm INTEGER, seed BIGINT) " +
+			Signature: "lm_test(y DOUBLE[], x DOUBLE[], covariates DOUBLE[][], factors VARCHAR[][], names VARCHAR[], ids VARCHAR[], n_perm INTEGER, seed BIGINT) " +
 				"-> STRUCT(estimate DOUBLE, se DOUBLE, t DOUBLE, df DOUBLE, p DOUBLE, perm_p DOUBLE)",
 			Doc: "Least-squares test of the term x in y = b0 + b1 x + covariates + factors + e, one list element per row " +
 				"(subject): covariates[i] holds row i's numeric covariates and factors[i] its categorical ones (as text; " +
-				"each coded as indicator columns, the first level in sorted order the reference; [] for none), ids[i] its " +
-				"subject. estimate is b1 (with x a 0/1 group indicator: the adjusted difference of group 1 minus group 0), " +
+				"each coded as indicator columns, the first level in sorted order the reference; [] for none), names the " +
+				"names of the covariates then of the factors, for messages ([] numbers them), ids[i] row i's subject. estimate is b1 (with x a 0/1 group indicator: the adjusted difference of group 1 minus group 0), " +
 				"se its standard error, t = estimate/se on df = n - columns degrees of freedom, p the two-sided Student t " +
 				"p-value, perm_p the Freedman-Lane (1983) permutation p-value (Winkler et al. 2014): the residuals of the " +
 				"model without x are permuted n_perm times, added back to its fitted values and t recomputed; " +
@@ -273,7 +273,7 @@ func Functions() []*Function {
 				"of equal size), and p is then NULL: the t distribution assumes independent rows. An error for a " +
 				"rank-deficient design (the message names the column), fewer than columns + 2 rows, lists of unequal " +
 				"length or a NULL element.",
-			in:  []duckdb.TypeInfo{tList, tList, tListList, tTextLL, tTextList, tInteger, tBigint},
+			in:  []duckdb.TypeInfo{tList, tList, tListList, tTextLL, tTextList, tTextList, tInteger, tBigint},
 			out: structOf("estimate", "DOUBLE", "se", "DOUBLE", "t", "DOUBLE", "df", "DOUBLE", "p", "DOUBLE", "perm_p", "DOUBLE"),
 			fn:  lmTest,
 		},
@@ -337,7 +337,11 @@ func lmTest(a []driver.Value) (any, error) {
 	if err != nil {
 		return nil, err
 	}
-	ids, err := texts("ids", a[4])
+	names, err := texts("names", a[4])
+	if err != nil {
+		return nil, err
+	}
+	ids, err := texts("ids", a[5])
 	if err != nil {
 		return nil, err
 	}
@@ -356,6 +360,17 @@ func lmTest(a []driver.Value) (any, error) {
 			facs = append(facs, compute.Factor{Name: fmt.Sprintf("factor %d", j+1), Values: make([]string, n)})
 		}
 	}
+	if len(names) > 0 {
+		if len(names) != len(covs)+len(facs) {
+			return nil, fmt.Errorf("names has %d elements for %d covariates and %d factors: give one name each, or []", len(names), len(covs), len(facs))
+		}
+		for j := range covs {
+			covs[j].Name = names[j]
+		}
+		for j := range facs {
+			facs[j].Name = names[len(covs)+j]
+		}
+	}
 	for i := range n {
 		if len(covRows[i]) != len(covs) || len(facRows[i]) != len(facs) {
 			return nil, fmt.Errorf("row %d has %d covariates and %d factors, row 1 has %d and %d: every row needs the same", i+1,
@@ -368,7 +383,7 @@ func lmTest(a []driver.Value) (any, error) {
 			facs[j].Values[i] = v
 		}
 	}
-	r, err := compute.FreedmanLaneTest(y, x, covs, facs, ids, int(a[5].(int32)), seeded(a[6].(int64)))
+	r, err := compute.FreedmanLaneTest(y, x, covs, facs, ids, int(a[6].(int32)), seeded(a[7].(int64)))
 	if err != nil {
 		return nil, err
 	}

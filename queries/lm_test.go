@@ -146,7 +146,7 @@ func TestLMTestFunction(t *testing.T) {
 		for i := range n {
 			idq[i] = "'" + idList[i] + "'"
 		}
-		q := fmt.Sprintf("SELECT lm_test(%s::DOUBLE[], %s::DOUBLE[], %s, %s, %s::VARCHAR[], 999, 3) AS r",
+		q := fmt.Sprintf("SELECT lm_test(%s::DOUBLE[], %s::DOUBLE[], %s, %s, [], %s::VARCHAR[], 999, 3) AS r",
 			pick(ys), pick(xs), pick(numL), pick(facL), pick(idq))
 		rows, err := conn.QueryContext(ctx, "SELECT r.estimate, r.se, r.t, r.df, r.p, r.perm_p FROM ("+q+")")
 		if err != nil {
@@ -186,13 +186,14 @@ func TestLMTestFunction(t *testing.T) {
 		t.Errorf("blocked rows: %v; want p NULL and the same t %v", blocked, tt)
 	}
 	for _, c := range []struct{ q, want string }{
-		{"SELECT lm_test([1.0, 2, 3, 4], [0.0, 1, 0, 1], [[1.0], [2], [3], [5]], [[], [], [], []]::VARCHAR[][], ['a','b','c','d'], 9, 1)", "4 rows for 3 model columns"},
-		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3], [1], [3]], [[], [], [], [], [], []]::VARCHAR[][], ['a','b','c','d','e','f'], 9, 1)", `column "covariate 1" is constant or a linear combination of (intercept), (tested term)`},
-		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[], [], [], [], [], []]::DOUBLE[][], [['x'], ['y'], ['x'], ['y'], ['x'], ['y']], ['a','b','c','d','e','f'], 9, 1)", `column "factor 1=y"`},
-		{"SELECT lm_test([1.0, 2, 3, NULL], [0.0, 1, 0, 1], [[], [], [], []]::DOUBLE[][], [[], [], [], []]::VARCHAR[][], ['a','b','c','d'], 9, 1)", "argument y: element 4 is NULL"},
-		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3], [1]], [[], [], [], [], [], []]::VARCHAR[][], ['a','b','c','d','e','f'], 9, 1)", "covariates 5 rows"},
-		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3, 4], [1], [3]], [[], [], [], [], [], []]::VARCHAR[][], ['a','b','c','d','e','f'], 9, 1)", "row 4 has 2 covariates"},
-		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6, 7], [0.0, 1, 0, 1, 0, 1, 0], [[], [], [], [], [], [], []]::DOUBLE[][], [[], [], [], [], [], [], []]::VARCHAR[][], ['a','a','b','b','c','c','c'], 9, 1)", "whole-block permutation needs blocks of equal size"},
+		{"SELECT lm_test([1.0, 2, 3, 4], [0.0, 1, 0, 1], [[1.0], [2], [3], [5]], [[], [], [], []]::VARCHAR[][], [], ['a','b','c','d'], 9, 1)", "4 rows for 3 model columns"},
+		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3], [1], [3]], [[], [], [], [], [], []]::VARCHAR[][], [], ['a','b','c','d','e','f'], 9, 1)", `column "covariate 1" is constant or a linear combination of (intercept), (tested term)`},
+		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[], [], [], [], [], []]::DOUBLE[][], [['x'], ['y'], ['x'], ['y'], ['x'], ['y']], ['arm'], ['a','b','c','d','e','f'], 9, 1)", `column "arm=y"`},
+		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[], [], [], [], [], []]::DOUBLE[][], [['x'], ['y'], ['x'], ['y'], ['x'], ['y']], ['arm', 'age'], ['a','b','c','d','e','f'], 9, 1)", "names has 2 elements for 0 covariates and 1 factors"},
+		{"SELECT lm_test([1.0, 2, 3, NULL], [0.0, 1, 0, 1], [[], [], [], []]::DOUBLE[][], [[], [], [], []]::VARCHAR[][], [], ['a','b','c','d'], 9, 1)", "argument y: element 4 is NULL"},
+		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3], [1]], [[], [], [], [], [], []]::VARCHAR[][], [], ['a','b','c','d','e','f'], 9, 1)", "covariates 5 rows"},
+		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3, 4], [1], [3]], [[], [], [], [], [], []]::VARCHAR[][], [], ['a','b','c','d','e','f'], 9, 1)", "row 4 has 2 covariates"},
+		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6, 7], [0.0, 1, 0, 1, 0, 1, 0], [[], [], [], [], [], [], []]::DOUBLE[][], [[], [], [], [], [], [], []]::VARCHAR[][], [], ['a','a','b','b','c','c','c'], 9, 1)", "whole-block permutation needs blocks of equal size"},
 	} {
 		var v any
 		err := conn.QueryRowContext(ctx, c.q).Scan(&v)

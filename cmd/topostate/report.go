@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"github.com/urfave/cli/v2"
 
@@ -30,6 +31,7 @@ func reportCommand() *cli.Command {
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
 			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "relabellings of every permutation test"},
 			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation seed"},
+			&cli.StringFlag{Name: "adjust", Usage: "comma-separated subjects `COLUMNS` (e.g. age,sex,site): add group contrasts adjusted for them (bundled query adjusted_group_contrast)"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {
@@ -60,10 +62,11 @@ func reportCommand() *cli.Command {
 			}
 			r, err := report.Build(c.Context, db, conn, report.Options{
 				Analysis: c.String("analysis"), Group: c.String("group"), DefaultGroup: !c.IsSet("group"),
-				NPerm: c.Int("n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"),
+				NPerm: c.Int("n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"), Adjust: adjustList(c.String("adjust")),
 				Caution: caution, Generator: "topostate " + ingest.Version,
 			})
-			if errors.Is(err, figures.ErrUsage) {
+			var perr *queries.ParamError
+			if errors.Is(err, figures.ErrUsage) || errors.As(err, &perr) {
 				return usageError{err}
 			}
 			if err != nil {
@@ -79,6 +82,17 @@ func reportCommand() *cli.Command {
 			return nil
 		},
 	}
+}
+
+// adjustList splits --adjust at commas; "" gives nil (no adjusted table).
+func adjustList(s string) []string {
+	var out []string
+	for _, p := range strings.Split(s, ",") {
+		if p = strings.TrimSpace(p); p != "" {
+			out = append(out, p)
+		}
+	}
+	return out
 }
 
 // writeFileAtomic renders r into a temporary file beside path and renames
