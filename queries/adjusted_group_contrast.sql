@@ -4,7 +4,7 @@
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group
--- param: adjust columns = '' -- comma-separated subjects columns to adjust for, e.g. age,sex,site; numeric columns enter as they are, other columns as indicators; empty: no covariates
+-- param: adjust columns = '' -- comma-separated subjects columns to adjust for, e.g. age,sex,site; numeric columns enter as they are, other columns as indicators; empty: no covariates (betti0_area is always adjusted for the state's run share and occupancy too)
 -- param: n_perm integer = 9999 -- permutations per Freedman-Lane test
 -- param: seed integer = 1 -- permutation seed; row k uses seed + 100 * measure number + state
 -- One row per measure and state: occupancy (share of windows, 0-1) and
@@ -23,9 +23,11 @@
 -- subjects who never visited the state. A row with fewer than 2 subjects
 -- in a group or fewer subjects than model columns + 2 has NULL results.
 -- p_bh and perm_p_bh adjust across every row of the result (all measures
--- and states). Betti-0 area also differs when groups differ only in dwell
--- time (windows that straddle a switch blur the state networks): read it
--- with dwell_seconds beside it.
+-- and states). betti0_area is also adjusted for the subject's run share
+-- (1 / mean dwell in windows: the share of the state's windows that start
+-- a run) and occupancy of the state: windows that straddle a switch blur a
+-- state network, the more so the shorter the dwells, so without this a
+-- dwell difference alone would show as a topology difference.
 WITH grp AS (
     SELECT subject_id, side
     FROM subject_groups(getvariable('analysis'), getvariable('group_column'),
@@ -61,7 +63,8 @@ all_design AS (
                     FILTER (WHERE a.is_numeric AND c.value IS NOT NULL), []) AS num,
            coalesce(list(c.value ORDER BY a.k) FILTER (WHERE NOT a.is_numeric AND c.value IS NOT NULL), []) AS fac,
            count(c.value) AS n_given,
-           coalesce(list(a.name ORDER BY NOT a.is_numeric, a.k) FILTER (WHERE a.name IS NOT NULL), []) AS names
+           coalesce(list(a.name ORDER BY a.k) FILTER (WHERE a.is_numeric), []) AS num_names,
+           coalesce(list(a.name ORDER BY a.k) FILTER (WHERE NOT a.is_numeric), []) AS fac_names
     FROM grp g
     LEFT JOIN adj a ON true
     LEFT JOIN cov_long c ON c.subject_id = g.subject_id AND c.name = a.name
@@ -71,7 +74,8 @@ design AS (
     SELECT * FROM all_design WHERE n_given = (SELECT count(*) FROM adj)
 ),
 metrics AS (
-    SELECT subject_id, state, avg(occupancy) AS occupancy, avg(mean_dwell_seconds) AS dwell_seconds
+    SELECT subject_id, state, avg(occupancy) AS occupancy, avg(mean_dwell_seconds) AS dwell_seconds,
+           avg(1.0 / mean_dwell_windows) AS run_share
     FROM state_metrics
     WHERE analysis_id = getvariable('analysis')
     GROUP BY ALL
@@ -91,14 +95,23 @@ b0_area AS (
     GROUP BY ALL
 ),
 long AS (
-    SELECT subject_id, 1 AS mi, 'occupancy' AS measure, state, occupancy AS y FROM metrics
+    -- extra: nuisance columns of this measure only, beside the user's
+    SELECT subject_id, 1 AS mi, 'occupancy' AS measure, state, occupancy AS y,
+           []::DOUBLE[] AS extra, []::VARCHAR[] AS extra_names
+    FROM metrics
     UNION ALL
-    SELECT subject_id, 2, 'dwell_seconds', state, dwell_seconds FROM metrics WHERE dwell_seconds IS NOT NULL
+    SELECT subject_id, 2, 'dwell_seconds', state, dwell_seconds, [], []
+    FROM metrics WHERE dwell_seconds IS NOT NULL
     UNION ALL
-    SELECT subject_id, 3, 'switch_rate', NULL, avg(switch_rate)
+    SELECT subject_id, 3, 'switch_rate', NULL, avg(switch_rate), [], []
     FROM subject_dynamics WHERE analysis_id = getvariable('analysis') GROUP BY subject_id
     UNION ALL
-    SELECT subject_id, 4, 'betti0_area', state, area FROM b0_area
+    -- the Betti-0 area is adjusted for the subject's run share and
+    -- occupancy of the state as well (docs/methods.md §8)
+    SELECT b.subject_id, 4, 'betti0_area', b.state, b.area,
+           [m.run_share, m.occupancy], ['run_share', 'occupancy']
+    FROM b0_area b JOIN metrics m USING (subject_id, state)
+    WHERE m.dwell_seconds IS NOT NULL
 ),
 samples AS (
     SELECT l.mi, l.measure, l.state, count(*) AS n,
@@ -106,10 +119,10 @@ samples AS (
            count(*) FILTER (WHERE d.side = 'b') AS n_b,
            list(l.y ORDER BY d.subject_id) AS y,
            list(CASE WHEN d.side = 'a' THEN 1.0 ELSE 0.0 END ORDER BY d.subject_id) AS x,
-           list(d.num ORDER BY d.subject_id) AS num,
+           list(list_concat(d.num, l.extra) ORDER BY d.subject_id) AS num,
            list(d.fac ORDER BY d.subject_id) AS fac,
            list(d.subject_id ORDER BY d.subject_id) AS ids,
-           any_value(d.names) AS names
+           any_value(list_concat(list_concat(d.num_names, l.extra_names), d.fac_names)) AS names
     FROM long l JOIN design d USING (subject_id)
     GROUP BY l.mi, l.measure, l.state
 ),

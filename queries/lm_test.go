@@ -234,11 +234,12 @@ func outcomesOf(t *testing.T, conn *sql.Conn, id int) map[lmKey]map[string]float
 		sums[k][sub].sum += v
 		sums[k][sub].n++
 	}
-	for _, r := range rawConn(t, conn, `SELECT subject_id, state, occupancy, mean_dwell_seconds FROM state_metrics WHERE analysis_id = ?`, id) {
+	for _, r := range rawConn(t, conn, `SELECT subject_id, state, occupancy, mean_dwell_seconds, mean_dwell_windows FROM state_metrics WHERE analysis_id = ?`, id) {
 		sub, st := r["subject_id"].(string), int(num(r["state"]))
 		add(lmKey{"occupancy", st}, sub, num(r["occupancy"]))
 		if r["mean_dwell_seconds"] != nil {
 			add(lmKey{"dwell_seconds", st}, sub, num(r["mean_dwell_seconds"]))
+			add(lmKey{"run_share", st}, sub, 1/num(r["mean_dwell_windows"]))
 		}
 	}
 	for _, r := range rawConn(t, conn, `SELECT subject_id, switch_rate FROM subject_dynamics WHERE analysis_id = ?`, id) {
@@ -345,23 +346,35 @@ func TestAdjustedGroupContrast(t *testing.T) {
 		y, x := make([]float64, n), make([]float64, n)
 		numv, facv := make([][]float64, n), make([][]string, n)
 		ages, sites := make([]float64, n), make([]string, n)
+		runs, occs := make([]float64, n), make([]float64, n)
 		na := 0
 		for i, sub := range subs {
 			y[i], x[i] = outcomes[k][sub], group[sub]
 			numv[i], facv[i] = []float64{age[sub]}, []string{site[sub]}
 			ages[i], sites[i] = age[sub], site[sub]
 			na += int(x[i])
+			// betti0_area: also the state's run share and occupancy.
+			runs[i], occs[i] = outcomes[lmKey{"run_share", st}][sub], outcomes[lmKey{"occupancy", st}][sub]
+			if k.measure == "betti0_area" {
+				numv[i] = append(numv[i], runs[i], occs[i])
+			}
+		}
+		covs := []compute.Covariate{{Name: "age", Values: ages}}
+		cols := 5
+		if k.measure == "betti0_area" {
+			covs = append(covs, compute.Covariate{Name: "run_share", Values: runs}, compute.Covariate{Name: "occupancy", Values: occs})
+			cols = 7
 		}
 		b, se, tt, p := choleskyOLS(t, designOf(x, numv, facv), y, 1)
-		fl, err := compute.FreedmanLaneTest(y, x, []compute.Covariate{{Name: "age", Values: ages}}, []compute.Factor{{Name: "site", Values: sites}},
+		fl, err := compute.FreedmanLaneTest(y, x, covs, []compute.Factor{{Name: "site", Values: sites}},
 			subs, 499, rand.New(rand.NewPCG(uint64(5+100*measureNo[k.measure]+st), 0)))
 		if err != nil {
 			t.Fatal(err)
 		}
 		if int(num(r["n_a"])) != na || int(num(r["n_b"])) != n-na || int(num(r["n_incomplete"])) != incomplete ||
-			r["adjusted_for"] != "age,site" || int(num(r["df"])) != n-5 {
+			r["adjusted_for"] != "age,site" || int(num(r["df"])) != n-cols {
 			t.Errorf("%v: n_a %v n_b %v n_incomplete %v adjusted_for %v df %v; Go %d %d %d age,site %d",
-				k, r["n_a"], r["n_b"], r["n_incomplete"], r["adjusted_for"], r["df"], na, n-na, incomplete, n-5)
+				k, r["n_a"], r["n_b"], r["n_incomplete"], r["adjusted_for"], r["df"], na, n-na, incomplete, n-cols)
 		}
 		if !close(num(r["estimate"]), b, 1e-10) || !close(num(r["se"]), se, 1e-10) || !close(num(r["t"]), tt, 1e-10) ||
 			!close(num(r["p"]), p, 1e-9) || num(r["perm_p"]) != fl.PermP {
