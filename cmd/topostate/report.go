@@ -23,7 +23,8 @@ func reportCommand() *cli.Command {
 		Description: "Writes one HTML file that needs nothing else (figures inlined as SVG, no scripts, fonts or\n" +
 			"links to fetch): the analysis settings, a cohort summary, the choice of k, the figures of\n" +
 			"'topostate plot', and for every pair of groups the bundled queries state_dwell_by_group,\n" +
-			"filtration_tests_by_group and transitions_by_group, with Benjamini-Hochberg adjusted p-values.",
+			"filtration_tests_by_group and transitions_by_group, with Benjamini-Hochberg adjusted p-values.\n" +
+			"With --adjust COLUMNS, also adjusted_group_contrast: the group contrasts adjusted for those covariates.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
 			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis (default: the only one in the file)"},
