@@ -331,19 +331,11 @@ func FreedmanLaneTest(y, tested []float64, covs []Covariate, factors []Factor, b
 				blocks[order[s]], end-s, blocks[order[0]], blockLen(starts, 0, n))
 		}
 	}
-	// Full design: intercept, tested term (column 1), nuisance.
-	nuis, nuisNames, err := Design(n, covsS, factorsS)
+	full, nuis, names, err := testDesign(reorderF(tested), covsS, factorsS)
 	if err != nil {
 		return LMTest{}, err
 	}
 	_, q := nuis.Dims()
-	full := mat.NewDense(n, q+1, nil)
-	full.Slice(0, n, 0, 1).(*mat.Dense).Copy(nuis.Slice(0, n, 0, 1))
-	full.SetCol(1, reorderF(tested))
-	if q > 1 {
-		full.Slice(0, n, 2, q+1).(*mat.Dense).Copy(nuis.Slice(0, n, 1, q))
-	}
-	names := append([]string{nuisNames[0], "(tested term)"}, nuisNames[1:]...)
 	fit, err := FitOLS(full, names, ys)
 	if err != nil {
 		return LMTest{}, err
@@ -399,6 +391,41 @@ func FreedmanLaneTest(y, tested []float64, covs []Covariate, factors []Factor, b
 	}
 	res.PermP = float64(1+count) / float64(1+nPerm)
 	return res, nil
+}
+
+// testDesign returns the full design [intercept, tested, nuisance] of
+// FreedmanLaneTest, the nuisance design [intercept, nuisance] and the full
+// design's column names.
+func testDesign(tested []float64, covs []Covariate, factors []Factor) (full, nuis *mat.Dense, names []string, err error) {
+	n := len(tested)
+	nuis, nuisNames, err := Design(n, covs, factors)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	_, q := nuis.Dims()
+	full = mat.NewDense(n, q+1, nil)
+	full.Slice(0, n, 0, 1).(*mat.Dense).Copy(nuis.Slice(0, n, 0, 1))
+	full.SetCol(1, tested)
+	if q > 1 {
+		full.Slice(0, n, 2, q+1).(*mat.Dense).Copy(nuis.Slice(0, n, 1, q))
+	}
+	names = append([]string{nuisNames[0], "(tested term)"}, nuisNames[1:]...)
+	return full, nuis, names, nil
+}
+
+// CheckTestDesign reports whether FreedmanLaneTest can fit the model with
+// this tested term and these covariates: nil, or the error it would give
+// for the design (too few rows for its columns, or a rank-deficient
+// design; see CheckDesign).
+func CheckTestDesign(tested []float64, covs []Covariate, factors []Factor) error {
+	if err := checkFinite("tested term", tested); err != nil {
+		return err
+	}
+	full, _, names, err := testDesign(tested, covs, factors)
+	if err != nil {
+		return err
+	}
+	return CheckDesign(full, names)
 }
 
 func blockLen(starts []int, b, n int) int {

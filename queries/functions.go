@@ -8,6 +8,7 @@ import (
 	"io/fs"
 	"math"
 	"math/rand/v2"
+	"strings"
 
 	"github.com/marcboeker/go-duckdb"
 
@@ -278,6 +279,17 @@ func Functions() []*Function {
 			fn:  lmTest,
 		},
 		{
+			Name:      "lm_design_problem",
+			Signature: "lm_design_problem(x DOUBLE[], covariates DOUBLE[][], factors VARCHAR[][], names VARCHAR[]) -> VARCHAR",
+			Doc: "Why lm_test would refuse this design, or NULL when it can be fitted: fewer rows than model columns + 2, " +
+				"or a rank-deficient design (the message names the first dependent column). Arguments as in lm_test. " +
+				"Lets a query leave out one test whose subjects cannot support the model (e.g. a level of a site " +
+				"that only one group's visitors of a state have) instead of stopping.",
+			in:  []duckdb.TypeInfo{tList, tListList, tTextLL, tTextList},
+			out: tVarchar,
+			fn:  lmDesignProblem,
+		},
+		{
 			Name:      "graph_filtration_events",
 			Signature: "graph_filtration_events(weights DOUBLE[], dimension BIGINT) -> DOUBLE[]",
 			Doc: "The filtration events of a network given as its upper triangle (pairs i < j in row-major order, " +
@@ -321,23 +333,7 @@ func lmTest(a []driver.Value) (any, error) {
 	if err != nil {
 		return nil, err
 	}
-	x, err := doubles("x", a[1])
-	if err != nil {
-		return nil, err
-	}
-	n := len(y)
-	if len(x) != n {
-		return nil, fmt.Errorf("y has %d values and x %d: the lists must be paired, one element per subject in the same order", n, len(x))
-	}
-	covRows, err := curves("covariates", a[2])
-	if err != nil {
-		return nil, err
-	}
-	facRows, err := textRows("factors", a[3])
-	if err != nil {
-		return nil, err
-	}
-	names, err := texts("names", a[4])
+	x, covs, facs, err := lmDesign(a[1], a[2], a[3], a[4])
 	if err != nil {
 		return nil, err
 	}
@@ -345,43 +341,8 @@ func lmTest(a []driver.Value) (any, error) {
 	if err != nil {
 		return nil, err
 	}
-	if len(covRows) != n || len(facRows) != n || len(ids) != n {
-		return nil, fmt.Errorf("y has %d values, covariates %d rows, factors %d rows and ids %d: give one element per subject in each",
-			n, len(covRows), len(facRows), len(ids))
-	}
-	var covs []compute.Covariate
-	var facs []compute.Factor
-	if n > 0 {
-		for j := range covRows[0] {
-			c := compute.Covariate{Name: fmt.Sprintf("covariate %d", j+1), Values: make([]float64, n)}
-			covs = append(covs, c)
-		}
-		for j := range facRows[0] {
-			facs = append(facs, compute.Factor{Name: fmt.Sprintf("factor %d", j+1), Values: make([]string, n)})
-		}
-	}
-	if len(names) > 0 {
-		if len(names) != len(covs)+len(facs) {
-			return nil, fmt.Errorf("names has %d elements for %d covariates and %d factors: give one name each, or []", len(names), len(covs), len(facs))
-		}
-		for j := range covs {
-			covs[j].Name = names[j]
-		}
-		for j := range facs {
-			facs[j].Name = names[len(covs)+j]
-		}
-	}
-	for i := range n {
-		if len(covRows[i]) != len(covs) || len(facRows[i]) != len(facs) {
-			return nil, fmt.Errorf("row %d has %d covariates and %d factors, row 1 has %d and %d: every row needs the same", i+1,
-				len(covRows[i]), len(facRows[i]), len(covs), len(facs))
-		}
-		for j, v := range covRows[i] {
-			covs[j].Values[i] = v
-		}
-		for j, v := range facRows[i] {
-			facs[j].Values[i] = v
-		}
+	if n := len(x); len(y) != n || len(ids) != n {
+		return nil, fmt.Errorf("y has %d values, x %d and ids %d: give one element per subject in each", len(y), n, len(ids))
 	}
 	r, err := compute.FreedmanLaneTest(y, x, covs, facs, ids, int(a[6].(int32)), seeded(a[7].(int64)))
 	if err != nil {
@@ -392,6 +353,75 @@ func lmTest(a []driver.Value) (any, error) {
 		p = nil
 	}
 	return map[string]any{"estimate": r.Estimate, "se": r.SE, "t": r.T, "df": float64(r.DF), "p": p, "perm_p": r.PermP}, nil
+}
+
+// lmDesignProblem is the adapter of lm_design_problem.
+func lmDesignProblem(a []driver.Value) (any, error) {
+	x, covs, facs, err := lmDesign(a[0], a[1], a[2], a[3])
+	if err != nil {
+		return nil, err
+	}
+	if err := compute.CheckTestDesign(x, covs, facs); err != nil {
+		return strings.TrimPrefix(err.Error(), "compute: "), nil
+	}
+	return nil, nil
+}
+
+// lmDesign decodes the x, covariates, factors and names arguments of
+// lm_test and lm_design_problem.
+func lmDesign(xv, covv, facv, namesv driver.Value) (x []float64, covs []compute.Covariate, facs []compute.Factor, err error) {
+	if x, err = doubles("x", xv); err != nil {
+		return nil, nil, nil, err
+	}
+	n := len(x)
+	covRows, err := curves("covariates", covv)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	facRows, err := textRows("factors", facv)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	names, err := texts("names", namesv)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	if len(covRows) != n || len(facRows) != n {
+		return nil, nil, nil, fmt.Errorf("x has %d values, covariates %d rows and factors %d rows: give one element per subject in each",
+			n, len(covRows), len(facRows))
+	}
+	if n > 0 {
+		for j := range covRows[0] {
+			covs = append(covs, compute.Covariate{Name: fmt.Sprintf("covariate %d", j+1), Values: make([]float64, n)})
+		}
+		for j := range facRows[0] {
+			facs = append(facs, compute.Factor{Name: fmt.Sprintf("factor %d", j+1), Values: make([]string, n)})
+		}
+	}
+	if len(names) > 0 {
+		if len(names) != len(covs)+len(facs) {
+			return nil, nil, nil, fmt.Errorf("names has %d elements for %d covariates and %d factors: give one name each, or []", len(names), len(covs), len(facs))
+		}
+		for j := range covs {
+			covs[j].Name = names[j]
+		}
+		for j := range facs {
+			facs[j].Name = names[len(covs)+j]
+		}
+	}
+	for i := range n {
+		if len(covRows[i]) != len(covs) || len(facRows[i]) != len(facs) {
+			return nil, nil, nil, fmt.Errorf("row %d has %d covariates and %d factors, row 1 has %d and %d: every row needs the same", i+1,
+				len(covRows[i]), len(facRows[i]), len(covs), len(facs))
+		}
+		for j, v := range covRows[i] {
+			covs[j].Values[i] = v
+		}
+		for j, v := range facRows[i] {
+			facs[j].Values[i] = v
+		}
+	}
+	return x, covs, facs, nil
 }
 
 // texts converts a VARCHAR[] argument; a NULL element is an error.

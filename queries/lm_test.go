@@ -185,6 +185,15 @@ func TestLMTestFunction(t *testing.T) {
 	if blocked["p"].(sql.NullFloat64).Valid || !close(blocked["t"].(float64), tt, 1e-10) {
 		t.Errorf("blocked rows: %v; want p NULL and the same t %v", blocked, tt)
 	}
+	// lm_design_problem: NULL for a design lm_test fits, else its reason.
+	var problem sql.NullString
+	if err := conn.QueryRowContext(ctx, "SELECT lm_design_problem([0.0, 1, 0, 1, 0, 1], [[1.0], [3], [2], [5], [1], [3]], [[], [], [], [], [], []]::VARCHAR[][], ['age'])").Scan(&problem); err != nil || problem.Valid {
+		t.Errorf("a fine design: %v %v", problem, err)
+	}
+	if err := conn.QueryRowContext(ctx, "SELECT lm_design_problem([0.0, 1, 0, 1, 0, 1], [[], [], [], [], [], []]::DOUBLE[][], [['x'], ['y'], ['x'], ['y'], ['x'], ['y']], ['arm'])").Scan(&problem); err != nil ||
+		!strings.Contains(problem.String, `rank deficient: column "arm=y"`) {
+		t.Errorf("a factor equal to x: %v %v", problem, err)
+	}
 	for _, c := range []struct{ q, want string }{
 		{"SELECT lm_test([1.0, 2, 3, 4], [0.0, 1, 0, 1], [[1.0], [2], [3], [5]], [[], [], [], []]::VARCHAR[][], [], ['a','b','c','d'], 9, 1)", "4 rows for 3 model columns"},
 		{"SELECT lm_test([1.0, 2, 3, 4, 5, 6], [0.0, 1, 0, 1, 0, 1], [[1.0], [3], [1], [3], [1], [3]], [[], [], [], [], [], []]::VARCHAR[][], [], ['a','b','c','d','e','f'], 9, 1)", `column "covariate 1" is constant or a linear combination of (intercept), (tested term)`},
@@ -234,12 +243,11 @@ func outcomesOf(t *testing.T, conn *sql.Conn, id int) map[lmKey]map[string]float
 		sums[k][sub].sum += v
 		sums[k][sub].n++
 	}
-	for _, r := range rawConn(t, conn, `SELECT subject_id, state, occupancy, mean_dwell_seconds, mean_dwell_windows FROM state_metrics WHERE analysis_id = ?`, id) {
+	for _, r := range rawConn(t, conn, `SELECT subject_id, state, occupancy, mean_dwell_seconds FROM state_metrics WHERE analysis_id = ?`, id) {
 		sub, st := r["subject_id"].(string), int(num(r["state"]))
 		add(lmKey{"occupancy", st}, sub, num(r["occupancy"]))
 		if r["mean_dwell_seconds"] != nil {
 			add(lmKey{"dwell_seconds", st}, sub, num(r["mean_dwell_seconds"]))
-			add(lmKey{"run_share", st}, sub, 1/num(r["mean_dwell_windows"]))
 		}
 	}
 	for _, r := range rawConn(t, conn, `SELECT subject_id, switch_rate FROM subject_dynamics WHERE analysis_id = ?`, id) {
@@ -346,28 +354,22 @@ func TestAdjustedGroupContrast(t *testing.T) {
 		y, x := make([]float64, n), make([]float64, n)
 		numv, facv := make([][]float64, n), make([][]string, n)
 		ages, sites := make([]float64, n), make([]string, n)
-		runs, occs := make([]float64, n), make([]float64, n)
 		na := 0
 		for i, sub := range subs {
 			y[i], x[i] = outcomes[k][sub], group[sub]
 			numv[i], facv[i] = []float64{age[sub]}, []string{site[sub]}
 			ages[i], sites[i] = age[sub], site[sub]
 			na += int(x[i])
-			// betti0_area: also the state's run share and occupancy.
-			runs[i], occs[i] = outcomes[lmKey{"run_share", st}][sub], outcomes[lmKey{"occupancy", st}][sub]
-			if k.measure == "betti0_area" {
-				numv[i] = append(numv[i], runs[i], occs[i])
-			}
 		}
 		covs := []compute.Covariate{{Name: "age", Values: ages}}
 		cols := 5
+		nPerm := 499
 		if k.measure == "betti0_area" {
-			covs = append(covs, compute.Covariate{Name: "run_share", Values: runs}, compute.Covariate{Name: "occupancy", Values: occs})
-			cols = 7
+			nPerm = 1
 		}
 		b, se, tt, p := choleskyOLS(t, designOf(x, numv, facv), y, 1)
 		fl, err := compute.FreedmanLaneTest(y, x, covs, []compute.Factor{{Name: "site", Values: sites}},
-			subs, 499, rand.New(rand.NewPCG(uint64(5+100*measureNo[k.measure]+st), 0)))
+			subs, nPerm, rand.New(rand.NewPCG(uint64(5+100*measureNo[k.measure]+st), 0)))
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -376,14 +378,25 @@ func TestAdjustedGroupContrast(t *testing.T) {
 			t.Errorf("%v: n_a %v n_b %v n_incomplete %v adjusted_for %v df %v; Go %d %d %d age,site %d",
 				k, r["n_a"], r["n_b"], r["n_incomplete"], r["adjusted_for"], r["df"], na, n-na, incomplete, n-cols)
 		}
-		if !close(num(r["estimate"]), b, 1e-10) || !close(num(r["se"]), se, 1e-10) || !close(num(r["t"]), tt, 1e-10) ||
-			!close(num(r["p"]), p, 1e-9) || num(r["perm_p"]) != fl.PermP {
-			t.Errorf("%v: estimate %v se %v t %v p %v perm_p %v; Go %v %v %v %v %v", k, r["estimate"], r["se"], r["t"], r["p"], r["perm_p"], b, se, tt, p, fl.PermP)
+		if !close(num(r["estimate"]), b, 1e-10) || !close(num(r["se"]), se, 1e-10) || !close(num(r["t"]), tt, 1e-10) {
+			t.Errorf("%v: estimate %v se %v t %v; Go %v %v %v", k, r["estimate"], r["se"], r["t"], b, se, tt)
+		}
+		// betti0_area is descriptive: no p-value, a note saying why.
+		if k.measure == "betti0_area" {
+			if r["p"] != nil || r["perm_p"] != nil || r["p_bh"] != nil || r["perm_p_bh"] != nil ||
+				!strings.HasPrefix(fmt.Sprint(r["note"]), "descriptive:") {
+				t.Errorf("%v: p %v perm_p %v p_bh %v perm_p_bh %v note %v; want no p-values and a descriptive note", k, r["p"], r["perm_p"], r["p_bh"], r["perm_p_bh"], r["note"])
+			}
+			continue
+		}
+		if !close(num(r["p"]), p, 1e-9) || num(r["perm_p"]) != fl.PermP || r["note"] != nil {
+			t.Errorf("%v: p %v perm_p %v note %v; Go %v %v", k, r["p"], r["perm_p"], r["note"], p, fl.PermP)
 		}
 		ps, perms = append(ps, p), append(perms, fl.PermP)
 	}
+	// BH across the 7 tested rows (occupancy, dwell, switch rate).
 	bh, bhPerm := compute.BenjaminiHochberg(ps), compute.BenjaminiHochberg(perms)
-	for i, r := range got {
+	for i, r := range got[:len(ps)] {
 		if !close(num(r["p_bh"]), bh[i], 1e-9) || !close(num(r["perm_p_bh"]), bhPerm[i], 1e-9) {
 			t.Errorf("row %d: p_bh %v perm_p_bh %v; Go %v %v", i, r["p_bh"], r["perm_p_bh"], bh[i], bhPerm[i])
 		}
@@ -403,6 +416,12 @@ func TestAdjustedGroupContrastRefusals(t *testing.T) {
 	d := openWarehouse(t)
 	ctx := context.Background()
 	q, _ := Lookup(FS, "adjusted_group_contrast")
+	// Groups that match no subject: stopped with the reason, not an
+	// empty table.
+	if _, err := Run(ctx, d.Conn, q, map[string]string{"group_a": "night", "group_b": "dusk", "n_perm": "9"}); err == nil ||
+		!strings.Contains(err.Error(), "no test can be run: fewer than 2 subjects in a group") {
+		t.Errorf("group_b matching nobody: %v", err)
+	}
 	for _, c := range []struct {
 		adjust, want string
 	}{

@@ -67,9 +67,10 @@ func adjustedTable(id, a, b string, res *result) *Table {
 		{"estimate", "adjusted difference " + a + " − " + b + " (least-squares coefficient of the group)"},
 		{"t (df)", "estimate / standard error, residual degrees of freedom"},
 		{"p", "Student t test of the coefficient, two-sided"},
-		{"p, BH", "Benjamini-Hochberg adjusted across all rows of this table"},
+		{"p, BH", "Benjamini-Hochberg adjusted across the tested rows of this table (occupancy, dwell time, switch rate)"},
 		{"p perm.", "Freedman-Lane permutation test: residuals of the model without the group permuted across subjects"},
-		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows of this table"},
+		{"p perm., BH", "Benjamini-Hochberg adjusted across the tested rows of this table (occupancy, dwell time, switch rate)"},
+		{"note", "why a row has no p-value: β0 curve area is a description (it differs with dwell time alone), or its subjects cannot support the model"},
 	}}
 	for _, row := range res.rows {
 		m := full(row["measure"])
@@ -85,7 +86,16 @@ func adjustedTable(id, a, b string, res *result) *Table {
 			cell(value("t", row["t"], fixed(2)), text(" ("), value("df", row["df"], fixed(0)), text(")")),
 			pCell("p", row["p"], false), pCell("p_bh", row["p_bh"], true),
 			pCell("perm_p", row["perm_p"], false), pCell("perm_p_bh", row["perm_p_bh"], true),
+			noteCell(row["note"]),
 		}})
 	}
 	return t
+}
+
+// noteCell shows the query's note, or nothing.
+func noteCell(v any) Cell {
+	s, _ := v.(string)
+	c := cell(Part{Col: "note", V: s, Text: s})
+	c.Class = "reason"
+	return c
 }
