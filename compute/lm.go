@@ -245,17 +245,17 @@ type LMTest struct {
 // model y = b0 + b1 tested + covariates + factors + e (docs/methods.md §8).
 // The statistic is the term's t. Its permutation distribution follows
 // Freedman and Lane (1983) as set out by Winkler et al. (2014, NeuroImage
-// 92:381-397), who compare it with the other schemes: fit the reduced model without the tested term,
-// permute its residuals, add them back to the reduced model's fitted
-// values, refit the full model and recompute t. The two-sided p-value is
+// 92:381-397), who compare it with the other schemes: fit the reduced
+// model without the tested term, permute its residuals, add them back to
+// the reduced model's fitted values, refit the full model and recompute t. The two-sided p-value is
 // p = (1 + #{|t*| >= |t|}) / (1 + nPerm) (Phipson and Smyth, 2010), with
 // the float tolerance of permRelTol.
 //
 // blocks, when not nil, gives each row's exchangeability block, e.g. the
 // subject of a session. Rows of one block move together: whole-block
-// exchangeability (Winkler et al., 2014, section on exchangeability blocks), in which the
-// blocks are permuted as wholes and the order of the rows inside each block
-// is kept; it needs blocks of equal size. Rows are first sorted by block
+// exchangeability (Winkler et al., 2014, section on exchangeability
+// blocks), in which the blocks are permuted as wholes and the order of the
+// rows inside each block is kept; it needs blocks of equal size. Rows are first sorted by block
 // (stably), so the draws do not depend on the order of the blocks in the
 // input. With every block of size 1 (or blocks nil) the scheme is the plain
 // permutation of rows, and rows are sorted by their block label when given.
@@ -264,6 +264,9 @@ type LMTest struct {
 // value, blocks of unequal size, nPerm < 1 or a nil rng.
 func FreedmanLaneTest(y, tested []float64, covs []Covariate, factors []Factor, blocks []string, nPerm int, rng *rand.Rand) (LMTest, error) {
 	n := len(y)
+	if n < 1 {
+		return LMTest{}, errors.New("compute: linear model: no rows")
+	}
 	if len(tested) != n {
 		return LMTest{}, fmt.Errorf("compute: linear model: %d outcomes and %d values of the tested term", n, len(tested))
 	}
