@@ -401,6 +401,15 @@ func TestAdjustedGroupContrast(t *testing.T) {
 			t.Errorf("row %d: p_bh %v perm_p_bh %v; Go %v %v", i, r["p_bh"], r["perm_p_bh"], bh[i], bhPerm[i])
 		}
 	}
+	// A covariate constant among the subjects: every row refused, so the
+	// query stops, naming the column.
+	if _, err := conn.ExecContext(ctx, `ALTER TABLE subjects ADD COLUMN flat DOUBLE; UPDATE subjects SET flat = 2`); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := Run(ctx, conn, q, map[string]string{"analysis": "first", "group_a": "night", "group_b": "day", "adjust": "age,flat", "n_perm": "9"}); err == nil ||
+		!strings.Contains(err.Error(), `no test can be run: linear model: the design is rank deficient: column "flat" is constant`) {
+		t.Errorf("a constant covariate: %v", err)
+	}
 	// Without covariates the estimate is the difference of group means.
 	rows, err = Run(ctx, conn, q, map[string]string{"analysis": "first", "group_a": "night", "group_b": "day", "n_perm": "99"})
 	if err != nil {
