@@ -1,5 +1,5 @@
 -- name: adjusted_group_contrast
--- description: Group contrast of occupancy, mean dwell time and switch rate per state, adjusted for the subjects columns in adjust by least squares, with Student t and Freedman-Lane permutation p-values, BH across those rows (one family); Betti-0 curve area per state as a description (no p-value).
+-- description: Group contrast of occupancy and mean dwell time per state and of switch rate, adjusted for the subjects columns in adjust by least squares, with Student t and Freedman-Lane permutation p-values, BH across those rows (one family); the Betti-0 curve area per state as a description (no p-value).
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
