@@ -98,4 +98,3 @@ func TestCalibrationSmall(t *testing.T) {
 		}
 	}
 }
-
