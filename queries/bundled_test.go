@@ -383,8 +383,6 @@ func TestFiltrationTestsByGroup(t *testing.T) {
 // p-value column is p or ends in _p, adjusted forms in _p_bh or _p_by.
 var pLike = regexp.MustCompile(`^p$|_p$|_p_bh$|_p_by$`)
 
-
-
 func TestStatePairsKS(t *testing.T) {
 	d := openWarehouse(t)
 	got := runBundled(t, d, "state_pairs_ks", map[string]string{"analysis": "first"})

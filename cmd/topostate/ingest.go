@@ -70,7 +70,7 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		Restarts: c.Int("restarts"), ScanRestarts: c.Int("scan-restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
 		FitMax: c.Int("fit-windows"), FitSample: c.String("fit-sample"), Grid: c.String("grid"),
 		CoreTimepoints: c.Int("core-timepoints"),
-		OnBadSubject: c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
+		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
 	}
 }
