@@ -54,7 +54,7 @@ func TestCoreTimepoints(t *testing.T) {
 		t.Errorf("runs of 40 and 60 windows (width 10): %d and %d core time points", len(got[0]), len(got[1]))
 	}
 	for _, bad := range []struct {
-		labels    []int
+		labels     []int
 		k, T, w, s int
 	}{{[]int{0}, 0, 3, 3, 1}, {[]int{0, 2}, 2, 4, 3, 1}, {[]int{0}, 1, 5, 3, 1}, {[]int{0}, 1, 3, 1, 1}} {
 		if _, err := CoreTimepoints(bad.labels, bad.k, bad.T, bad.w, bad.s); err == nil {
