@@ -5,6 +5,8 @@ import (
 	"database/sql"
 	"fmt"
 	"io"
+	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"regexp"
@@ -26,6 +28,9 @@ const (
 	NullNone  = "a" // two groups, nothing differs
 	NullDwell = "b" // groups differ only in dwell time (--group-effect)
 	NullOne   = "c" // one latent state (--states 1)
+	// Power is no null: null (a) with a network difference added to group
+	// B (Config.NetworkEffect), to measure what a test detects.
+	Power = "power"
 )
 
 // NullNames describes each null kind for the printed table.
@@ -33,6 +38,7 @@ var NullNames = map[string]string{
 	NullNone:  "(a) nothing differs",
 	NullDwell: "(b) dwell only",
 	NullOne:   "(c) one state",
+	Power:     "network difference (power)",
 }
 
 // Config sets the size of the simulated cohorts and of the run.
@@ -55,6 +61,54 @@ type Config struct {
 	Dir                         string // scratch folder ("" : the system's)
 	Alpha                       float64
 	Log                         io.Writer // progress lines; nil for none
+	// NetworkEffect is the size of the network difference of the Power
+	// kind: in group B, while the latent state is the first one, regions
+	// 1-4 get a shared white component of variance NetworkEffect (each
+	// region's own variance is 1 + noise^2), which raises their mutual
+	// correlations in that state only.
+	NetworkEffect float64
+	// Extra are further queries to count beside the bundled ones (e.g.
+	// AllWindowCurveTest, the group test before core networks).
+	Extra []*queries.Query
+}
+
+// AllWindowCurveTest is the Betti-curve permutation test as
+// filtration_tests_by_group ran it before core networks (on the curves of
+// the all-window state networks, betti_curves), kept here to measure what
+// the core networks changed (docs/methods.md §7).
+const AllWindowCurveTest = `-- name: all_window_curve_test
+-- description: the curve permutation test on the all-window Betti curves (the former group test), for calibration only
+-- param: analysis analysis = latest -- analysis
+-- param: group_column column = group -- group column
+-- param: group_a text -- first group
+-- param: group_b text -- second group
+-- param: n_perm integer = 999 -- relabellings
+-- param: seed integer = 1 -- seed
+WITH grp AS (
+    SELECT subject_id, side
+    FROM subject_groups(getvariable('analysis'), getvariable('group_column'),
+                        getvariable('group_a'), getvariable('group_b'))
+),
+per_subject AS (
+    SELECT c.subject_id, g.side, c.state, c.dimension, list(c.betti ORDER BY c.threshold) AS curve
+    FROM betti_curves c JOIN grp g USING (subject_id)
+    WHERE c.analysis_id = getvariable('analysis')
+    GROUP BY ALL
+),
+curves AS (
+    SELECT state, dimension,
+           list(curve ORDER BY subject_id) FILTER (WHERE side = 'a') AS a,
+           list(curve ORDER BY subject_id) FILTER (WHERE side = 'b') AS b
+    FROM per_subject GROUP BY state, dimension
+)
+SELECT state, dimension,
+       curve_perm_test(a, b, getvariable('n_perm')::INTEGER, getvariable('seed') + 2 * state + dimension).pvalue AS all_window_curve_perm_p
+FROM curves ORDER BY state, dimension;
+`
+
+// ParseExtra parses the text of an extra query.
+func ParseExtra(text string) (*queries.Query, error) {
+	return queries.ParseHeader("extra.sql", text, true)
 }
 
 // pColumn is the brief's convention for an inferential p-value column:
@@ -238,6 +292,8 @@ func (cfg Config) Spec(null string, r int) compute.CohortSpec {
 		TR: 2, Stickiness: cfg.Stickiness, Offset: 500, Seed: cfg.Seed + uint64(r),
 	}
 	switch null {
+	case Power:
+		// as (a); the difference is added in replicate
 	case NullDwell:
 		s.GroupEffect = cfg.GroupEffect
 	case NullOne:
@@ -262,6 +318,9 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 	series := make([]compute.Series, len(subs))
 	rows := make([]ingest.SyntheticParticipant, len(subs))
 	for i, s := range subs {
+		if null == Power && s.Group == "B" {
+			addNetworkEffect(s, cfg.NetworkEffect, spec.Seed, i)
+		}
 		ids[i], series[i] = s.ID, s.Series
 		rows[i] = ingest.SyntheticParticipant{ID: s.ID, Cells: []string{s.Group}}
 	}
@@ -285,7 +344,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 	defer db.Close()
 	out := map[Key]*Tally{}
 	var skips []string
-	for _, q := range qs {
+	for _, q := range append(slices.Clip(qs), cfg.Extra...) {
 		values := map[string]string{"group_column": "group", "group_a": "A", "group_b": "B"}
 		if _, ok := q.Param("n_perm"); ok && cfg.NPerm > 0 {
 			values["n_perm"] = strconv.Itoa(cfg.NPerm)
@@ -312,6 +371,24 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 		}
 	}
 	return out, skips, nil
+}
+
+// addNetworkEffect adds, while the subject's latent state is 0, a shared
+// white component of variance v to regions 1-4 (fewer if the series has
+// fewer): their correlations in state 0 rise, in group B only.
+func addNetworkEffect(s compute.SimSubject, v float64, seed uint64, i int) {
+	r := rand.New(rand.NewPCG(seed, 0xe11ec7+uint64(i)))
+	sd := math.Sqrt(v)
+	p := s.Series.P
+	for t, st := range s.Truth {
+		if st != 0 {
+			continue
+		}
+		u := sd * r.NormFloat64()
+		for j := 0; j < min(4, p); j++ {
+			s.Series.Data[t*p+j] += u
+		}
+	}
 }
 
 // tally reads a query's rows and counts its p columns per row key.
@@ -383,6 +460,9 @@ var alternativeWords = []string{"dwell", "switch", "transition"}
 // IsNull says whether test k is a true null: every test under (a) and (c);
 // under (b) every test except those of dwell, switches and transitions.
 func IsNull(k Key) bool {
+	if k.Null == Power {
+		return false
+	}
 	if k.Null != NullDwell {
 		return true
 	}

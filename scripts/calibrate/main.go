@@ -33,7 +33,7 @@ import (
 
 func main() {
 	cfg := Config{}
-	nulls := flag.String("nulls", "a,b,c", "null kinds: a (nothing differs), b (dwell only), c (one state)")
+	nulls := flag.String("nulls", "a,b,c", "null kinds: a (nothing differs), b (dwell only), c (one state); power (a network difference in group B, see -network-effect)")
 	flag.IntVar(&cfg.Replicates, "replicates", 200, "cohorts per null kind")
 	flag.IntVar(&cfg.Subjects, "subjects", 20, "subjects per cohort (groups A and B alternate)")
 	flag.IntVar(&cfg.Regions, "regions", 16, "regions per series")
@@ -48,7 +48,17 @@ func main() {
 	flag.IntVar(&cfg.NPerm, "n-perm", 999, "relabellings of every permutation test")
 	flag.Uint64Var(&cfg.Seed, "seed", 1, "replicate r uses simulator seed seed + r")
 	flag.IntVar(&cfg.Parallel, "parallel", 2, "replicates at once (each ingest uses one worker)")
+	flag.Float64Var(&cfg.NetworkEffect, "network-effect", 0.5, "kind power: variance of the component shared by regions 1-4 in group B's first state")
+	allWindow := flag.Bool("all-window", false, "also count the curve permutation test on the all-window Betti curves (the group test before core networks)")
 	flag.Parse()
+	if *allWindow {
+		q, err := ParseExtra(AllWindowCurveTest)
+		if err != nil {
+			fmt.Fprintln(os.Stderr, "calibrate:", err)
+			os.Exit(1)
+		}
+		cfg.Extra = append(cfg.Extra, q)
+	}
 	cfg.Nulls = strings.Split(*nulls, ",")
 	cfg.Log = os.Stderr
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
