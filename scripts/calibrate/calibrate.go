@@ -55,6 +55,7 @@ type Config struct {
 	// one stationary process), k-means restarts and the Betti grid.
 	Window, FitStates, Restarts int
 	Grid                        string
+	CoreTimepoints              int    // ingest --core-timepoints (0: the window width)
 	NPerm                       int    // n_perm of every query that declares it
 	Seed                        uint64 // replicate r of every null kind uses Seed + r
 	Parallel                    int    // replicates run at once
@@ -333,6 +334,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 	if cfg.Grid != "" {
 		o.Grid = cfg.Grid
 	}
+	o.CoreTimepoints = cfg.CoreTimepoints
 	wh := filepath.Join(dir, "w.duckdb")
 	if _, err := ingest.IntoFile(ctx, wh, o, nil); err != nil {
 		return nil, nil, err

@@ -45,6 +45,7 @@ func main() {
 	flag.IntVar(&cfg.FitStates, "fit-states", 3, "states fitted by ingest (fixed k, every null kind)")
 	flag.IntVar(&cfg.Restarts, "restarts", 2, "k-means restarts")
 	flag.StringVar(&cfg.Grid, "grid", "-1:1:101", "Betti curve grid lo:hi:n")
+	flag.IntVar(&cfg.CoreTimepoints, "core-timepoints", 0, "ingest --core-timepoints: time points per core network (0: the window width)")
 	flag.IntVar(&cfg.NPerm, "n-perm", 999, "relabellings of every permutation test")
 	flag.Uint64Var(&cfg.Seed, "seed", 1, "replicate r uses simulator seed seed + r")
 	flag.IntVar(&cfg.Parallel, "parallel", 2, "replicates at once (each ingest uses one worker)")
@@ -71,9 +72,9 @@ func main() {
 		os.Exit(1)
 	}
 	wall := time.Since(start)
-	fmt.Printf("calibrate: %d replicates per null kind (%s), %d subjects x %d time points x %d regions, %d latent states, stickiness %g, group effect %g (null b), window %d, %d fitted states, %d restarts, grid %s, n_perm %d, seed %d\n\n",
+	fmt.Printf("calibrate: %d replicates per null kind (%s), %d subjects x %d time points x %d regions, %d latent states, stickiness %g, group effect %g (null b), window %d, core time points %d (0: the window), %d fitted states, %d restarts, grid %s, n_perm %d, seed %d\n\n",
 		cfg.Replicates, *nulls, cfg.Subjects, cfg.Timepoints, cfg.Regions, cfg.States, cfg.Stickiness, cfg.GroupEffect,
-		cfg.Window, cfg.FitStates, cfg.Restarts, cfg.Grid, cfg.NPerm, cfg.Seed)
+		cfg.Window, cfg.CoreTimepoints, cfg.FitStates, cfg.Restarts, cfg.Grid, cfg.NPerm, cfg.Seed)
 	fails := res.WriteTable(os.Stdout, cfg.Nulls, 0.05)
 	for _, s := range res.Skipped {
 		fmt.Printf("\nnot run: %s\n", s)
