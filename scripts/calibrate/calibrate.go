@@ -68,6 +68,9 @@ type Config struct {
 	// region's own variance is 1 + noise^2), which raises their mutual
 	// correlations in that state only.
 	NetworkEffect float64
+	// NetworkRegions is the number of regions (from the first) that share
+	// the component; 0 means 4.
+	NetworkRegions int
 	// Extra are further queries to count beside the bundled ones (e.g.
 	// AllWindowCurveTest, the group test before core networks).
 	Extra []*queries.Query
@@ -320,7 +323,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 	rows := make([]ingest.SyntheticParticipant, len(subs))
 	for i, s := range subs {
 		if null == Power && s.Group == "B" {
-			addNetworkEffect(s, cfg.NetworkEffect, spec.Seed, i)
+			addNetworkEffect(s, cfg.NetworkEffect, cfg.NetworkRegions, spec.Seed, i)
 		}
 		ids[i], series[i] = s.ID, s.Series
 		rows[i] = ingest.SyntheticParticipant{ID: s.ID, Cells: []string{s.Group}}
@@ -376,9 +379,12 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 }
 
 // addNetworkEffect adds, while the subject's latent state is 0, a shared
-// white component of variance v to regions 1-4 (fewer if the series has
-// fewer): their correlations in state 0 rise, in group B only.
-func addNetworkEffect(s compute.SimSubject, v float64, seed uint64, i int) {
+// white component of variance v to the first m regions (0: 4; fewer if the
+// series has fewer): their correlations in state 0 rise, in group B only.
+func addNetworkEffect(s compute.SimSubject, v float64, m int, seed uint64, i int) {
+	if m == 0 {
+		m = 4
+	}
 	r := rand.New(rand.NewPCG(seed, 0xe11ec7+uint64(i)))
 	sd := math.Sqrt(v)
 	p := s.Series.P
@@ -387,7 +393,7 @@ func addNetworkEffect(s compute.SimSubject, v float64, seed uint64, i int) {
 			continue
 		}
 		u := sd * r.NormFloat64()
-		for j := 0; j < min(4, p); j++ {
+		for j := 0; j < min(m, p); j++ {
 			s.Series.Data[t*p+j] += u
 		}
 	}

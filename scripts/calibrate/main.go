@@ -50,6 +50,7 @@ func main() {
 	flag.Uint64Var(&cfg.Seed, "seed", 1, "replicate r uses simulator seed seed + r")
 	flag.IntVar(&cfg.Parallel, "parallel", 2, "replicates at once (each ingest uses one worker)")
 	flag.Float64Var(&cfg.NetworkEffect, "network-effect", 0.5, "kind power: variance of the component shared by regions 1-4 in group B's first state")
+	flag.IntVar(&cfg.NetworkRegions, "network-regions", 4, "kind power: regions (from the first) sharing the component")
 	allWindow := flag.Bool("all-window", false, "also count the curve permutation test on the all-window Betti curves (the group test before core networks)")
 	flag.Parse()
 	if *allWindow {
