@@ -71,6 +71,9 @@ type Config struct {
 	// NetworkRegions is the number of regions (from the first) that share
 	// the component; 0 means 4.
 	NetworkRegions int
+	// NetworkAll adds the component in every latent state rather than
+	// the first only.
+	NetworkAll bool
 	// Extra are further queries to count beside the bundled ones (e.g.
 	// AllWindowCurveTest, the group test before core networks).
 	Extra []*queries.Query
@@ -323,7 +326,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 	rows := make([]ingest.SyntheticParticipant, len(subs))
 	for i, s := range subs {
 		if null == Power && s.Group == "B" {
-			addNetworkEffect(s, cfg.NetworkEffect, cfg.NetworkRegions, spec.Seed, i)
+			addNetworkEffect(s, cfg.NetworkEffect, cfg.NetworkRegions, cfg.NetworkAll, spec.Seed, i)
 		}
 		ids[i], series[i] = s.ID, s.Series
 		rows[i] = ingest.SyntheticParticipant{ID: s.ID, Cells: []string{s.Group}}
@@ -381,7 +384,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 // addNetworkEffect adds, while the subject's latent state is 0, a shared
 // white component of variance v to the first m regions (0: 4; fewer if the
 // series has fewer): their correlations in state 0 rise, in group B only.
-func addNetworkEffect(s compute.SimSubject, v float64, m int, seed uint64, i int) {
+func addNetworkEffect(s compute.SimSubject, v float64, m int, all bool, seed uint64, i int) {
 	if m == 0 {
 		m = 4
 	}
@@ -389,7 +392,7 @@ func addNetworkEffect(s compute.SimSubject, v float64, m int, seed uint64, i int
 	sd := math.Sqrt(v)
 	p := s.Series.P
 	for t, st := range s.Truth {
-		if st != 0 {
+		if st != 0 && !all {
 			continue
 		}
 		u := sd * r.NormFloat64()

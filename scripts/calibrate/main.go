@@ -51,6 +51,7 @@ func main() {
 	flag.IntVar(&cfg.Parallel, "parallel", 2, "replicates at once (each ingest uses one worker)")
 	flag.Float64Var(&cfg.NetworkEffect, "network-effect", 0.5, "kind power: variance of the component shared by regions 1-4 in group B's first state")
 	flag.IntVar(&cfg.NetworkRegions, "network-regions", 4, "kind power: regions (from the first) sharing the component")
+	flag.BoolVar(&cfg.NetworkAll, "network-all-states", false, "kind power: add the component in every latent state, not the first only")
 	allWindow := flag.Bool("all-window", false, "also count the curve permutation test on the all-window Betti curves (the group test before core networks)")
 	flag.Parse()
 	if *allWindow {
