@@ -80,7 +80,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 			ppath = alt
 		}
 	}
-	part, err := ReadParticipants(ppath)
+	part, err := ReadParticipantsEncoding(ppath, o.Encoding)
 	if err != nil {
 		var ps Problems
 		if errors.As(err, &ps) {
@@ -245,9 +245,15 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		ch.trSource = in.Sidecar
 		if errors.Is(ch.err, ErrNoTR) && sf.TR > 0 {
 			ch.tr, ch.trSource, ch.err = sf.TR, in.Path+" (header pixdim[4])", nil
+			if err := CheckTR(sf.TR); err != nil {
+				ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; put RepetitionTime in %s or pass --tr SECONDS", err, in.Sidecar)
+			}
 		}
 	case sf.TR > 0:
 		ch.tr, ch.trSource = sf.TR, in.Path+" (header pixdim[4])"
+		if err := CheckTR(sf.TR); err != nil {
+			ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", err)
+		}
 	case FileKind(in.Path) == KindNifti:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: the header's pixdim[4] has no time unit (xyzt_units); pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	default:

@@ -12,6 +12,7 @@ import (
 	"runtime"
 	"slices"
 	"sort"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -110,6 +111,9 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	if err := st.setup(); err != nil {
 		return nil, err
 	}
+	if err := preflight(ctx, db, c, o); err != nil {
+		return nil, err
+	}
 
 	if o.StatesFrom != nil {
 		// Replication: the stored states instead of stages 1 and 2.
@@ -188,6 +192,53 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.WorkerTimes = st.work.list()
 	sum.Fits = st.fits
 	return sum, nil
+}
+
+// preflight refuses, before anything is computed, what the write would
+// refuse after the whole computation: a name already taken, and a
+// covariate whose type differs from the warehouse's column of that name
+// (schema.Writer checks both again inside the transaction). This run holds
+// the file's lock, so nothing changes between the two checks.
+func preflight(ctx context.Context, db *sql.DB, c *Cohort, o Options) error {
+	var n int
+	err := db.QueryRowContext(ctx, `SELECT count(*) FROM information_schema.tables
+		WHERE table_catalog = current_database() AND table_schema = 'main' AND table_name IN ('analyses', 'subjects')`).Scan(&n)
+	if err != nil || n < 2 {
+		return nil // a new file, or one Begin will refuse with its own message
+	}
+	if o.Analysis != "" {
+		if err := db.QueryRowContext(ctx, `SELECT count(*) FROM analyses WHERE name = ?`, o.Analysis).Scan(&n); err == nil && n > 0 {
+			return fmt.Errorf("ingest: %q: %w; choose another --analysis name or remove the old one with 'topostate drop'", o.Analysis, schema.ErrAnalysisExists)
+		}
+	}
+	p := c.Participants
+	if p == nil {
+		return nil
+	}
+	rows, err := db.QueryContext(ctx, `SELECT column_name, data_type FROM information_schema.columns
+		WHERE table_catalog = current_database() AND table_schema = 'main' AND table_name = 'subjects'`)
+	if err != nil {
+		return nil
+	}
+	have := map[string]string{}
+	for rows.Next() {
+		var name, typ string
+		if rows.Scan(&name, &typ) == nil {
+			have[strings.ToLower(name)] = typ
+		}
+	}
+	rows.Close()
+	var problems Problems
+	for i, cv := range p.Covariates {
+		if t, ok := have[strings.ToLower(cv.Name)]; ok && !strings.EqualFold(t, cv.Type) {
+			problems = append(problems, perr(p.Path, 1, i+2, "column %q is %s in this cohort but %s in the warehouse, where earlier analyses stored it; "+
+				"rename the column, or write its values as that type, or use another database file", cv.Name, cv.Type, t))
+		}
+	}
+	if len(problems) > 0 {
+		return problems
+	}
+	return nil
 }
 
 // recordAnalysis inserts the analyses row, with every option as JSON.

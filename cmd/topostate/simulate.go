@@ -42,6 +42,9 @@ func simulateCommand() *cli.Command {
 			if c.String("out") == "" {
 				return usagef("simulate: --out FOLDER is required")
 			}
+			if err := ingest.CheckTR(c.Float64("tr")); err != nil {
+				return usagef("simulate: --tr: %v", err)
+			}
 			spec := compute.CohortSpec{
 				Subjects: c.Int("subjects"), Regions: c.Int("regions"), Timepoints: c.Int("timepoints"),
 				States: c.Int("states"), TR: c.Float64("tr"), Stickiness: c.Float64("stickiness"),

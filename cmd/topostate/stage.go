@@ -45,7 +45,7 @@ func stageCommand() *cli.Command {
 						return err
 					}
 					o := ingestOptions(c)
-					if err := o.Check(); err != nil {
+					if err := checkOptions(c, o); err != nil {
 						return err
 					}
 					w, err := ingest.Plan(c.Context, o, c.String("work"), c.Int("shards"))
