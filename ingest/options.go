@@ -7,6 +7,8 @@ import (
 	"math"
 	"strconv"
 	"strings"
+
+	"github.com/topostate/topostate/schema"
 )
 
 // Options are every setting of one ingest. They are stored as JSON with the
@@ -212,6 +214,9 @@ func (o Options) Check() error {
 	}
 	if o.ConstantRegion != "fail" && o.ConstantRegion != "drop" {
 		bad("--constant-region %q: want fail or drop", o.ConstantRegion)
+	}
+	if err := schema.CheckAnalysisName(o.Analysis); err != nil {
+		bad("--analysis: %v", err)
 	}
 	if o.Encoding != "" && o.Encoding != "utf-8" && o.Encoding != "latin1" {
 		bad("--encoding %q: want utf-8 or latin1 (ISO-8859-1 / Windows-1252)", o.Encoding)

@@ -10,8 +10,11 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
+	"unicode"
+	"unicode/utf8"
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
@@ -48,11 +51,45 @@ type parquetFile struct {
 // ErrAnalysisExists is returned when the name is already taken.
 var ErrAnalysisExists = errors.New("an analysis with this name already exists")
 
+// CheckAnalysisName reports why name cannot name a new analysis, or nil.
+// Commands take an analysis as an id, a name or the keyword latest
+// (queries.ResolveAnalysis), so a name that reads as an id or a keyword
+// would be found differently by different commands; surrounding spaces are
+// trimmed when a name is looked up, and control characters would print as
+// terminal commands. An empty name means the default, analysis-<id>.
+func CheckAnalysisName(name string) error {
+	bad := func(why string) error {
+		return fmt.Errorf("analysis name %q %s; choose another --analysis name", name, why)
+	}
+	t := strings.TrimSpace(name)
+	switch {
+	case name == "":
+		return nil
+	case t == "":
+		return bad("is blank")
+	case t != name:
+		return bad("has leading or trailing spaces")
+	case !utf8.ValidString(name):
+		return bad("is not UTF-8 text")
+	case strings.IndexFunc(name, unicode.IsControl) >= 0:
+		return bad("holds a control character")
+	case strings.EqualFold(name, "latest"):
+		return bad("is reserved: latest names the newest analysis")
+	}
+	if _, err := strconv.ParseInt(name, 10, 64); err == nil {
+		return bad("reads as an analysis id; a name needs a character that is not a digit")
+	}
+	return nil
+}
+
 // Begin opens a transaction for a new analysis called name. The layout is
 // created or checked first. An empty name gets "analysis-<id>". When
 // parquetDir is not empty every appended batch is also written to
 // parquetDir/<table>.parquet.
 func Begin(ctx context.Context, db *sql.DB, name, parquetDir string) (*Writer, error) {
+	if err := CheckAnalysisName(name); err != nil {
+		return nil, fmt.Errorf("schema: %w", err)
+	}
 	conn, err := db.Conn(ctx)
 	if err != nil {
 		return nil, fmt.Errorf("schema: %w", classify(err))
@@ -358,4 +395,29 @@ func (w *Writer) Rollback() {
 	}
 	w.conn.ExecContext(context.Background(), "ROLLBACK")
 	w.conn.Close()
+}
+
+// Printable returns s with every control character (and any byte that is
+// not UTF-8) written as a Go escape (\n, \x1b, \u0085), so a name stored by
+// another client or an older version prints as text, never as a terminal
+// command or a line break.
+func Printable(s string) string {
+	if utf8.ValidString(s) && strings.IndexFunc(s, unicode.IsControl) < 0 {
+		return s
+	}
+	var b strings.Builder
+	for i := 0; i < len(s); {
+		r, size := utf8.DecodeRuneInString(s[i:])
+		switch {
+		case r == utf8.RuneError && size <= 1:
+			fmt.Fprintf(&b, `\x%02x`, s[i])
+		case unicode.IsControl(r):
+			q := strconv.QuoteRune(r)
+			b.WriteString(q[1 : len(q)-1])
+		default:
+			b.WriteRune(r)
+		}
+		i += size
+	}
+	return b.String()
 }

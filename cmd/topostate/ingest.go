@@ -80,7 +80,23 @@ func checkOptions(c *cli.Context, o ingest.Options) error {
 	if c.IsSet("tr") && o.TR == 0 {
 		return usagef("--tr 0: %v; leave --tr out to read RepetitionTime from each file's sidecar", ingest.CheckTR(0))
 	}
+	if err := checkAnalysisFlag(c); err != nil {
+		return err
+	}
 	return o.Check()
+}
+
+// checkAnalysisFlag refuses --analysis NAME where NAME cannot name a new
+// analysis (schema.CheckAnalysisName), and an explicit empty name.
+func checkAnalysisFlag(c *cli.Context) error {
+	name := c.String("analysis")
+	if c.IsSet("analysis") && name == "" {
+		return usagef("--analysis \"\": an analysis name cannot be empty; leave --analysis out for the default name analysis-<id>")
+	}
+	if err := schema.CheckAnalysisName(name); err != nil {
+		return usageError{err}
+	}
+	return nil
 }
 
 func ingestCommand() *cli.Command {

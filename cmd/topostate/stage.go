@@ -149,6 +149,9 @@ func stageCommand() *cli.Command {
 					if err := need(c, "work"); err != nil {
 						return err
 					}
+					if err := checkAnalysisFlag(c); err != nil {
+						return err
+					}
 					w, err := ingest.OpenWork(c.String("work"))
 					if err != nil {
 						return err
