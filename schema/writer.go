@@ -44,7 +44,8 @@ type Writer struct {
 type parquetFile struct {
 	f       *os.File
 	w       *pqarrow.FileWriter
-	path    string // final name; the file is written to path + ".partial" until Commit
+	path    string // final name
+	tmp     string // the file as written, a new name beside path, renamed to path by Commit
 	renamed bool
 }
 
@@ -273,8 +274,16 @@ func (w *Writer) writeParquet(table string, rec arrow.Record) error {
 		if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 			return fmt.Errorf("schema: parquet: %w", err)
 		}
-		f, err := os.Create(path + ".partial")
+		// A name of its own (exclusive creation), so that two runs writing
+		// the same table never write into one file, and an earlier file
+		// at path stays as it was until Commit succeeds.
+		f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".*.partial")
 		if err != nil {
+			return fmt.Errorf("schema: parquet: %w", err)
+		}
+		if err := f.Chmod(0o644); err != nil {
+			f.Close()
+			os.Remove(f.Name())
 			return fmt.Errorf("schema: parquet: %w", err)
 		}
 		props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd))
@@ -284,9 +293,10 @@ func (w *Writer) writeParquet(table string, rec arrow.Record) error {
 		fw, err := pqarrow.NewFileWriter(rec.Schema(), f, props, pqarrow.DefaultWriterProps())
 		if err != nil {
 			f.Close()
+			os.Remove(f.Name())
 			return fmt.Errorf("schema: parquet %s: %w", table, err)
 		}
-		pf = &parquetFile{f: f, w: fw, path: path}
+		pf = &parquetFile{f: f, w: fw, path: path, tmp: f.Name()}
 		w.pq[table] = pf
 	}
 	if err := pf.w.Write(rec); err != nil {
@@ -313,21 +323,15 @@ func (w *Writer) Commit(ctx context.Context) error {
 			errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
 		}
 	}
-	if len(errs) == 0 {
-		for _, t := range slices.Sorted(maps.Keys(w.pq)) {
-			pf := w.pq[t]
-			if err := os.Rename(pf.path+".partial", pf.path); err != nil {
-				errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
-				break
-			}
-			pf.renamed = true
-		}
-	}
 	if err := errors.Join(errs...); err != nil {
-		w.Rollback() // removes this analysis's Parquet files too
+		w.Rollback() // removes the temporaries; earlier files are untouched
 		return err
 	}
-	if w.conn == nil { // Parquet only: the renames above were the commit
+	if w.conn == nil { // Parquet only: the renames are the commit
+		if err := w.renameParquet(); err != nil {
+			w.Rollback()
+			return err
+		}
 		w.pq = map[string]*parquetFile{}
 		w.done = true
 		return nil
@@ -341,13 +345,50 @@ func (w *Writer) Commit(ctx context.Context) error {
 		w.Rollback() // the connection goes back to the pool: no transaction left open on it
 		return fmt.Errorf("schema: commit: %w", err)
 	}
-	w.pq = map[string]*parquetFile{}
 	w.done = true
 	// Success means the analysis is in the file the user named, not only in
 	// its .wal: a full disk at the checkpoint is reported (ErrNotDurable).
 	err = Checkpoint(ctx, w.conn, fmt.Sprintf("analysis %q (id %d)", w.Name, w.ID))
 	w.conn.Close()
-	return err
+	// The Parquet copies replace earlier files only now, when the analysis
+	// is in the warehouse file: a run that fails at any point before leaves
+	// the files of an earlier run in the folder as they were.
+	if err != nil {
+		if len(w.pq) > 0 {
+			err = fmt.Errorf("%w; the Parquet files were not written (%s is as it was): once the analysis is complete, 'topostate export --analysis %s' writes them", err, w.parquetDir, w.Name)
+		}
+		w.removeParquet()
+		return err
+	}
+	if err := w.renameParquet(); err != nil {
+		w.removeParquet()
+		return fmt.Errorf("%w (the analysis is in the warehouse; 'topostate export --analysis %s' writes its tables)", err, w.Name)
+	}
+	w.pq = map[string]*parquetFile{}
+	return nil
+}
+
+// renameParquet moves every closed Parquet temporary to its final name.
+func (w *Writer) renameParquet() error {
+	for _, t := range slices.Sorted(maps.Keys(w.pq)) {
+		pf := w.pq[t]
+		if err := os.Rename(pf.tmp, pf.path); err != nil {
+			return fmt.Errorf("schema: parquet %s: %w", t, err)
+		}
+		pf.renamed = true
+	}
+	return nil
+}
+
+// removeParquet removes the temporaries not renamed yet.
+func (w *Writer) removeParquet() {
+	for _, pf := range w.pq {
+		pf.w.Close()
+		if !pf.renamed {
+			os.Remove(pf.tmp)
+		}
+	}
+	w.pq = map[string]*parquetFile{}
 }
 
 // pauseEnv is a test hook, not a user setting (undocumented on purpose):
@@ -376,13 +417,13 @@ func pauseBeforeCommit(ctx context.Context) {
 }
 
 // Rollback abandons the analysis; the file keeps its earlier contents and
-// any Parquet files of this analysis are removed. Safe to call twice.
+// the Parquet temporaries of this analysis are removed (files of an
+// earlier run at the final names are never touched). Safe to call twice.
 func (w *Writer) Rollback() {
 	for _, pf := range w.pq {
 		pf.w.Close()
-		os.Remove(pf.path + ".partial")
-		if pf.renamed {
-			os.Remove(pf.path)
+		if !pf.renamed {
+			os.Remove(pf.tmp)
 		}
 	}
 	w.pq = map[string]*parquetFile{}

@@ -94,3 +94,118 @@ func readFileString(t *testing.T, p string) string {
 	}
 	return string(b)
 }
+
+// TestSimulateNeverOverwrites (class 3): simulate --out into an existing
+// cohort, or into any folder holding a file, is refused (exit 2, naming
+// what is there) and the folder is byte-identical; there is no option to
+// force it. A new or empty folder works.
+func TestSimulateNeverOverwrites(t *testing.T) {
+	tmp := t.TempDir()
+	cohort := filepath.Join(tmp, "cohort")
+	copyTree(t, goodCohort, cohort)
+	notes := filepath.Join(tmp, "notes")
+	if err := os.MkdirAll(notes, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(notes, "readme.txt"), []byte("mine\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	before := hashTree(t, tmp)
+	for _, c := range []struct {
+		dir, want string
+	}{
+		{cohort, "is not empty (it holds participants.tsv, sub-01, sub-02, ...)"},
+		{notes, "is not empty (it holds readme.txt)"},
+		{filepath.Join(notes, "readme.txt"), "is a file, not a folder"},
+	} {
+		r := runCmd(t, cmdOpts{args: []string{"simulate", "--out", c.dir, "--subjects", "3", "--regions", "5", "--timepoints", "40", "--truth"}})
+		if r.code != 2 || !strings.Contains(r.stderr, c.want) || r.stdout != "" {
+			t.Errorf("simulate --out %s: exit %d (want 2)\nstderr: %s", c.dir, r.code, r.stderr)
+		}
+	}
+	sameTree(t, "after simulate into existing folders", before, hashTree(t, tmp), nil)
+	empty := filepath.Join(tmp, "empty")
+	if err := os.Mkdir(empty, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	if r := runCmd(t, cmdOpts{args: []string{"simulate", "--out", empty, "--subjects", "3", "--regions", "5", "--timepoints", "40"}}); r.code != 0 {
+		t.Errorf("simulate into an empty folder: exit %d: %s", r.code, r.stderr)
+	}
+	sameTree(t, "after simulate into a new folder", before, hashTree(t, tmp), func(p string) bool { return strings.HasPrefix(p, "empty"+string(filepath.Separator)) })
+}
+
+// TestDemoChecksEveryFile (class 3): demo --dir refuses a folder where any
+// file it would write exists: the cohort folder (with anything in it), the
+// warehouse, or the warehouse's .wal; the folder is byte-identical.
+func TestDemoChecksEveryFile(t *testing.T) {
+	for _, c := range []struct {
+		file, want string
+	}{
+		{filepath.Join("cohort", "participants.tsv"), "is not empty (it holds participants.tsv)"},
+		{filepath.Join("cohort", "sub-07", "func", "x.tsv"), "is not empty (it holds sub-07)"},
+		{"demo.duckdb.wal", "demo.duckdb.wal exists already"},
+		{"demo.duckdb", "demo.duckdb exists already"},
+	} {
+		dir := t.TempDir()
+		p := filepath.Join(dir, c.file)
+		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(p, []byte("a user's file\n"), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		before := hashTree(t, dir)
+		r := runCmd(t, cmdOpts{args: []string{"demo", "--dir", dir, "-q"}})
+		if r.code != 2 || !strings.Contains(r.stderr, c.want) {
+			t.Errorf("demo --dir with %s: exit %d (want 2)\nstderr: %s", c.file, r.code, r.stderr)
+		}
+		sameTree(t, "demo beside "+c.file, before, hashTree(t, dir), nil)
+	}
+}
+
+// TestParquetKeptOnFailure (class 3): an ingest with --parquet DIR that
+// fails (a bad cohort; the checkpoint after the commit failing; an
+// interrupt with the whole analysis written but not committed) leaves the
+// Parquet files an earlier run wrote there byte-identical and adds no file.
+func TestParquetKeptOnFailure(t *testing.T) {
+	tmp := t.TempDir()
+	db := copyDB(t, tmp)
+	pq := filepath.Join(tmp, "parquet")
+	abs, _ := filepath.Abs(goodCohort)
+	if r := runCmd(t, cmdOpts{args: append(expand(baseIngest, abs, db), "--analysis", "first", "--parquet", pq)}); r.code != 0 {
+		t.Fatalf("first ingest: exit %d: %s", r.code, r.stderr)
+	}
+	before := hashTree(t, pq)
+	if len(before) < 5 {
+		t.Fatalf("the first ingest wrote %d Parquet files", len(before))
+	}
+	bad := filepath.Join("..", "..", "testdata", "bad", "series-nan-cell", "cohort")
+	badAbs, _ := filepath.Abs(bad)
+	r := runCmd(t, cmdOpts{args: append(expand(baseIngest, badAbs, db), "--analysis", "second", "--parquet", pq)})
+	if r.code != 1 {
+		t.Errorf("bad cohort: exit %d: %s", r.code, r.stderr)
+	}
+	sameTree(t, "Parquet folder after a refused cohort", before, hashTree(t, pq), nil)
+
+	r = runCmd(t, cmdOpts{args: append(expand(baseIngest, abs, db), "--analysis", "third", "--parquet", pq), env: []string{"TOPOSTATE_TEST_FAIL_CHECKPOINT=1"}})
+	if r.code != 1 || !strings.Contains(r.stderr, "the Parquet files were not written") || !strings.Contains(r.stderr, pq+" is as it was") {
+		t.Errorf("failing checkpoint: exit %d\nstderr: %s", r.code, r.stderr)
+	}
+	sameTree(t, "Parquet folder after a failed checkpoint", before, hashTree(t, pq), nil)
+	if r := runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db}}); r.code != 0 { // completes the checkpoint
+		t.Fatalf("upgrade: exit %d: %s", r.code, r.stderr)
+	}
+
+	bg := start(t, append(expand(baseIngest, abs, db), "--analysis", "fourth", "--parquet", pq), "1m")
+	bg.waitMarker(t)
+	if err := bg.cmd.Process.Signal(os.Interrupt); err != nil {
+		t.Fatal(err)
+	}
+	if st := bg.wait(); st.ExitCode() == 0 {
+		t.Errorf("interrupted ingest exited 0")
+	}
+	sameTree(t, "Parquet folder after an interrupt before the commit", before, hashTree(t, pq), nil)
+	if got := querySQL(t, db, `SELECT string_agg(name, ',' ORDER BY analysis_id) FROM analyses`); got != "baseline,first,third" {
+		t.Errorf("analyses %s, want baseline,first,third", got)
+	}
+}
