@@ -3,7 +3,7 @@ package schema
 import (
 	"context"
 	"errors"
-		"path/filepath"
+	"path/filepath"
 	"testing"
 )
 
