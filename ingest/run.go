@@ -280,11 +280,7 @@ type stages struct {
 }
 
 func (s *stages) setup() error {
-	s.pre = compute.PreprocessOptions{Detrend: s.o.Detrend, SmoothK: s.o.SmoothK, SmoothSigma: s.o.SmoothSD}
-	s.win = compute.WindowOptions{Width: s.o.Window, Step: s.o.Step, FisherZ: s.o.FisherZ, GaussSigma: s.o.TaperSD}
-	if s.o.Taper == "gauss" {
-		s.win.Taper = compute.TaperGauss
-	}
+	s.pre, s.win = computeOptions(s.o)
 	if s.o.Distance == "manhattan" {
 		s.dist = compute.Manhattan
 	}
@@ -318,7 +314,7 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	}
 	y, err = compute.Preprocess(y, s.pre)
 	if err != nil {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, s.regionError(in.Path, err)
 	}
 	var buf []float32
 	if b, ok := s.bufs.Get().(*[]float32); ok {
@@ -326,10 +322,23 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	}
 	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
 	if err != nil {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, s.regionError(in.Path, err)
 	}
 	s.work.since(stage+": windows", t)
 	return m, nil
+}
+
+// regionError names the region of a compute.RegionError (an index into
+// the analysed columns) by its name and column in the file; validation
+// refuses such series first, so this is a safety net.
+func (s *stages) regionError(path string, err error) error {
+	var re *compute.RegionError
+	if errors.As(err, &re) && errors.Is(err, compute.ErrZeroVariance) && re.Region >= 0 && re.Region < len(s.c.Keep) {
+		cp := *re
+		cp.Region = s.c.Keep[re.Region]
+		return windowProblem(path, s.c.Regions, &cp)
+	}
+	return fmt.Errorf("ingest: %s: %w", path, err)
 }
 
 // release hands a window matrix's storage back for the next series; m must

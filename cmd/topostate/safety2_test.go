@@ -209,3 +209,35 @@ func TestParquetKeptOnFailure(t *testing.T) {
 		t.Errorf("analyses %s, want baseline,first,third", got)
 	}
 }
+
+// TestUndefinedWindowStages (class 6): a series with a region that does
+// not vary for a window's length, with --on-bad-subject skip, is left out
+// alike by ingest and by stage plan, and the staged run (plan, sample,
+// fit, compute, merge) gives the same rows as the single ingest: the
+// computation never meets the undefined window. (The refusals without
+// skip, and the skip of ingest, are corpus cases window-constant-*.)
+func TestUndefinedWindowStages(t *testing.T) {
+	tmp := t.TempDir()
+	cohort, _ := filepath.Abs(filepath.Join("..", "..", "testdata", "bad", "window-constant-region", "cohort"))
+	opts := []string{"--input", cohort, "--window", "5", "--states", "2", "--on-bad-subject", "skip"}
+	single := filepath.Join(tmp, "single.duckdb")
+	mustRun(t, append([]string{"ingest", "-q", "--db", single, "--analysis", "a"}, opts...)...)
+	work := filepath.Join(tmp, "work")
+	out := mustRun(t, append([]string{"stage", "plan", "--work", work, "--shards", "2"}, opts...)...)
+	if !strings.Contains(out, "planned 2 series") || !strings.Contains(out, "(1 excluded)") {
+		t.Errorf("stage plan with skip: %s", out)
+	}
+	for _, sh := range []string{"1/2", "2/2"} {
+		mustRun(t, "stage", "sample", "--work", work, "--shard", sh, "-q")
+	}
+	mustRun(t, "stage", "fit", "--work", work, "-q")
+	for _, sh := range []string{"1/2", "2/2"} {
+		mustRun(t, "stage", "compute", "--work", work, "--shard", sh, "-q")
+	}
+	merged := filepath.Join(tmp, "merged.duckdb")
+	mustRun(t, "stage", "merge", "--work", work, "--db", merged, "-q", "--analysis", "a")
+	sameAnalysis(t, single, merged, "excluded_inputs", "inputs")
+	if got := querySQL(t, merged, `SELECT count(*) FROM excluded_inputs WHERE reason LIKE '%region "node2" does not vary over time points 4..8%'`); got != "1" {
+		t.Errorf("excluded_inputs of the staged run: %s rows with the reason", got)
+	}
+}
