@@ -39,7 +39,12 @@ type Writer struct {
 	rows       map[string]int64
 	plain      map[string]bool // tables written without dictionary or compression
 	views      int
+	written    []string // Parquet files renamed into place by Commit
 }
+
+// Files returns the Parquet files a committed writer put in place, in
+// table order.
+func (w *Writer) Files() []string { return slices.Clone(w.written) }
 
 type parquetFile struct {
 	f       *os.File
@@ -376,6 +381,7 @@ func (w *Writer) renameParquet() error {
 			return fmt.Errorf("schema: parquet %s: %w", t, err)
 		}
 		pf.renamed = true
+		w.written = append(w.written, pf.path)
 	}
 	return nil
 }
