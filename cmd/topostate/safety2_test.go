@@ -241,3 +241,108 @@ func TestUndefinedWindowStages(t *testing.T) {
 		t.Errorf("excluded_inputs of the staged run: %s rows with the reason", got)
 	}
 }
+
+// TestStageIntegrity (class 8): one shard's file copied over another's,
+// a changed file and an edited manifest are refused by merge (exit 1,
+// naming the file and the stage to run again; the warehouse is not
+// created); a shard whose lock another process holds is refused at once
+// and its earlier mark kept; several runs of one shard at once leave files
+// that match their mark, and merge then succeeds.
+func TestStageIntegrity(t *testing.T) {
+	tmp := t.TempDir()
+	abs, _ := filepath.Abs(goodCohort)
+	work := filepath.Join(tmp, "work")
+	mustRun(t, append([]string{"stage", "plan", "--work", work, "--shards", "3"}, expand("--input {cohort} --window 5 --states 2", abs, "")...)...)
+	for _, sh := range []string{"1/3", "2/3", "3/3"} {
+		mustRun(t, "stage", "sample", "--work", work, "--shard", sh, "-q")
+	}
+	mustRun(t, "stage", "fit", "--work", work, "-q")
+	for _, sh := range []string{"1/3", "2/3", "3/3"} {
+		mustRun(t, "stage", "compute", "--work", work, "--shard", sh, "-q")
+	}
+	db := filepath.Join(tmp, "w.duckdb")
+	merge := []string{"stage", "merge", "--work", work, "--db", db, "-q"}
+	refused := func(what, want string) {
+		t.Helper()
+		r := runCmd(t, cmdOpts{args: merge})
+		if r.code != 1 || !strings.Contains(r.stderr, want) || r.stdout != "" {
+			t.Errorf("%s: merge exit %d (want 1)\nstderr: %s\nwant: %s", what, r.code, r.stderr, want)
+		}
+		if _, err := os.Stat(db); err == nil {
+			t.Errorf("%s: merge left %s", what, db)
+		}
+	}
+	seq := func(i int) string { return filepath.Join(work, "tables", "state_sequence", "shard="+string(rune('0'+i)), "data.parquet") }
+	orig := readFileString(t, seq(2))
+
+	copyFile(t, seq(1), seq(2))
+	refused("shard 1's file over shard 2's", "is not the file stage compute --shard 2/3 wrote: it is a copy of tables/state_sequence/shard=1/data.parquet; run stage compute --shard 2/3 again")
+	if err := os.WriteFile(seq(2), []byte(orig[:len(orig)-1]+"x"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	refused("a changed file", "was changed after stage compute --shard 2/3 wrote it")
+	os.Remove(seq(2))
+	refused("a missing file", "is missing, though stage compute --shard 2/3 finished")
+	if err := os.WriteFile(seq(2), []byte(orig), 0o644); err != nil {
+		t.Fatal(err)
+	}
+
+	manifest := filepath.Join(work, "manifest.json")
+	m := readFileString(t, manifest)
+	if !strings.Contains(m, `"window": 5`) {
+		t.Fatalf("manifest without the window: %s", m)
+	}
+	if err := os.WriteFile(manifest, []byte(strings.Replace(m, `"window": 5`, `"window": 6`, 1)), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	refused("an edited manifest", "manifest.json was changed after it was planned")
+	if r := runCmd(t, cmdOpts{args: []string{"stage", "compute", "--work", work, "--shard", "1/3", "-q"}}); r.code != 1 || !strings.Contains(r.stderr, "was changed after it was planned") {
+		t.Errorf("compute under an edited manifest: exit %d: %s", r.code, r.stderr)
+	}
+	if err := os.WriteFile(manifest, []byte(m), 0o644); err != nil {
+		t.Fatal(err)
+	}
+
+	// Another process holds shard 1's compute lock.
+	mark := filepath.Join(work, "done", "compute-1.json")
+	markBefore := readFileString(t, mark)
+	unlock := holdStageLock(t, filepath.Join(work, "done", ".compute-1.lock"))
+	r := runCmd(t, cmdOpts{args: []string{"stage", "compute", "--work", work, "--shard", "1/3", "-q"}})
+	if r.code != 1 || !strings.Contains(r.stderr, "stage compute --shard 1/3 is running in another process") {
+		t.Errorf("compute while the shard is locked: exit %d: %s", r.code, r.stderr)
+	}
+	unlock()
+	if readFileString(t, mark) != markBefore {
+		t.Errorf("the refused run changed the shard's done mark")
+	}
+
+	// Four runs of shard 2 at once: each finishes or is refused; the mark
+	// left matches the files left, and merge succeeds.
+	const n = 4
+	codes := make(chan result, n)
+	for range n {
+		go func() {
+			codes <- runCmd(t, cmdOpts{args: []string{"stage", "compute", "--work", work, "--shard", "2/3", "-q"}})
+		}()
+	}
+	ok := 0
+	for range n {
+		r := <-codes
+		switch {
+		case r.code == 0:
+			ok++
+		case r.code == 1 && strings.Contains(r.stderr, "is running in another process"):
+		default:
+			t.Errorf("a concurrent run of shard 2: exit %d: %s", r.code, r.stderr)
+		}
+	}
+	if ok == 0 {
+		t.Fatal("no concurrent run of shard 2 finished")
+	}
+	if r := runCmd(t, cmdOpts{args: append(merge, "--analysis", "merged")}); r.code != 0 {
+		t.Fatalf("merge after the concurrent runs: exit %d: %s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT count(DISTINCT subject_id) || '/' || count(*) FROM inputs`); got != "3/3" {
+		t.Errorf("inputs after merge: %s, want 3 subjects once each", got)
+	}
+}
