@@ -272,7 +272,9 @@ func TestStageIntegrity(t *testing.T) {
 			t.Errorf("%s: merge left %s", what, db)
 		}
 	}
-	seq := func(i int) string { return filepath.Join(work, "tables", "state_sequence", "shard="+string(rune('0'+i)), "data.parquet") }
+	seq := func(i int) string {
+		return filepath.Join(work, "tables", "state_sequence", "shard="+string(rune('0'+i)), "data.parquet")
+	}
 	orig := readFileString(t, seq(2))
 
 	copyFile(t, seq(1), seq(2))
