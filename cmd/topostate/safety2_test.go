@@ -348,3 +348,48 @@ func TestStageIntegrity(t *testing.T) {
 		t.Errorf("inputs after merge: %s, want 3 subjects once each", got)
 	}
 }
+
+// TestPoisonedWarehouse (class 4): a warehouse in which an earlier version
+// stored a participants.tsv header cell in Latin-1 as it was (a column
+// name that is not UTF-8, which stops DuckDB's catalog views). Every
+// command says what to do (topostate upgrade) instead of failing without a
+// way back, and leaves the file byte-identical; upgrade renames the column
+// to UTF-8, keeping its values, after which the commands work.
+func TestPoisonedWarehouse(t *testing.T) {
+	tmp := t.TempDir()
+	db := copyDB(t, tmp)
+	execSQL(t, db, "ALTER TABLE subjects ADD COLUMN \"\xe2ge\" BIGINT", "UPDATE subjects SET \"\xe2ge\" = 3", "CHECKPOINT")
+	abs, _ := filepath.Abs(goodCohort)
+	before := hashTree(t, tmp)
+	for _, args := range [][]string{
+		{"info", "--db", db},
+		{"export", "--db", db, "--out", filepath.Join(tmp, "exp")},
+		{"report", "--db", db, "--out", filepath.Join(tmp, "r.html")},
+		{"query", "--db", db, "subject_features"},
+		{"drop", "--db", db, "--analysis", "baseline", "--yes"},
+		append(expand(baseIngest, abs, db), "--analysis", "second"),
+	} {
+		r := runCmd(t, cmdOpts{args: args})
+		if r.code != 1 || !strings.Contains(r.stderr, "run 'topostate upgrade --db FILE' once") {
+			t.Errorf("%s on the poisoned file: exit %d: %s", args[0], r.code, r.stderr)
+		}
+	}
+	sameTree(t, "commands on the poisoned file", before, hashTree(t, tmp), nil)
+	r := runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db}})
+	if r.code != 0 || !strings.Contains(r.stdout, `subjects column "\xe2ge" renamed to "âge"`) {
+		t.Fatalf("upgrade: exit %d\n%s%s", r.code, r.stdout, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT sum("âge") FROM subjects`); got != "9" {
+		t.Errorf("the renamed column holds %s, want the 3 values of 3", got)
+	}
+	for _, args := range [][]string{
+		{"info", "--db", db},
+		{"export", "--db", db, "--out", filepath.Join(tmp, "exp")},
+		{"query", "--db", db, "subject_features"},
+		{"drop", "--db", db, "--analysis", "baseline", "--yes"},
+	} {
+		if r := runCmd(t, cmdOpts{args: args}); r.code != 0 {
+			t.Errorf("%s after upgrade: exit %d: %s", args[0], r.code, r.stderr)
+		}
+	}
+}
