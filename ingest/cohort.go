@@ -66,6 +66,7 @@ type fileCheck struct {
 	T        int
 	sha      string
 	constant []int
+	windows  []*compute.RegionError // regions whose window correlations are undefined (RegionWindowProblems)
 	tr       float64
 	trSource string
 	err      error
@@ -97,7 +98,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 			ppath = alt
 		}
 	}
-	part, err := ReadParticipants(ppath)
+	part, err := ReadParticipantsEncoding(ppath, o.Encoding)
 	if err != nil {
 		var ps Problems
 		if errors.As(err, &ps) {
@@ -217,6 +218,42 @@ func LoadCohort(o Options) (*Cohort, error) {
 			bad[i] = &ParseError{Path: inputs[i].Path, Err: fmt.Errorf("%w: %d time points, "+why+" or leave this series out", ErrTooShort, ch.T, c.Window)}
 		}
 	}
+	// Windows whose correlations are undefined (a region that does not
+	// vary for a window's length) in a region that is analysed: the series
+	// is refused like any bad series (skipped under --on-bad-subject skip),
+	// here and in stage plan, so the computation never meets one.
+	if ref >= 0 && c.Window > 0 {
+		if o.Window == 0 { // the window was derived from the cohort: the files are read again
+			ow := o
+			ow.Window = c.Window
+			pre, win := computeOptions(ow)
+			for i := range checks {
+				if bad[i] != nil || checks[i].T < c.Window {
+					continue
+				}
+				sf, err := src.Read(inputs[i])
+				if err != nil {
+					bad[i] = err
+					continue
+				}
+				checks[i].windows = compute.RegionWindowProblems(sf.Series, pre, win)
+			}
+		}
+		kept := map[int]bool{}
+		for _, j := range c.Keep {
+			kept[j] = true
+		}
+		for i, ch := range checks {
+			if bad[i] != nil {
+				continue
+			}
+			for _, re := range ch.windows {
+				if kept[re.Region] {
+					bad[i] = errors.Join(bad[i], windowProblem(inputs[i].Path, ch.regions, re))
+				}
+			}
+		}
+	}
 	for i, in := range inputs {
 		if bad[i] != nil {
 			if o.OnBadSubject == "skip" {
@@ -272,6 +309,10 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 	}
 	ch.regions, ch.T, ch.sha = sf.Regions, sf.Series.T, sf.SHA256
 	ch.constant = compute.ConstantRegions(sf.Series)
+	if o.Window > 0 && sf.Series.T >= o.Window { // a derived window is checked in LoadCohort
+		pre, win := computeOptions(o)
+		ch.windows = compute.RegionWindowProblems(sf.Series, pre, win)
+	}
 	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
 	// the file itself states (a NIfTI header's pixdim[4] with its unit).
 	switch {
@@ -282,15 +323,54 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		ch.trSource = in.Sidecar
 		if errors.Is(ch.err, ErrNoTR) && sf.TR > 0 {
 			ch.tr, ch.trSource, ch.err = sf.TR, in.Path+" (header pixdim[4])", nil
+			if err := CheckTR(sf.TR); err != nil {
+				ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; put RepetitionTime in %s or pass --tr SECONDS", err, in.Sidecar)
+			}
 		}
 	case sf.TR > 0:
 		ch.tr, ch.trSource = sf.TR, in.Path+" (header pixdim[4])"
+		if err := CheckTR(sf.TR); err != nil {
+			ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", err)
+		}
 	case FileKind(in.Path) == KindNifti:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: the header's pixdim[4] has no time unit (xyzt_units); pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	default:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	}
 	return ch
+}
+
+// computeOptions are the preprocessing and window options of o, as the
+// computation uses them.
+func computeOptions(o Options) (compute.PreprocessOptions, compute.WindowOptions) {
+	pre := compute.PreprocessOptions{Detrend: o.Detrend, SmoothK: o.SmoothK, SmoothSigma: o.SmoothSD}
+	win := compute.WindowOptions{Width: o.Window, Step: o.Step, FisherZ: o.FisherZ, GaussSigma: o.TaperSD}
+	if o.Taper == "gauss" {
+		win.Taper = compute.TaperGauss
+	}
+	return pre, win
+}
+
+// windowProblem words a region whose window correlations are undefined
+// (the policy: such a series is refused, or left out
+// under --on-bad-subject skip): the region's name, its column, and the
+// window's time points counted from 1 (and its lines, for a table with a
+// header line).
+func windowProblem(path string, regions []string, re *compute.RegionError) error {
+	name := fmt.Sprint(re.Region + 1)
+	if re.Region < len(regions) {
+		name = regions[re.Region]
+	}
+	if re.Window < 0 {
+		return &ParseError{Path: path, Column: re.Region + 1, Err: fmt.Errorf("%w: region %q has no variance left after detrending or smoothing (is it a straight line?); fix the series, or pass --on-bad-subject skip to leave this series out", ErrUndefinedWindow, name)}
+	}
+	first, last := re.Start+1, re.Start+re.Width
+	lines := ""
+	if FileKind(path) == KindTable {
+		lines = fmt.Sprintf(", lines %d..%d", first+1, last+1)
+	}
+	return &ParseError{Path: path, Column: re.Region + 1, Err: fmt.Errorf("%w: region %q does not vary over time points %d..%d%s (window %d of %d time points), so its correlations there are undefined; "+
+		"fix the series (a stretch filled with one value?), or pass --on-bad-subject skip to leave this series out", ErrUndefinedWindow, name, first, last, lines, re.Window+1, re.Width)}
 }
 
 func regionDiff(want, got []string) string {

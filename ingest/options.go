@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"github.com/topostate/topostate/compute"
+	"github.com/topostate/topostate/schema"
 )
 
 // Options are every setting of one ingest. They are stored as JSON with the
@@ -88,6 +89,10 @@ type Options struct {
 	// StatesFrom, when not nil, skips sampling and fitting: every window
 	// is assigned to the centroids of an earlier analysis (LoadStates).
 	StatesFrom *StatesFrom `json:"states_from,omitempty"`
+
+	// Encoding is participants.tsv's text encoding (see Encodings); ""
+	// is UTF-8.
+	Encoding string `json:"encoding,omitempty"`
 
 	Analysis string `json:"-"`
 	Parquet  string `json:"-"`
@@ -177,8 +182,9 @@ func ParseGrid(s string) (lo, hi float64, n int, err error) {
 	lo, e1 := strconv.ParseFloat(parts[0], 64)
 	hi, e2 := strconv.ParseFloat(parts[1], 64)
 	n, e3 := strconv.Atoi(parts[2])
-	if e1 != nil || e2 != nil || e3 != nil || !(hi > lo) || n < 2 || n > 100000 {
-		return 0, 0, 0, fmt.Errorf("--grid %q: want lo:hi:n with lo < hi and 2 <= n <= 100000", s)
+	if e1 != nil || e2 != nil || e3 != nil || !(hi > lo) || n < 2 || n > 100000 ||
+		math.IsInf(lo, 0) || math.IsInf(hi, 0) || math.IsInf(hi-lo, 0) {
+		return 0, 0, 0, fmt.Errorf("--grid %q: want lo:hi:n with finite lo < hi and 2 <= n <= 100000", s)
 	}
 	return lo, hi, n, nil
 }
@@ -190,8 +196,10 @@ func (o Options) Check() error {
 	if o.Input == "" {
 		bad("--input is required: the folder holding participants.tsv and the series files")
 	}
-	if o.TR < 0 {
-		bad("--tr %v: must be a positive number of seconds", o.TR)
+	if o.TR != 0 { // 0: not given (cmd/topostate refuses an explicit --tr 0)
+		if err := CheckTR(o.TR); err != nil {
+			bad("--tr: %v", err)
+		}
 	}
 	if o.Window != 0 && o.Window < 2 {
 		bad("--window %d: a window needs at least 2 time points (0: from --min-freq)", o.Window)
@@ -275,6 +283,12 @@ func (o Options) Check() error {
 	}
 	if o.ConstantRegion != "fail" && o.ConstantRegion != "drop" {
 		bad("--constant-region %q: want fail or drop", o.ConstantRegion)
+	}
+	if err := schema.CheckAnalysisName(o.Analysis); err != nil {
+		bad("--analysis: %v", err)
+	}
+	if o.Encoding != "" && o.Encoding != "utf-8" && o.Encoding != "latin1" {
+		bad("--encoding %q: want utf-8 or latin1 (ISO-8859-1 / Windows-1252)", o.Encoding)
 	}
 	if o.Workers < 0 {
 		bad("--workers %d: must not be negative (0 uses every core)", o.Workers)

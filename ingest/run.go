@@ -12,6 +12,7 @@ import (
 	"runtime"
 	"slices"
 	"sort"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -111,6 +112,9 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	if err := st.setup(); err != nil {
 		return nil, err
 	}
+	if err := preflight(ctx, db, c, o); err != nil {
+		return nil, err
+	}
 
 	if o.StatesFrom != nil {
 		// Replication: the stored states instead of stages 1 and 2.
@@ -192,6 +196,53 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	return sum, nil
 }
 
+// preflight refuses, before anything is computed, what the write would
+// refuse after the whole computation: a name already taken, and a
+// covariate whose type differs from the warehouse's column of that name
+// (schema.Writer checks both again inside the transaction). This run holds
+// the file's lock, so nothing changes between the two checks.
+func preflight(ctx context.Context, db *sql.DB, c *Cohort, o Options) error {
+	var n int
+	err := db.QueryRowContext(ctx, `SELECT count(*) FROM information_schema.tables
+		WHERE table_catalog = current_database() AND table_schema = 'main' AND table_name IN ('analyses', 'subjects')`).Scan(&n)
+	if err != nil || n < 2 {
+		return nil // a new file, or one Begin will refuse with its own message
+	}
+	if o.Analysis != "" {
+		if err := db.QueryRowContext(ctx, `SELECT count(*) FROM analyses WHERE name = ?`, o.Analysis).Scan(&n); err == nil && n > 0 {
+			return fmt.Errorf("ingest: %q: %w; choose another --analysis name or remove the old one with 'topostate drop'", o.Analysis, schema.ErrAnalysisExists)
+		}
+	}
+	p := c.Participants
+	if p == nil {
+		return nil
+	}
+	rows, err := db.QueryContext(ctx, `SELECT column_name, data_type FROM information_schema.columns
+		WHERE table_catalog = current_database() AND table_schema = 'main' AND table_name = 'subjects'`)
+	if err != nil {
+		return nil
+	}
+	have := map[string]string{}
+	for rows.Next() {
+		var name, typ string
+		if rows.Scan(&name, &typ) == nil {
+			have[strings.ToLower(name)] = typ
+		}
+	}
+	rows.Close()
+	var problems Problems
+	for i, cv := range p.Covariates {
+		if t, ok := have[strings.ToLower(cv.Name)]; ok && !strings.EqualFold(t, cv.Type) {
+			problems = append(problems, perr(p.Path, 1, i+2, "column %q is %s in this cohort but %s in the warehouse, where earlier analyses stored it; "+
+				"rename the column, or write its values as that type, or use another database file", cv.Name, cv.Type, t))
+		}
+	}
+	if len(problems) > 0 {
+		return problems
+	}
+	return nil
+}
+
 // recordAnalysis inserts the analyses row, with every option as JSON.
 func (s *stages) recordAnalysis(ctx context.Context, w *schema.Writer) error {
 	params, err := json.Marshal(s.o)
@@ -232,11 +283,7 @@ type stages struct {
 }
 
 func (s *stages) setup() error {
-	s.pre = compute.PreprocessOptions{Detrend: s.o.Detrend, SmoothK: s.o.SmoothK, SmoothSigma: s.o.SmoothSD}
-	s.win = compute.WindowOptions{Width: s.o.Window, Step: s.o.Step, FisherZ: s.o.FisherZ, GaussSigma: s.o.TaperSD}
-	if s.o.Taper == "gauss" {
-		s.win.Taper = compute.TaperGauss
-	}
+	s.pre, s.win = computeOptions(s.o)
 	if s.o.Distance == "manhattan" {
 		s.dist = compute.Manhattan
 	}
@@ -280,7 +327,7 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	}
 	y, err = compute.Preprocess(y, s.pre)
 	if err != nil {
-		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
 	}
 	var buf []float32
 	if b, ok := s.bufs.Get().(*[]float32); ok {
@@ -288,10 +335,23 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	}
 	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
 	if err != nil {
-		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
 	}
 	s.work.since(stage+": windows", t)
 	return m, y, nil
+}
+
+// regionError names the region of a compute.RegionError (an index into
+// the analysed columns) by its name and column in the file; validation
+// refuses such series first, so this is a safety net.
+func (s *stages) regionError(path string, err error) error {
+	var re *compute.RegionError
+	if errors.As(err, &re) && errors.Is(err, compute.ErrZeroVariance) && re.Region >= 0 && re.Region < len(s.c.Keep) {
+		cp := *re
+		cp.Region = s.c.Keep[re.Region]
+		return windowProblem(path, s.c.Regions, &cp)
+	}
+	return fmt.Errorf("ingest: %s: %w", path, err)
 }
 
 // release hands a window matrix's storage back for the next series; m must

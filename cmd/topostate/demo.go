@@ -42,7 +42,7 @@ func demoCommand() *cli.Command {
 		Name:  "demo",
 		Usage: "simulate a small fictional cohort, ingest it, and show a few results",
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "dir", Usage: "`FOLDER` for the cohort and the warehouse (default: a new temporary folder)"},
+			&cli.StringFlag{Name: "dir", Usage: "`FOLDER` for the cohort (FOLDER/cohort) and the warehouse (FOLDER/demo.duckdb), neither of which may exist (default: a new temporary folder)"},
 			&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
 		},
 		Action: func(c *cli.Context) error {
@@ -56,8 +56,17 @@ func demoCommand() *cli.Command {
 			}
 			cohort := filepath.Join(dir, "cohort")
 			dbPath := filepath.Join(dir, "demo.duckdb")
-			if _, err := os.Stat(dbPath); err == nil {
-				return usagef("%s exists already; give the demo an empty --dir", dbPath)
+			// Every file the demo writes: the cohort folder and the
+			// warehouse with its .wal (the next steps it prints write
+			// nothing). None may exist; the cohort's files are also
+			// created exclusively (ingest.WriteCohort).
+			if err := refuseNonEmpty("demo", "--dir", cohort); err != nil {
+				return err
+			}
+			for _, p := range []string{dbPath, dbPath + ".wal"} {
+				if _, err := os.Lstat(p); err == nil {
+					return usagef("demo: %s exists already; give the demo a new or empty --dir", p)
+				}
 			}
 			out := c.App.Writer
 			fmt.Fprintln(out, demoStory)

@@ -54,6 +54,7 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
 		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "`POLICY` fail, or skip a series with problems (recorded in excluded_inputs)"},
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},
+		&cli.StringFlag{Name: "encoding", Value: "utf-8", Usage: "text `ENCODING` of participants.tsv: utf-8, or latin1 (ISO-8859-1 / Windows-1252, as some spreadsheets save; converted to UTF-8)"},
 		&cli.StringFlag{Name: "parquet", Usage: "also write every table of this analysis as Parquet into `FOLDER`"},
 		&cli.IntFlag{Name: "workers", Value: 0, Usage: fmt.Sprintf("`N` parallel workers (0: all %d cores); results do not depend on it", runtime.GOMAXPROCS(0))},
 		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
@@ -75,9 +76,34 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		Restarts: c.Int("restarts"), ScanRestarts: c.Int("scan-restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
 		FitMax: c.Int("fit-windows"), FitSample: c.String("fit-sample"), Grid: c.String("grid"),
 		CoreTimepoints: c.Int("core-timepoints"),
-		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
+		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"), Encoding: strings.TrimPrefix(c.String("encoding"), "utf-8"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
 	}
+}
+
+// checkOptions is ingest.Options.Check plus what only the command line
+// knows: an explicit --tr 0 (Options.TR 0 means "read each file's TR").
+func checkOptions(c *cli.Context, o ingest.Options) error {
+	if c.IsSet("tr") && o.TR == 0 {
+		return usagef("--tr 0: %v; leave --tr out to read RepetitionTime from each file's sidecar", ingest.CheckTR(0))
+	}
+	if err := checkAnalysisFlag(c); err != nil {
+		return err
+	}
+	return o.Check()
+}
+
+// checkAnalysisFlag refuses --analysis NAME where NAME cannot name a new
+// analysis (schema.CheckAnalysisName), and an explicit empty name.
+func checkAnalysisFlag(c *cli.Context) error {
+	name := c.String("analysis")
+	if c.IsSet("analysis") && name == "" {
+		return usagef("--analysis \"\": an analysis name cannot be empty; leave --analysis out for the default name analysis-<id>")
+	}
+	if err := schema.CheckAnalysisName(name); err != nil {
+		return usageError{err}
+	}
+	return nil
 }
 
 func ingestCommand() *cli.Command {
@@ -91,7 +117,7 @@ func ingestCommand() *cli.Command {
 				return usagef("ingest takes no arguments (got %q); name the cohort with --input", c.Args().First())
 			}
 			o := ingestOptions(c)
-			if err := o.Check(); err != nil {
+			if err := checkOptions(c, o); err != nil {
 				return err
 			}
 			if err := checkReplicationFlags(c); err != nil {
