@@ -262,7 +262,32 @@ func Run(ctx context.Context, conn *sql.Conn, q *Query, values map[string]string
 	}
 	rows, err := conn.QueryContext(ctx, last)
 	if err != nil {
+		if pe := MacroParamError(err); pe != nil {
+			return nil, pe
+		}
 		return nil, fmt.Errorf("queries: %s: %w", queryLabel(q), err)
 	}
 	return rows, nil
+}
+
+// macroErrorPrefixes start the messages the macros of MacrosFile raise
+// with error() for a parameter value that cannot be used (a group value no
+// subject has, two equal groups).
+var macroErrorPrefixes = []string{"subject_groups: "}
+
+// MacroParamError returns err as a *ParamError when it is a macro's
+// refusal of a parameter value (see macroErrorPrefixes), with DuckDB's
+// "Invalid Input Error: " prefix removed; otherwise nil. The command
+// reports such an error as a usage error.
+func MacroParamError(err error) error {
+	if err == nil {
+		return nil
+	}
+	msg := err.Error()
+	for _, p := range macroErrorPrefixes {
+		if i := strings.Index(msg, p); i >= 0 {
+			return &ParamError{Err: errors.New(msg[i:])}
+		}
+	}
+	return nil
 }

@@ -231,7 +231,11 @@ func runQuery(c *cli.Context, db *queries.DB, q *queries.Query, params map[strin
 		if err != nil {
 			return 0, err
 		}
-		return queries.WriteParquet(c.Context, db.Conn, last, w)
+		n, err := queries.WriteParquet(c.Context, db.Conn, last, w)
+		if pe := queries.MacroParamError(err); pe != nil {
+			return n, pe
+		}
+		return n, err
 	}
 	rows, err := queries.Run(c.Context, db.Conn, q, params)
 	if err != nil {
@@ -239,6 +243,9 @@ func runQuery(c *cli.Context, db *queries.DB, q *queries.Query, params map[strin
 	}
 	defer rows.Close()
 	n, err := queries.WriteRows(w, rows, format)
+	if pe := queries.MacroParamError(err); pe != nil {
+		return int64(n), pe
+	}
 	return int64(n), err
 }
 
