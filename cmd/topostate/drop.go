@@ -3,7 +3,6 @@ package main
 import (
 	"bufio"
 	"context"
-	"database/sql"
 	"errors"
 	"fmt"
 	"io"
@@ -14,6 +13,7 @@ import (
 
 	"github.com/urfave/cli/v2"
 
+	"github.com/topostate/topostate/queries"
 	"github.com/topostate/topostate/schema"
 )
 
@@ -24,16 +24,16 @@ func dropCommand() *cli.Command {
 		ArgsUsage: " ",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE`"},
-			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis to remove (see 'topostate info')"},
+			analysisFlag("required (see 'topostate info')"),
 			&cli.BoolFlag{Name: "yes", Aliases: []string{"y"}, Usage: "do not ask for confirmation"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {
 				return usagef("drop takes no arguments (got %q); name the analysis with --analysis", c.Args().First())
 			}
-			name, path := c.String("analysis"), c.String("db")
-			if name == "" {
-				return usagef("drop: --analysis NAME is required; 'topostate info --db %s' lists the analyses", path)
+			given, path := c.String("analysis"), c.String("db")
+			if given == "" {
+				return usagef("drop: --analysis is required (an id, a name or latest); 'topostate info --db %s' lists the analyses", path)
 			}
 			if _, err := os.Stat(path); errors.Is(err, fs.ErrNotExist) {
 				return fmt.Errorf("drop: %s does not exist", path)
@@ -45,12 +45,12 @@ func dropCommand() *cli.Command {
 			}
 			// Look first with a read-only handle, so the write lock is not
 			// held while a person reads the question.
-			id, series, err := findAnalysis(c.Context, path, name)
+			id, name, series, err := findAnalysis(c.Context, path, given)
 			if err != nil {
 				return err
 			}
 			if !c.Bool("yes") {
-				fmt.Fprintf(c.App.ErrWriter, "drop analysis %q (%d series) from %s? [y/N] ", name, series, path)
+				fmt.Fprintf(c.App.ErrWriter, "drop analysis %d (%q, %d series) from %s? [y/N] ", id, name, series, path)
 				if !confirmed(c.App.Reader) {
 					fmt.Fprintln(c.App.ErrWriter)
 					return errors.New("drop: not confirmed; nothing was removed (answer y, or pass --yes)")
@@ -73,37 +73,25 @@ func confirmed(r io.Reader) bool {
 	return a == "y" || a == "yes"
 }
 
-// findAnalysis returns the id and series count of the analysis called name.
-func findAnalysis(ctx context.Context, path, name string) (id, series int, err error) {
+// findAnalysis resolves v (an id, a name or latest: queries.FindAnalysis)
+// and returns the analysis's id, name and series count.
+func findAnalysis(ctx context.Context, path, v string) (id int, name string, series int, err error) {
 	db, err := openRead(ctx, path)
 	if err != nil {
-		return 0, 0, err
+		return 0, "", 0, err
 	}
 	defer db.Close()
-	err = db.QueryRowContext(ctx, `SELECT analysis_id, n_subjects FROM analyses WHERE name = ?`, name).Scan(&id, &series)
-	if errors.Is(err, sql.ErrNoRows) {
-		var names []string
-		rows, qerr := db.QueryContext(ctx, `SELECT name FROM analyses ORDER BY analysis_id`)
-		if qerr != nil {
-			return 0, 0, fmt.Errorf("drop: %w", qerr)
-		}
-		defer rows.Close()
-		for rows.Next() {
-			var n string
-			if err := rows.Scan(&n); err != nil {
-				return 0, 0, fmt.Errorf("drop: %w", err)
-			}
-			names = append(names, fmt.Sprintf("%q", n))
-		}
-		if len(names) == 0 {
-			return 0, 0, fmt.Errorf("drop: %s holds no analyses; nothing to remove", path)
-		}
-		return 0, 0, fmt.Errorf("drop: no analysis named %q in %s; it holds %s", name, path, strings.Join(names, ", "))
+	a, err := queries.FindAnalysis(ctx, db, v)
+	if errors.Is(err, queries.ErrNoAnalysis) {
+		return 0, "", 0, usageError{fmt.Errorf("drop: %s: %w", path, err)}
 	}
 	if err != nil {
-		return 0, 0, fmt.Errorf("drop: %w", err)
+		return 0, "", 0, fmt.Errorf("drop: %w", err)
 	}
-	return id, series, nil
+	if err := db.QueryRowContext(ctx, `SELECT n_subjects FROM analyses WHERE analysis_id = ?`, a.ID).Scan(&series); err != nil {
+		return 0, "", 0, fmt.Errorf("drop: %w", err)
+	}
+	return int(a.ID), a.Name, series, nil
 }
 
 // dropAnalysis deletes every row carrying analysis_id = id, from every table

@@ -25,7 +25,7 @@ func reportCommand() *cli.Command {
 			"filtration_tests_by_group and transitions_by_group, with Benjamini-Hochberg adjusted p-values.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
-			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis (default: the only one in the file)"},
+			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "the HTML `FILE` to write"},
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
 			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "relabellings of every permutation test"},
@@ -75,7 +75,7 @@ func reportCommand() *cli.Command {
 			if err := writeFileAtomic(out, r); err != nil {
 				return err
 			}
-			fmt.Fprintf(c.App.Writer, "report for analysis %q written to %s (%s)\n", r.Analysis.Name, out, plural(len(r.Contrasts), "group contrast"))
+			fmt.Fprintf(c.App.Writer, "report for analysis %d (%q) written to %s (%s)\n", r.Analysis.ID, r.Analysis.Name, out, plural(len(r.Contrasts), "group contrast"))
 			return nil
 		},
 	}

@@ -409,7 +409,7 @@ func TestLoadChoices(t *testing.T) {
 		groups                int
 	}{
 		{"only analysis by default", "", "group", false, false, "", 2},
-		{"unknown analysis", "nope", "group", false, true, `no analysis named "nope"; the warehouse has: figs`, 0},
+		{"unknown analysis", "nope", "group", false, true, `no such analysis "nope"; the warehouse holds: 1 ("figs")`, 0},
 		{"unknown column", "figs", "shift", false, true, `no column "shift"; its covariates are: group, age`, 0},
 		{"missing default column", "figs", "cohort", true, false, "", 1},
 		{"no grouping", "figs", "", false, false, "", 1},
