@@ -35,6 +35,10 @@ type SubjectInput struct {
 	SHA256     string
 	Timepoints int
 	Windows    int
+	// Window and Step are this series' window width and step in its own
+	// time points: --window and --step, or from --window-seconds and
+	// --step-seconds with its TR (windowPoints).
+	Window, Step int
 }
 
 // Exclusion is a series left out under --on-bad-subject skip.
@@ -51,6 +55,9 @@ type fileCheck struct {
 	constant []int
 	tr       float64
 	trSource string
+	window   int
+	step     int
+	warning  string // a TR the file's header states that its sidecar contradicts
 	err      error
 }
 
@@ -187,8 +194,15 @@ func LoadCohort(o Options) (*Cohort, error) {
 		}
 		ch := checks[i]
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, o.Window, o.Step)})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, ch.window, ch.step), Window: ch.window, Step: ch.step})
+		if ch.warning != "" {
+			c.Warnings = append(c.Warnings, ch.warning)
+		}
 	}
+	if err := mixedTR(o, c.Inputs); err != nil {
+		problems = append(problems, err)
+	}
+	c.Warnings = append(c.Warnings, windowDurations(o, c.Inputs)...)
 	if part != nil {
 		have := map[string]bool{}
 		for _, in := range inputs {
@@ -231,12 +245,11 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 	}
 	ch.regions, ch.T, ch.sha = sf.Regions, sf.Series.T, sf.SHA256
 	ch.constant = compute.ConstantRegions(sf.Series)
-	if sf.Series.T < o.Window {
-		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.Window)}
-		return ch
-	}
 	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
 	// the file itself states (a NIfTI header's pixdim[4] with its unit).
+	// A header that contradicts its sidecar is reported and the sidecar's
+	// TR used: the sidecar is written from the scanner's protocol, while a
+	// converted header's pixdim[4] is often 1 or in the wrong unit.
 	switch {
 	case o.TR > 0:
 		ch.tr, ch.trSource = o.TR, "option --tr"
@@ -245,6 +258,8 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		ch.trSource = in.Sidecar
 		if errors.Is(ch.err, ErrNoTR) && sf.TR > 0 {
 			ch.tr, ch.trSource, ch.err = sf.TR, in.Path+" (header pixdim[4])", nil
+		} else if ch.err == nil && sf.TR > 0 && !sameTR(sf.TR, ch.tr) {
+			ch.warning = fmt.Sprintf("%s: the header's pixdim[4] says TR %g s but its sidecar %s says %g s; the sidecar's %g s is used", in.Path, sf.TR, in.Sidecar, ch.tr, ch.tr)
 		}
 	case sf.TR > 0:
 		ch.tr, ch.trSource = sf.TR, in.Path+" (header pixdim[4])"
@@ -252,6 +267,28 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: the header's pixdim[4] has no time unit (xyzt_units); pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	default:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
+	}
+	if ch.err != nil {
+		return ch
+	}
+	if strings.HasSuffix(ch.trSource, "(header pixdim[4])") {
+		if err := CheckTR(ch.tr, "the header's pixdim[4]"); err != nil {
+			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w; pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", err)}
+			return ch
+		}
+	}
+	ch.window, ch.step = windowPoints(o, ch.tr)
+	what := fmt.Sprintf("--window is %d", o.Window)
+	if o.WindowSeconds > 0 {
+		what = fmt.Sprintf("--window-seconds %g at TR %g s is %d", o.WindowSeconds, ch.tr, ch.window)
+		if ch.window < 2 {
+			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("--window-seconds %g at TR %g s gives %d time point(s); a window needs at least 2", o.WindowSeconds, ch.tr, ch.window)}
+			return ch
+		}
+	}
+	if sf.Series.T < ch.window {
+		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, %s; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, what)}
+		return ch
 	}
 	return ch
 }

@@ -273,7 +273,11 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	if b, ok := s.bufs.Get().(*[]float32); ok {
 		buf = *b
 	}
-	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
+	win := s.win
+	if in.Window > 0 { // this series' own width and step (--window-seconds)
+		win.Width, win.Step = in.Window, in.Step
+	}
+	m, err := compute.SlidingCorrelationsInto(buf, y, win)
 	if err != nil {
 		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
@@ -812,10 +816,14 @@ func (b *outBatches) release() {
 
 func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 	sub, ses := in.Subject, in.Session
-	b.inputs.Row(id, sub, ses, in.Rel, in.SHA256, in.Timepoints, len(s.c.Regions), in.TR, in.TRSource)
-	half := float64(s.o.Window-1) / 2
+	window, step := in.Window, in.Step
+	if window == 0 { // a plan written before per-series windows
+		window, step = s.o.Window, s.o.Step
+	}
+	b.inputs.Row(id, sub, ses, in.Rel, in.SHA256, in.Timepoints, len(s.c.Regions), in.TR, in.TRSource, window, step)
+	half := float64(window-1) / 2
 	for wi, l := range r.labels {
-		start := wi * s.o.Step
+		start := wi * step
 		b.seq.Row(id, sub, ses, wi+1, start, (float64(start)+half)*in.TR, l+1, r.dist[wi])
 	}
 	d := r.dyn
@@ -824,7 +832,7 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 		var mw, ms *float64
 		if d.Dwells[st] > 0 {
 			visited++
-			a, c := d.MeanDwell[st], d.MeanDwell[st]*float64(s.o.Step)*in.TR
+			a, c := d.MeanDwell[st], d.MeanDwell[st]*float64(step)*in.TR
 			mw, ms = &a, &c
 		}
 		b.metrics.Row(id, sub, ses, st+1, d.Occupancy[st], d.Dwells[st], mw, ms)

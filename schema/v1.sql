@@ -38,7 +38,9 @@ CREATE TABLE IF NOT EXISTS inputs (
     timepoints  INTEGER NOT NULL, -- rows of the series (T)
     regions     INTEGER NOT NULL, -- columns of the series (p) as read
     tr_seconds  DOUBLE NOT NULL,  -- repetition time used (s)
-    tr_source   VARCHAR NOT NULL  -- where the TR came from: option or sidecar path
+    tr_source   VARCHAR NOT NULL, -- where the TR came from: option or sidecar path
+    window_points INTEGER,        -- sliding-window width used for this series, in its time points (--window, or round(--window-seconds / tr_seconds)); NULL for analyses written before layout 3
+    step_points   INTEGER         -- window step used for this series, in its time points (--step, or round(--step-seconds / tr_seconds)); NULL for analyses written before layout 3
 );
 
 CREATE TABLE IF NOT EXISTS excluded_inputs (

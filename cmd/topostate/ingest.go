@@ -21,11 +21,13 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "cohort `FOLDER`: participants.tsv and sub-<label>[_ses-<label>]_..._timeseries.tsv|csv|npy files (or _bold.nii[.gz] with --atlas)"},
 		&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (created when missing)"},
 		&cli.StringFlag{Name: "analysis", Usage: "`NAME` of this analysis in the warehouse (default analysis-<id>)"},
-		&cli.Float64Flag{Name: "tr", Usage: "repetition time in `SECONDS`; default: RepetitionTime from each file's JSON sidecar, else a NIfTI header's pixdim[4]"},
+		&cli.Float64Flag{Name: "tr", DefaultText: "each file's sidecar", Usage: fmt.Sprintf("repetition time in `SECONDS` (%g-%g) for every file, overriding sidecars; default: RepetitionTime from each file's JSON sidecar, else a NIfTI header's pixdim[4]", ingest.MinTR, ingest.MaxTR)},
 		&cli.StringFlag{Name: "atlas", Usage: "label image `FILE` (.nii or .nii.gz) on the grid of the sub-<label>_..._bold.nii[.gz] images; each label's voxels are averaged into one region"},
 		&cli.StringFlag{Name: "atlas-labels", Usage: "`TSV` of label<TAB>name naming the atlas's regions (default label_<n>); also names the columns of .npy arrays, in ascending label order"},
 		&cli.IntFlag{Name: "window", Value: d.Window, Usage: "sliding-window width in `N` time points"},
 		&cli.IntFlag{Name: "step", Value: d.Step, Usage: "window step in `N` time points"},
+		&cli.Float64Flag{Name: "window-seconds", DefaultText: "use --window", Usage: "sliding-window width in `SECONDS` instead of --window: each series gets round(SECONDS / its TR) time points (for a cohort of mixed TRs; recorded per series in inputs.window_points)"},
+		&cli.Float64Flag{Name: "step-seconds", DefaultText: "use --step", Usage: "window step in `SECONDS` with --window-seconds: round(SECONDS / TR) time points per series, at least 1"},
 		&cli.StringFlag{Name: "taper", Value: d.Taper, Usage: "window weights `MODE`: none (rectangle) or gauss (rectangle convolved with a Gaussian)"},
 		&cli.Float64Flag{Name: "taper-sigma", Value: d.TaperSD, Usage: "Gaussian sigma of the taper, in `N` time points"},
 		&cli.BoolFlag{Name: "detrend", Usage: "remove a linear trend from each region before windowing"},
@@ -59,10 +61,22 @@ func ingestFlags() []cli.Flag {
 	}
 }
 
+// checkWindowFlags refuses a window given both in time points and in
+// seconds (and a step likewise).
+func checkWindowFlags(c *cli.Context) error {
+	if c.IsSet("window") && c.IsSet("window-seconds") {
+		return usagef("give the window once: --window N (time points) or --window-seconds S, not both")
+	}
+	if c.IsSet("step") && c.IsSet("step-seconds") {
+		return usagef("give the step once: --step N (time points) or --step-seconds S, not both")
+	}
+	return nil
+}
+
 func ingestOptions(c *cli.Context) ingest.Options {
 	return ingest.Options{
 		Input: c.String("input"), TR: c.Float64("tr"), Atlas: c.String("atlas"), AtlasLabels: c.String("atlas-labels"),
-		Window: c.Int("window"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
+		Window: c.Int("window"), Step: c.Int("step"), WindowSeconds: c.Float64("window-seconds"), StepSeconds: c.Float64("step-seconds"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
 		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),
 		KRule: c.String("k-rule"), GapReferences: c.Int("gap-references"), GapWindows: c.Int("gap-windows"),
@@ -84,6 +98,9 @@ func ingestCommand() *cli.Command {
 				return usagef("ingest takes no arguments (got %q); name the cohort with --input", c.Args().First())
 			}
 			o := ingestOptions(c)
+			if err := checkWindowFlags(c); err != nil {
+				return err
+			}
 			if err := o.Check(); err != nil {
 				return err
 			}
