@@ -12,22 +12,22 @@ import (
 // Options are every setting of one ingest. They are stored as JSON with the
 // analysis, so the field names are part of the warehouse.
 type Options struct {
-	Input    string  `json:"input"`
-	TR       float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
-	Window   int     `json:"window"`            // time points
-	Step     int     `json:"step"`              // time points
+	Input  string  `json:"input"`
+	TR     float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
+	Window int     `json:"window"`            // time points
+	Step   int     `json:"step"`              // time points
 	// WindowSeconds, when positive, replaces Window: each series gets
 	// round(WindowSeconds / its TR) time points (and StepSeconds, when
 	// positive, replaces Step likewise), so a cohort of mixed TRs has
 	// windows of one duration. The points used are stored per series.
 	WindowSeconds float64 `json:"window_seconds,omitempty"`
 	StepSeconds   float64 `json:"step_seconds,omitempty"`
-	Taper    string  `json:"taper"`             // none | gauss
-	TaperSD  float64 `json:"taper_sigma"`       // Gaussian sigma in time points (gauss)
-	Detrend  bool    `json:"detrend"`
-	SmoothK  int     `json:"smooth_k"` // 0: no cosine smoothing
-	SmoothSD float64 `json:"smooth_sigma"`
-	FisherZ  bool    `json:"fisher_z"`
+	Taper         string  `json:"taper"`       // none | gauss
+	TaperSD       float64 `json:"taper_sigma"` // Gaussian sigma in time points (gauss)
+	Detrend       bool    `json:"detrend"`
+	SmoothK       int     `json:"smooth_k"` // 0: no cosine smoothing
+	SmoothSD      float64 `json:"smooth_sigma"`
+	FisherZ       bool    `json:"fisher_z"`
 
 	States    int `json:"states"` // fixed k; 0: pick by KRule over StatesMin..StatesMax
 	StatesMin int `json:"states_min"`
