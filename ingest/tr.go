@@ -117,8 +117,12 @@ func windowDurations(o Options, inputs []SubjectInput) []string {
 		}
 		if part.dur(hi) > 1.05*part.dur(lo) {
 			out = append(out, fmt.Sprintf("the %s lasts %g s in %s (TR %g s) but %g s in %s (TR %g s) after rounding to whole time points; choose seconds that are a multiple of every TR to make them equal",
-				part.name, part.dur(lo), lo.Rel, lo.TR, part.dur(hi), hi.Rel, hi.TR))
+				part.name, roundMicro(part.dur(lo)), lo.Rel, lo.TR, roundMicro(part.dur(hi)), hi.Rel, hi.TR))
 		}
 	}
 	return out
 }
+
+// roundMicro rounds seconds to microseconds for messages (8 x 0.8 prints
+// 6.4, not 6.4000000000000004).
+func roundMicro(s float64) float64 { return math.Round(s*1e6) / 1e6 }

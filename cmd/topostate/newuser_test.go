@@ -1,10 +1,12 @@
 package main
 
 import (
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
 
+	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/queries"
 )
 
@@ -117,5 +119,127 @@ func TestOneAnalysisRule(t *testing.T) {
 	r = run("query", "--db", baselineDB, "subject_features", "-f", "csv")
 	if r.code != 0 || !strings.Contains(r.stderr, `query: analysis 1 ("baseline"), the only analysis in the warehouse`) {
 		t.Errorf("one analysis: exit %d\n%s", r.code, r.stderr)
+	}
+}
+
+// mixedTRCohort writes a synthetic cohort of 6 subjects (150 time points)
+// whose sidecars say TR 0.8 s for sub-001..003 and 2 s for the others.
+func mixedTRCohort(t *testing.T) string {
+	t.Helper()
+	dir := filepath.Join(t.TempDir(), "mixed")
+	spec := compute.CohortSpec{Subjects: 6, Regions: 5, Timepoints: 150, States: 2, TR: 2, Stickiness: 0.95, Offset: 100, Seed: 11}
+	if _, err := writeSynthetic(dir, spec, map[string]string{"A": "A", "B": "B"}, "score"); err != nil {
+		t.Fatal(err)
+	}
+	sidecars, _ := filepath.Glob(filepath.Join(dir, "sub-*", "func", "*.json"))
+	if len(sidecars) != 6 {
+		t.Fatalf("%d sidecars", len(sidecars))
+	}
+	for _, p := range sidecars {
+		if strings.Contains(p, "sub-001") || strings.Contains(p, "sub-002") || strings.Contains(p, "sub-003") {
+			if err := os.WriteFile(p, []byte(`{"RepetitionTime": 0.8}`), 0o644); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	return dir
+}
+
+// Repetition time: a value in milliseconds is refused with the seconds
+// suggested; a cohort of two TRs is refused with the TRs and their files
+// unless the window is given in seconds, and then every series gets its
+// own window in points, recorded per series; a NIfTI header that
+// contradicts its sidecar is reported and the sidecar's TR used.
+func TestRepetitionTime(t *testing.T) {
+	tmp := t.TempDir()
+	abs, _ := filepath.Abs(goodCohort)
+	run := func(args ...string) result { return runCmd(t, cmdOpts{args: args}) }
+
+	r := run("ingest", "--input", abs, "--db", filepath.Join(tmp, "ms.duckdb"), "--window", "5", "--states", "2", "--tr", "800", "-q")
+	if r.code != exitUsage || !strings.Contains(r.stderr, "did you mean 0.8 (seconds)?") {
+		t.Errorf("--tr 800: exit %d: %s", r.code, r.stderr)
+	}
+	for _, v := range []string{"NaN", "0.01", "-2", "25"} {
+		r := run("ingest", "--input", abs, "--db", filepath.Join(tmp, "bad.duckdb"), "--window", "5", "--tr", v, "-q")
+		if r.code != exitUsage || !strings.Contains(r.stderr, "--tr") || strings.Contains(r.stderr, "did you mean") {
+			t.Errorf("--tr %s: exit %d: %s", v, r.code, r.stderr)
+		}
+	}
+	// A sidecar in milliseconds: refused naming the file.
+	msCohort := filepath.Join(tmp, "mscohort")
+	copyTree(t, abs, msCohort)
+	side := filepath.Join(msCohort, "sub-02", "func", "sub-02_task-rest_timeseries.json")
+	if err := os.WriteFile(side, []byte(`{"RepetitionTime": 2000}`), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	r = run("ingest", "--input", msCohort, "--db", filepath.Join(tmp, "ms2.duckdb"), "--window", "5", "--states", "2", "-q")
+	if r.code == 0 || !strings.Contains(r.stderr, side) || !strings.Contains(r.stderr, "did you mean 2 (seconds)?") {
+		t.Errorf("sidecar 2000: exit %d: %s", r.code, r.stderr)
+	}
+
+	// Two TRs, window in time points: refused, nothing written.
+	mixed := mixedTRCohort(t)
+	db := filepath.Join(tmp, "mixed.duckdb")
+	r = run("ingest", "--input", mixed, "--db", db, "--window", "20", "--states", "2", "-q")
+	if r.code != exitUsage || !strings.Contains(r.stderr, "2 different repetition times") ||
+		!strings.Contains(r.stderr, "TR 0.8 s: 3 series: sub-001/func/sub-001_task-rest_timeseries.tsv") ||
+		!strings.Contains(r.stderr, "TR 2 s: 3 series: sub-004/") || !strings.Contains(r.stderr, "--window-seconds") {
+		t.Errorf("mixed TR: exit %d: %s", r.code, r.stderr)
+	}
+	if _, err := os.Stat(db); err == nil {
+		t.Errorf("the refused ingest left %s", db)
+	}
+	// Windows in seconds: 16 s is 20 points at 0.8 s and 8 at 2 s; a 4 s
+	// step is 5 and 2 points.
+	r = run("ingest", "--input", mixed, "--db", db, "--window-seconds", "16", "--step-seconds", "4", "--states", "2", "-q")
+	if r.code != 0 || strings.Contains(r.stdout, "warning") {
+		t.Fatalf("--window-seconds: exit %d\n%s\n%s", r.code, r.stdout, r.stderr)
+	}
+	got := querySQL(t, db, `SELECT string_agg(DISTINCT tr_seconds || ':' || window_points || '/' || step_points, ' ' ORDER BY tr_seconds || ':' || window_points || '/' || step_points) FROM inputs`)
+	if got != "0.8:20/5 2.0:8/2" {
+		t.Errorf("per-series windows %q, want 0.8:20/5 2.0:8/2", got)
+	}
+	// Dwell in seconds = mean dwell in windows x step points x TR, per
+	// series (docs/methods.md, the dwell-time definition); window centres
+	// at (start + (window-1)/2) x TR.
+	bad := querySQL(t, db, `SELECT count(*) FROM state_metrics m JOIN inputs i USING (analysis_id, subject_id, session_id)
+		WHERE abs(m.mean_dwell_seconds - m.mean_dwell_windows * i.step_points * i.tr_seconds) > 1e-9`)
+	bad2 := querySQL(t, db, `SELECT count(*) FROM state_sequence s JOIN inputs i USING (analysis_id, subject_id, session_id)
+		WHERE abs(s.center_seconds - (s.window_start + (i.window_points - 1) / 2.0) * i.tr_seconds) > 1e-9
+		   OR s.window_start <> (s.window_index - 1) * i.step_points`)
+	if bad != "0" || bad2 != "0" {
+		t.Errorf("%s dwell rows and %s window rows disagree with the per-series window", bad, bad2)
+	}
+	if p := querySQL(t, db, `SELECT parameters->>'window_seconds' FROM analyses`); p != "16" {
+		t.Errorf("parameters window_seconds %q", p)
+	}
+	// Rounding that leaves steps of different lengths is reported.
+	r = run("ingest", "--input", mixed, "--db", db, "--window-seconds", "16", "--step-seconds", "2", "--states", "2", "-q", "--analysis", "step2")
+	if r.code != 0 || !strings.Contains(r.stdout, "warning          the step lasts 2 s in sub-004/func/sub-004_task-rest_timeseries.tsv (TR 2 s) but 2.4 s in sub-001") {
+		t.Errorf("uneven steps: exit %d\n%s\n%s", r.code, r.stdout, r.stderr)
+	}
+	r = run("ingest", "--input", mixed, "--db", db, "--window-seconds", "16", "--window", "8", "-q")
+	if r.code != exitUsage || !strings.Contains(r.stderr, "not both") {
+		t.Errorf("--window and --window-seconds: exit %d: %s", r.code, r.stderr)
+	}
+
+	// A NIfTI header (pixdim[4] 2 s) contradicted by its sidecar (2.5 s).
+	nifti := filepath.Join(tmp, "nifti")
+	niftiAbs, _ := filepath.Abs(filepath.Join("..", "..", "testdata", "nifti"))
+	copyTree(t, filepath.Join(niftiAbs, "cohort"), nifti)
+	images, _ := filepath.Glob(filepath.Join(nifti, "sub-*", "func", "*_bold.nii.gz"))
+	for _, img := range images {
+		if err := os.WriteFile(strings.TrimSuffix(img, ".nii.gz")+".json", []byte(`{"RepetitionTime": 2.5}`), 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	ndb := filepath.Join(tmp, "nifti.duckdb")
+	r = run("ingest", "--input", nifti, "--atlas", filepath.Join(niftiAbs, "atlas.nii.gz"), "--db", ndb, "--window", "5", "--states", "2", "-q")
+	want := "sub-01_task-rest_bold.nii.gz: the header's pixdim[4] says TR 2 s but its sidecar " + filepath.Join(nifti, "sub-01", "func", "sub-01_task-rest_bold.json") + " says 2.5 s; the sidecar's 2.5 s is used"
+	if r.code != 0 || !strings.Contains(r.stdout, want) {
+		t.Errorf("header vs sidecar: exit %d\n%s\n%s", r.code, r.stdout, r.stderr)
+	}
+	if got := querySQL(t, ndb, `SELECT string_agg(DISTINCT tr_seconds::VARCHAR, ',') FROM inputs`); got != "2.5" {
+		t.Errorf("TR used %q, want the sidecar's 2.5", got)
 	}
 }
