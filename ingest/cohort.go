@@ -97,6 +97,9 @@ func LoadCohort(o Options) (*Cohort, error) {
 		}
 	}
 	c.Participants = part
+	if part != nil {
+		c.Warnings = append(c.Warnings, part.Warnings...)
+	}
 
 	checks := make([]fileCheck, len(inputs))
 	workers := o.Workers

@@ -7,16 +7,22 @@ import (
 	"io/fs"
 	"math"
 	"os"
+	"path/filepath"
 	"strconv"
 	"strings"
+	"time"
 )
 
 // Covariate is one column of participants.tsv with the type inferred from
 // its values: BIGINT when every value is an integer, DOUBLE when every value
-// is a number, VARCHAR otherwise. "n/a" and empty cells are NULL (BIDS).
+// is a number, BOOLEAN when every value is true or false (any case), DATE
+// when every value is an ISO 8601 date (YYYY-MM-DD), VARCHAR otherwise.
+// "n/a" and empty cells are NULL (BIDS).
 type Covariate struct {
 	Name string
-	Type string // BIGINT, DOUBLE or VARCHAR
+	Type string // BIGINT, DOUBLE, BOOLEAN, DATE or VARCHAR
+	// Doc is the column's entry in participants.json (zero without one).
+	Doc CovariateDoc
 }
 
 // Participants is the parsed participants sheet.
@@ -24,8 +30,12 @@ type Participants struct {
 	Path       string
 	Covariates []Covariate
 	IDs        []string         // participant_id in file order, normalised to sub-<label>
-	Values     map[string][]any // per ID: one value per covariate (int64, float64, string or nil)
+	Values     map[string][]any // per ID: one value per covariate (int64, float64, bool, time.Time, string or nil)
 	Lines      map[string]int   // per ID: its line in the file
+	// DocPath is the participants.json read beside the sheet ("" when
+	// none); Warnings are its entries for columns the sheet lacks.
+	DocPath  string
+	Warnings []string
 }
 
 // ReadParticipants reads a participants.tsv (or .csv) file.
@@ -38,7 +48,26 @@ func ReadParticipants(path string) (*Participants, error) {
 		return nil, err
 	}
 	defer f.Close()
-	return ParseParticipants(path, f, Delimiter(path))
+	p, err := ParseParticipants(path, f, Delimiter(path))
+	if err != nil {
+		return nil, err
+	}
+	names := make([]string, len(p.Covariates))
+	for i, c := range p.Covariates {
+		names[i] = c.Name
+	}
+	docs, warnings, err := readParticipantsJSON(path, names)
+	if err != nil {
+		return nil, err
+	}
+	if docs != nil || warnings != nil {
+		p.DocPath = filepath.Join(filepath.Dir(path), "participants.json")
+	}
+	for i, c := range p.Covariates {
+		p.Covariates[i].Doc = docs[c.Name]
+	}
+	p.Warnings = warnings
+	return p, nil
 }
 
 // NormaliseSubject returns the participant label with its "sub-" prefix,
@@ -148,6 +177,10 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 				vals[c], _ = strconv.ParseInt(s, 10, 64)
 			case "DOUBLE":
 				vals[c], _ = strconv.ParseFloat(s, 64)
+			case "BOOLEAN":
+				vals[c] = strings.EqualFold(s, "true")
+			case "DATE":
+				vals[c], _ = time.Parse(time.DateOnly, s)
 			default:
 				vals[c] = s
 			}
@@ -158,13 +191,19 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 }
 
 func inferType(ids []string, raw map[string][]string, c int) string {
-	isInt, isNum, seen := true, true, false
+	isInt, isNum, isBool, isDate, seen := true, true, true, true, false
 	for _, id := range ids {
 		s := raw[id][c]
 		if isNull(s) {
 			continue
 		}
 		seen = true
+		if !strings.EqualFold(s, "true") && !strings.EqualFold(s, "false") {
+			isBool = false
+		}
+		if _, err := time.Parse(time.DateOnly, s); err != nil || len(s) != len(time.DateOnly) {
+			isDate = false
+		}
 		if _, err := strconv.ParseInt(s, 10, 64); err != nil {
 			isInt = false
 		}
@@ -179,6 +218,10 @@ func inferType(ids []string, raw map[string][]string, c int) string {
 		return "BIGINT"
 	case isNum:
 		return "DOUBLE"
+	case isBool:
+		return "BOOLEAN"
+	case isDate:
+		return "DATE"
 	}
 	return "VARCHAR"
 }

@@ -5,6 +5,7 @@ import (
 	"database/sql"
 	"encoding/csv"
 	"fmt"
+	"maps"
 	"os"
 	"path/filepath"
 	"slices"
@@ -46,6 +47,7 @@ type codebookFacts struct {
 	sessions        []string
 	text            map[string][]string // text covariate -> distinct values (nil: more than maxListed)
 	textCount       map[string]int
+	covariates      map[string]covariateDoc // participants.json entries
 }
 
 func loadCodebookFacts(ctx context.Context, conn *sql.Conn, docs []schema.ColumnDoc, analysis *int64) (*codebookFacts, error) {
@@ -62,6 +64,9 @@ func loadCodebookFacts(ctx context.Context, conn *sql.Conn, docs []schema.Column
 		return nil, err
 	}
 	f.states, f.regions, f.fisherZ = int(k.Int64), int(p.Int64), z.Bool
+	if f.covariates, err = covariateDocs(ctx, conn, analysis); err != nil {
+		return nil, err
+	}
 	rows, err := conn.QueryContext(ctx, `SELECT DISTINCT session_id FROM inputs
 		WHERE session_id <> '' AND (?::BIGINT IS NULL OR analysis_id = ?) ORDER BY 1 LIMIT `+strconv.Itoa(maxListed+1), id, id)
 	if err != nil {
@@ -153,7 +158,22 @@ func (f *codebookFacts) entry(d schema.ColumnDoc) []string {
 	switch {
 	case covariate:
 		unit = "as recorded in participants.tsv"
-		if typ == "text" {
+		if d.Unit != "" {
+			unit = d.Unit
+		}
+		switch {
+		case len(f.covariates[d.Column].levels) > 0:
+			// participants.json's Levels: the codes and their meanings.
+			lv := f.covariates[d.Column].levels
+			codes := slices.Sorted(maps.Keys(lv))
+			pairs := make([]string, len(codes))
+			for i, c := range codes {
+				pairs[i] = escapeValue(c + "=" + lv[c])
+			}
+			allowed, labels = valueList(codes), strings.Join(pairs, ";")
+		case typ == "boolean":
+			allowed = "true;false"
+		case typ == "text":
 			if n := f.textCount[d.Column]; n > maxListed {
 				label += fmt.Sprintf(" (%d distinct values)", n)
 			} else {

@@ -57,6 +57,15 @@ CREATE TABLE IF NOT EXISTS subjects (
     -- one further column per participants.tsv covariate is added at ingest
 );
 
+CREATE TABLE IF NOT EXISTS covariates (
+    analysis_id INTEGER NOT NULL, -- analysis whose participants sheet had the column
+    column_name VARCHAR NOT NULL, -- covariate column of the subjects table
+    data_type   VARCHAR NOT NULL, -- type read from its values: BIGINT, DOUBLE, BOOLEAN (true/false), DATE (YYYY-MM-DD) or VARCHAR
+    description VARCHAR,          -- Description (else LongName) from participants.json; NULL when it has none
+    units       VARCHAR,          -- Units from participants.json; NULL when it has none
+    levels      VARCHAR           -- Levels from participants.json as a JSON object of value -> meaning; NULL when it has none
+);
+
 CREATE TABLE IF NOT EXISTS regions (
     analysis_id  INTEGER NOT NULL, -- analysis
     region_index INTEGER,          -- 1-based node number in the networks; NULL when dropped
