@@ -243,3 +243,80 @@ func TestRepetitionTime(t *testing.T) {
 		t.Errorf("TR used %q, want the sidecar's 2.5", got)
 	}
 }
+
+// participants.json's Description, Units and Levels reach export's data
+// dictionary and codebook; true/false columns are BOOLEAN and ISO dates
+// DATE (BIDS: participants.json describes the columns of participants.tsv).
+func TestParticipantsJSON(t *testing.T) {
+	tmp := t.TempDir()
+	abs, _ := filepath.Abs(goodCohort)
+	cohort := filepath.Join(tmp, "cohort")
+	copyTree(t, abs, cohort)
+	sheet := "participant_id\tgroup\tage\tsmoker\tscan_date\n" +
+		"sub-01\tday\t34\ttrue\t2024-03-01\n" +
+		"sub-02\tnight\t41\tFALSE\tn/a\n" +
+		"sub-03\tday\t29\tfalse\t2024-03-09\n"
+	if err := os.WriteFile(filepath.Join(cohort, "participants.tsv"), []byte(sheet), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	docs := `{
+  "age": {"Description": "age at the scan", "Units": "years"},
+  "group": {"LongName": "shift", "Description": "work shift", "Levels": {"day": "day shift", "night": "night shift"}},
+  "smoker": {"Description": "smokes daily"},
+  "height": {"Description": "a column the sheet lacks"}
+}`
+	pj := filepath.Join(cohort, "participants.json")
+	if err := os.WriteFile(pj, []byte(docs), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	db := filepath.Join(tmp, "w.duckdb")
+	r := runCmd(t, cmdOpts{args: []string{"ingest", "--input", cohort, "--db", db, "--window", "5", "--states", "2", "-q"}})
+	if r.code != 0 || !strings.Contains(r.stdout, `participants.json describes column "height", which participants.tsv does not have`) {
+		t.Fatalf("ingest: exit %d\n%s\n%s", r.code, r.stdout, r.stderr)
+	}
+	types := querySQL(t, db, `SELECT string_agg(column_name || ' ' || data_type, ', ' ORDER BY ordinal_position) FROM information_schema.columns WHERE table_name = 'subjects'`)
+	if types != "analysis_id INTEGER, subject_id VARCHAR, group VARCHAR, age BIGINT, smoker BOOLEAN, scan_date DATE" {
+		t.Errorf("subjects types: %s", types)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM subjects WHERE smoker AND scan_date = DATE '2024-03-01'`); got != "1" {
+		t.Errorf("BOOLEAN/DATE values: %s rows", got)
+	}
+	out := filepath.Join(tmp, "export")
+	if r := runCmd(t, cmdOpts{args: []string{"export", "--db", db, "--out", out, "-f", "csv", "--tables", "subjects"}}); r.code != 0 {
+		t.Fatalf("export: exit %d: %s", r.code, r.stderr)
+	}
+	dict, _ := os.ReadFile(filepath.Join(out, "data_dictionary.csv"))
+	book, _ := os.ReadFile(filepath.Join(out, "codebook.csv"))
+	subj, _ := os.ReadFile(filepath.Join(out, "subjects.csv"))
+	for _, want := range []string{
+		"subjects,age,BIGINT,true,age at the scan (participants.json; n/a and empty cells are NULL),years\n",
+		"subjects,smoker,BOOLEAN,true,smokes daily (participants.json;",
+		"subjects,scan_date,DATE,true,covariate from participants.tsv",
+	} {
+		if !strings.Contains(string(dict), want) {
+			t.Errorf("data dictionary lacks %q:\n%s", want, dict)
+		}
+	}
+	for _, want := range []string{
+		"subjects,group,work shift (participants.json; n/a and empty cells are NULL),text,VARCHAR,as recorded in participants.tsv,day;night,day=day shift;night=night shift,",
+		"subjects,age,age at the scan (participants.json; n/a and empty cells are NULL),integer,BIGINT,years,",
+		"subjects,smoker,smokes daily (participants.json; n/a and empty cells are NULL),boolean,BOOLEAN,as recorded in participants.tsv,true;false,",
+		"subjects,scan_date,covariate from participants.tsv (n/a and empty cells are NULL),datetime,DATE,",
+	} {
+		if !strings.Contains(string(book), want) {
+			t.Errorf("codebook lacks %q:\n%s", want, book)
+		}
+	}
+	if !strings.Contains(string(subj), "sub-01,day,34,true,2024-03-01") || !strings.Contains(string(subj), "sub-02,night,41,false,\n") {
+		t.Errorf("subjects.csv:\n%s", subj)
+	}
+	// A participants.json that is not valid JSON: refused, naming the file
+	// and the line.
+	if err := os.WriteFile(pj, []byte("{\n  \"age\": {\"Units\": \"years\",}\n}"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	r = runCmd(t, cmdOpts{args: []string{"ingest", "--input", cohort, "--db", filepath.Join(tmp, "bad.duckdb"), "--window", "5", "--states", "2", "-q"}})
+	if r.code == 0 || !strings.Contains(r.stderr, pj+":2") {
+		t.Errorf("bad participants.json: exit %d: %s", r.code, r.stderr)
+	}
+}
