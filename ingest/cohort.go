@@ -139,7 +139,11 @@ func LoadCohort(o Options) (*Cohort, error) {
 		seen[key] = i
 		if part != nil {
 			if _, ok := part.Lines[in.Subject]; !ok {
-				bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: add a row for %s to %s", ErrNoParticipant, in.Subject, part.Path)})
+				hint := ""
+				if near := similarID(in.Subject, part.IDs); near != "" {
+					hint = fmt.Sprintf(" (did you mean %s, which it has? rename the file or the row so the labels match)", near)
+				}
+				bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: add a row for %s to %s%s", ErrNoParticipant, in.Subject, part.Path, hint)})
 			}
 		}
 	}
@@ -185,6 +189,10 @@ func LoadCohort(o Options) (*Cohort, error) {
 	}
 	if ref >= 0 && len(c.Keep) < 3 {
 		problems = append(problems, fmt.Errorf("ingest: only %d region(s) left after dropping constant ones; a network needs at least 3", len(c.Keep)))
+	}
+	// Every series shorter than the window: one line, not one per file.
+	if tooShort := tooShortAll(o, inputs, checks, bad); tooShort != nil {
+		return nil, append(problems, tooShort)
 	}
 	for i, in := range inputs {
 		if bad[i] != nil {
@@ -341,4 +349,54 @@ func orNone(ses string) string {
 func fileExists(p string) bool {
 	_, err := os.Stat(p)
 	return err == nil
+}
+
+// tooShortAll returns one error summarising the cohort when every series
+// (more than one) is too short for the window, and nil otherwise.
+func tooShortAll(o Options, inputs []Input, checks []fileCheck, bad []error) error {
+	if len(inputs) < 2 {
+		return nil
+	}
+	longest := 0
+	for i := range inputs {
+		if !errors.Is(bad[i], ErrTooShort) {
+			return nil
+		}
+		if checks[i].T > checks[longest].T {
+			longest = i
+		}
+	}
+	if o.WindowSeconds > 0 {
+		return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than --window-seconds %g; the longest, %s, has %d time points (TR %g s): use a shorter window",
+			ErrTooShort, len(inputs), o.WindowSeconds, inputs[longest].Rel, checks[longest].T, checks[longest].tr)}
+	}
+	return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than --window %d; the longest, %s, has %d time points: use --window %d or less",
+		ErrTooShort, len(inputs), o.Window, inputs[longest].Rel, checks[longest].T, checks[longest].T)}
+}
+
+// similarID returns the id of ids whose label equals id's up to leading
+// zeros of numbers and letter case (sub-4 and sub-04, sub-ab and sub-AB),
+// or "" when none does.
+func similarID(id string, ids []string) string {
+	key := func(s string) string {
+		s = strings.ToLower(strings.TrimPrefix(s, "sub-"))
+		var b strings.Builder
+		for i := 0; i < len(s); i++ {
+			if s[i] == '0' && (i == 0 || s[i-1] < '0' || s[i-1] > '9') && i+1 < len(s) && s[i+1] >= '0' && s[i+1] <= '9' {
+				// a leading zero of a number: skip it and any that follow
+				for i+1 < len(s) && s[i] == '0' && s[i+1] >= '0' && s[i+1] <= '9' {
+					i++
+				}
+			}
+			b.WriteByte(s[i])
+		}
+		return b.String()
+	}
+	k := key(id)
+	for _, other := range ids {
+		if other != id && key(other) == k {
+			return other
+		}
+	}
+	return ""
 }

@@ -97,6 +97,13 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 		cols[i] = strings.TrimSpace(cols[i])
 	}
 	if cols[0] != "participant_id" {
+		// The right sheet with the other separator: say so.
+		if delim == '\t' && len(cols) == 1 && strings.HasPrefix(cols[0], "participant_id,") {
+			return nil, perr(path, 1, 0, "the header has commas but no tabs: this sheet is comma-separated, and a .tsv file is split at tabs; save it tab-separated (BIDS) or name it participants.csv")
+		}
+		if delim == ',' && len(cols) == 1 && strings.HasPrefix(cols[0], "participant_id\t") {
+			return nil, perr(path, 1, 0, "the header has tabs but no commas: this sheet is tab-separated, and a .csv file is split at commas; name it participants.tsv")
+		}
 		for i, c := range cols {
 			if c == "participant_id" {
 				return nil, perr(path, 1, i+1, "participant_id must be the first column (BIDS); move it to the front")

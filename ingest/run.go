@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"path/filepath"
 	"runtime"
 	"slices"
 	"sort"
@@ -196,8 +197,14 @@ func (s *stages) recordAnalysis(ctx context.Context, w *schema.Writer) error {
 	if err != nil {
 		return fmt.Errorf("ingest: %w", err)
 	}
+	// input_dir is absolute, so the row still names the folder when the
+	// warehouse is read from another working directory.
+	inputDir, err := filepath.Abs(s.o.Input)
+	if err != nil {
+		inputDir = s.o.Input
+	}
 	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
-		w.ID, w.Name, time.Now().UTC(), Version, string(params), s.o.Input, len(s.c.Inputs), len(s.c.Keep), s.k, s.totalWindows, s.fitRows); err != nil {
+		w.ID, w.Name, time.Now().UTC(), Version, string(params), inputDir, len(s.c.Inputs), len(s.c.Keep), s.k, s.totalWindows, s.fitRows); err != nil {
 		return fmt.Errorf("ingest: record analysis: %w", err)
 	}
 	return nil

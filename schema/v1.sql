@@ -14,7 +14,7 @@ CREATE TABLE IF NOT EXISTS analyses (
     created_at   TIMESTAMP NOT NULL,  -- when the ingest committed (UTC)
     tool_version VARCHAR NOT NULL,    -- topostate version that wrote it
     parameters   JSON NOT NULL,       -- every ingest option, as JSON
-    input_dir    VARCHAR NOT NULL,    -- cohort folder read
+    input_dir    VARCHAR NOT NULL,    -- cohort folder read, as an absolute path
     n_subjects   INTEGER NOT NULL,    -- series files analysed (subject x session)
     n_regions    INTEGER NOT NULL,    -- regions per network after any drop
     n_states     INTEGER NOT NULL,    -- number of connectivity states k

@@ -23,7 +23,7 @@ func exportCommand() *cli.Command {
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "`FOLDER` for the files (created when missing)"},
-			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "parquet", Usage: "parquet or csv"},
+			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "parquet", Usage: "file `FORMAT`: parquet or csv"},
 			&cli.StringSliceFlag{Name: "tables", Usage: "only these `TABLES` (comma-separated or repeated; default all)"},
 			analysisFlag("only its rows; left out: every analysis, each row carrying its analysis_id"),
 		},

@@ -21,8 +21,8 @@ func plotCommand() *cli.Command {
 			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.StringFlag{Name: "out", Usage: "`FOLDER` for the image files (created when missing)"},
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
-			&cli.StringFlag{Name: "format", Value: "png,svg", Usage: "image formats, comma-separated: png, svg"},
-			&cli.IntFlag{Name: "dpi", Value: 144, Usage: "resolution of the PNG files, dots per inch"},
+			&cli.StringFlag{Name: "format", Value: "png,svg", Usage: "image `FORMATS`, comma-separated: png, svg"},
+			&cli.IntFlag{Name: "dpi", Value: 144, Usage: "resolution of the PNG files in `DPI` (dots per inch)"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {

@@ -30,7 +30,7 @@ func queryCommand() *cli.Command {
 			&cli.GenericFlag{Name: "param", Value: &keyValues{}, Usage: "parameter `KEY=VALUE` (repeatable; the value is taken as it is, commas included)"},
 			&cli.StringFlag{Name: "sql", Usage: "run this SQL `TEXT` instead of a bundled query"},
 			&cli.StringFlag{Name: "file", Usage: "run the SQL in this `PATH` (a header as in the bundled files declares parameters)"},
-			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "table", Usage: "output: table, csv, tsv, json or parquet"},
+			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "table", Usage: "output `FORMAT`: table, csv, tsv, json or parquet"},
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "write the result to `PATH` (default: standard output; required for parquet)"},
 			&cli.BoolFlag{Name: "list", Usage: "list the bundled queries, the SQL functions and the macros"},
 			&cli.StringFlag{Name: "show", Usage: "print the SQL of the bundled query `NAME`"},

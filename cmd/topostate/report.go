@@ -28,8 +28,8 @@ func reportCommand() *cli.Command {
 			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "the HTML `FILE` to write"},
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
-			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "relabellings of every permutation test"},
-			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation seed"},
+			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "`N` relabellings of every permutation test"},
+			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation `SEED`"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {
