@@ -61,6 +61,15 @@ func dropCommand() *cli.Command {
 				return err
 			}
 			fmt.Fprintf(c.App.Writer, "dropped analysis %q (id %d): %d rows from %d tables of %s\n", name, id, rows, tables, path)
+			// DuckDB does not shrink a file when rows are deleted: the
+			// checkpoint frees their blocks for later ingests, and VACUUM
+			// does not return them to the file system; a copy does.
+			if st, err := os.Stat(path); err == nil {
+				fmt.Fprintf(c.App.Writer, "the file keeps its size (%s): DuckDB reuses the freed space for later ingests but does not shrink the file;\n"+
+					"to shrink it, copy the warehouse into a new file with DuckDB's COPY FROM DATABASE:\n"+
+					"  duckdb -c \"ATTACH %s AS old (READ_ONLY); ATTACH %s AS new; COPY FROM DATABASE old TO new\"\n",
+					byteSize(st.Size()), sqlString(path), sqlString(path+".compact.duckdb"))
+			}
 			return nil
 		},
 	}
@@ -170,3 +179,14 @@ func upgradeIfOld(c *cli.Context, path string) error {
 	_, err = upgradeFile(c, path)
 	return err
 }
+
+// byteSize writes a file size in MiB (or bytes when small).
+func byteSize(n int64) string {
+	if n < 1<<20 {
+		return fmt.Sprintf("%d bytes", n)
+	}
+	return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20))
+}
+
+// sqlString quotes s as an SQL string literal.
+func sqlString(s string) string { return "'" + strings.ReplaceAll(s, "'", "''") + "'" }
