@@ -3,6 +3,7 @@ package main
 import (
 	"os"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 
@@ -318,5 +319,82 @@ func TestParticipantsJSON(t *testing.T) {
 	r = runCmd(t, cmdOpts{args: []string{"ingest", "--input", cohort, "--db", filepath.Join(tmp, "bad.duckdb"), "--window", "5", "--states", "2", "-q"}})
 	if r.code == 0 || !strings.Contains(r.stderr, pj+":2") {
 		t.Errorf("bad participants.json: exit %d: %s", r.code, r.stderr)
+	}
+}
+
+// README's options table and the commands' --help agree: every option the
+// table names exists, a default the table states as plain values is the
+// one --help shows, and no help placeholder is the bare word "value".
+func TestReadmeOptionsMatchHelp(t *testing.T) {
+	b, err := os.ReadFile(filepath.Join("..", "..", "README.md"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	readme := string(b)
+	i := strings.Index(readme, "The main ingest options:")
+	if i < 0 {
+		t.Fatal("README has no ingest options table")
+	}
+	table := readme[i:]
+	table = table[:strings.Index(table, "\n\n## ")]
+	_, help, _ := topostate("ingest", "--help")
+	// defaults maps each option of --help to its shown default.
+	defaults := map[string]string{}
+	flagRe := regexp.MustCompile(`^\s+(--[a-z0-9-]+)(?:[ ,].*?)?\(default: ([^)]*)\)\s*$`)
+	for _, line := range strings.Split(help, "\n") {
+		if m := flagRe.FindStringSubmatch(line); m != nil {
+			defaults[m[1]] = strings.Trim(m[2], `"`)
+		}
+	}
+	optRe := regexp.MustCompile("--[a-z0-9-]+")
+	rows := 0
+	for _, line := range strings.Split(table, "\n") {
+		if !strings.HasPrefix(line, "| `--") {
+			continue
+		}
+		rows++
+		cells := strings.Split(line, " | ")
+		opts := optRe.FindAllString(cells[0], -1)
+		for _, o := range opts {
+			if !strings.Contains(help, "   "+o+" ") {
+				t.Errorf("README lists %s, which 'topostate ingest --help' does not have", o)
+			}
+		}
+		vals := strings.Split(strings.TrimSpace(cells[1]), ", ")
+		if len(vals) != len(opts) {
+			continue // a descriptive default ("chord elbow over 2..10", "off")
+		}
+		for k, o := range opts {
+			want, shown := defaults[o]
+			if !shown || strings.ContainsAny(vals[k], " `(") {
+				continue
+			}
+			if got := map[string]string{"off": "false", "on": "true"}[vals[k]]; got != "" {
+				vals[k] = got
+			}
+			if vals[k] != want {
+				t.Errorf("README says %s defaults to %s; --help says %s", o, vals[k], want)
+			}
+		}
+	}
+	if rows < 15 {
+		t.Errorf("%d option rows read from README", rows)
+	}
+	// Commands in README's table exist; no help shows a bare "value".
+	for _, args := range [][]string{{"demo"}, {"ingest"}, {"stage", "plan"}, {"stage", "sample"}, {"stage", "fit"}, {"stage", "compute"},
+		{"stage", "merge"}, {"simulate"}, {"info"}, {"drop"}, {"upgrade"}, {"query"}, {"export"}, {"plot"}, {"report"}} {
+		code, out, _ := topostate(append(args, "--help")...)
+		if code != 0 || !strings.Contains(readme, "`topostate "+args[0]) {
+			t.Errorf("%v: exit %d, or not in README's commands table", args, code)
+		}
+		if regexp.MustCompile(`--[a-z-]+ value\b`).MatchString(out) {
+			t.Errorf("%v --help has a bare 'value' placeholder:\n%s", args, out)
+		}
+		if strings.Contains(out, "--analysis") && !strings.Contains(out, "--analysis ID") && args[0] != "ingest" && args[0] != "stage" {
+			t.Errorf("%v: --analysis is not shown as ID", args)
+		}
+	}
+	if strings.Contains(help, "--tr SECONDS") && strings.Contains(help, "(default: 0)") && regexp.MustCompile(`--tr SECONDS.*\(default: 0\)`).MatchString(help) {
+		t.Error("--tr shows (default: 0)")
 	}
 }
