@@ -398,3 +398,85 @@ func TestReadmeOptionsMatchHelp(t *testing.T) {
 		t.Error("--tr shows (default: 0)")
 	}
 }
+
+// The smaller things a new user meets: one summary line when the window
+// exceeds every series; a comma-separated participants.tsv named as such;
+// "did you mean sub-4" for a file of sub-004; input_dir stored absolute;
+// drop says the file keeps its size and how to shrink it.
+func TestNewUserMessages(t *testing.T) {
+	tmp := t.TempDir()
+	abs, _ := filepath.Abs(goodCohort)
+	run := func(args ...string) result { return runCmd(t, cmdOpts{args: args}) }
+
+	r := run("ingest", "--input", abs, "--db", filepath.Join(tmp, "a.duckdb"), "--window", "50", "-q")
+	if r.code != exitUsage || strings.Count(r.stderr, "\n  - ") != 1 ||
+		!strings.Contains(r.stderr, "every one of the 3 series is shorter than --window 50") || !strings.Contains(r.stderr, "use --window 12 or less") {
+		t.Errorf("window too long: exit %d: %s", r.code, r.stderr)
+	}
+
+	comma := filepath.Join(tmp, "comma")
+	copyTree(t, abs, comma)
+	sheet, _ := os.ReadFile(filepath.Join(comma, "participants.tsv"))
+	os.WriteFile(filepath.Join(comma, "participants.tsv"), []byte(strings.ReplaceAll(string(sheet), "\t", ",")), 0o644)
+	r = run("ingest", "--input", comma, "--db", filepath.Join(tmp, "b.duckdb"), "--window", "5", "-q")
+	if r.code == 0 || !strings.Contains(r.stderr, "participants.tsv:1: the header has commas but no tabs: this sheet is comma-separated") {
+		t.Errorf("comma sheet: exit %d: %s", r.code, r.stderr)
+	}
+
+	short := filepath.Join(tmp, "short")
+	copyTree(t, abs, short)
+	os.WriteFile(filepath.Join(short, "participants.tsv"), []byte(strings.Replace(string(sheet), "sub-02\t", "sub-2\t", 1)), 0o644)
+	r = run("ingest", "--input", short, "--db", filepath.Join(tmp, "c.duckdb"), "--window", "5", "-q")
+	if r.code == 0 || !strings.Contains(r.stderr, "add a row for sub-02") || !strings.Contains(r.stderr, "did you mean sub-2, which it has?") {
+		t.Errorf("sub-2: exit %d: %s", r.code, r.stderr)
+	}
+
+	// input_dir is absolute even when --input is relative.
+	db := filepath.Join(tmp, "d.duckdb")
+	cmd := cmdOpts{args: []string{"ingest", "--input", goodCohort, "--db", db, "--window", "5", "--states", "2", "-q"}}
+	if r := runCmd(t, cmd); r.code != 0 {
+		t.Fatalf("relative ingest: exit %d: %s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT input_dir FROM analyses`); got != abs {
+		t.Errorf("input_dir %q, want %q", got, abs)
+	}
+
+	r = run("drop", "--db", db, "--analysis", "latest", "--yes")
+	if r.code != 0 || !strings.Contains(r.stdout, "the file keeps its size") || !strings.Contains(r.stdout, "COPY FROM DATABASE old TO new") {
+		t.Errorf("drop: exit %d\n%s\n%s", r.code, r.stdout, r.stderr)
+	}
+}
+
+// The demo's "Next:" lines call the program the way it was called: a
+// temporary 'go run' build is named "go run ./cmd/topostate".
+func TestSelfCommand(t *testing.T) {
+	for _, c := range []struct {
+		arg0, want string
+		built      bool
+	}{
+		{"/tmp/go-build2718/b001/exe/topostate", "go run ./cmd/topostate", false},
+		{"./bin/topostate", "./bin/topostate", true},
+		{"/opt/x y/topostate", "'/opt/x y/topostate'", true},
+	} {
+		if got, built := selfCommand(c.arg0); got != c.want || built != c.built {
+			t.Errorf("selfCommand(%q) = %q, %v; want %q, %v", c.arg0, got, built, c.want, c.built)
+		}
+	}
+}
+
+// Empty session_id: the codebook lists '' as a value meaning "no session"
+// and says how to keep it when reading the CSV; the CSV has the empty cell.
+func TestSessionIDCodebook(t *testing.T) {
+	out := filepath.Join(t.TempDir(), "e")
+	if code, _, stderr := topostate("export", "--db", warehouse, "--out", out, "-f", "csv", "--tables", "inputs"); code != 0 {
+		t.Fatalf("export: %s", stderr)
+	}
+	book, _ := os.ReadFile(filepath.Join(out, "codebook.csv"))
+	if !strings.Contains(string(book), "inputs,session_id,") || !strings.Contains(string(book), ",'',''=no session,\"none: an empty cell in CSV is the value ''") {
+		t.Errorf("codebook:\n%s", book)
+	}
+	csvb, _ := os.ReadFile(filepath.Join(out, "inputs.csv"))
+	if !strings.Contains(string(csvb), "sub-001,,") {
+		t.Errorf("inputs.csv:\n%s", csvb)
+	}
+}
