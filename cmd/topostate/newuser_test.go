@@ -464,7 +464,7 @@ func TestSelfCommand(t *testing.T) {
 	}
 }
 
-// Empty session_id: the codebook lists '' as a value meaning "no session"
+// Empty session_id: the codebook lists ” as a value meaning "no session"
 // and says how to keep it when reading the CSV; the CSV has the empty cell.
 func TestSessionIDCodebook(t *testing.T) {
 	out := filepath.Join(t.TempDir(), "e")
