@@ -48,8 +48,9 @@ type Data struct {
 
 // Group is one level of the grouping column.
 type Group struct {
-	Name   string
-	Series int // series (subject x session) of this group in the analysis
+	Name     string
+	Series   int // series (subject x session) of this group in the analysis
+	Subjects int // distinct subjects among them (the unit of the group tests)
 }
 
 // Curve is a group's mean Betti curve for one state and dimension:
@@ -148,7 +149,7 @@ func subjectColumns(ctx context.Context, db *sql.DB) ([]string, error) {
 }
 
 func (d *Data) loadGroups(ctx context.Context, db *sql.DB, groupExpr, from string) error {
-	rows, err := db.QueryContext(ctx, `SELECT `+groupExpr+` AS g, count(*) `+from+` GROUP BY g ORDER BY g`)
+	rows, err := db.QueryContext(ctx, `SELECT `+groupExpr+` AS g, count(*), count(DISTINCT x.subject_id) `+from+` GROUP BY g ORDER BY g`)
 	if err != nil {
 		return fmt.Errorf("figures: %w", err)
 	}
@@ -156,7 +157,7 @@ func (d *Data) loadGroups(ctx context.Context, db *sql.DB, groupExpr, from strin
 	d.groupIndex = map[string]int{}
 	for rows.Next() {
 		var g Group
-		if err := rows.Scan(&g.Name, &g.Series); err != nil {
+		if err := rows.Scan(&g.Name, &g.Series, &g.Subjects); err != nil {
 			return fmt.Errorf("figures: %w", err)
 		}
 		d.groupIndex[g.Name] = len(d.Groups)

@@ -136,7 +136,7 @@ func TestLoadMatchesRawTables(t *testing.T) {
 	for next := rowsOf(t, db, `SELECT subject_id, "group" FROM subjects`, &sub, &grp); next(); {
 		groupOf[sub] = grp
 	}
-	if len(d.Groups) != 2 || d.Groups[0] != (Group{"A", 5}) || d.Groups[1] != (Group{"B", 5}) {
+	if len(d.Groups) != 2 || d.Groups[0] != (Group{"A", 5, 5}) || d.Groups[1] != (Group{"B", 5, 5}) {
 		t.Fatalf("groups %+v", d.Groups)
 	}
 	if d.States != 3 || d.Regions != 10 {
