@@ -25,6 +25,23 @@ type Cohort struct {
 	Excluded     []Exclusion
 	Warnings     []string
 	Source       *Source // reads each input's series (tables, .npy, NIfTI with the atlas)
+	// Window is the window width used: Options.Window, or when that is 0
+	// the rule's width at the cohort's shortest TR (WindowFor); TaperSD
+	// likewise (TaperSigmaFor). Apply puts them into the options.
+	Window  int
+	TaperSD float64
+}
+
+// Apply returns o with the window width and taper sigma the cohort
+// resolved (when o left them to the rules).
+func (c *Cohort) Apply(o Options) Options {
+	if o.Window == 0 {
+		o.Window = c.Window
+	}
+	if o.TaperSD == 0 {
+		o.TaperSD = c.TaperSD
+	}
+	return o
 }
 
 // SubjectInput is one series that passed validation.
@@ -190,8 +207,33 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if ref >= 0 && len(c.Keep) < 3 {
 		problems = append(problems, fmt.Errorf("ingest: only %d region(s) left after dropping constant ones; a network needs at least 3", len(c.Keep)))
 	}
+	// The window: given, or from the rule at the shortest TR of the
+	// series that were read (every series then spans at least 1/f_min
+	// seconds per window). A series shorter than the window is refused.
+	c.Window = o.Window
+	if c.Window == 0 {
+		for i, ch := range checks {
+			if bad[i] == nil && ch.tr > 0 {
+				c.Window = max(c.Window, WindowFor(ch.tr, o.MinFreq))
+			}
+		}
+	}
+	c.TaperSD = o.TaperSD
+	if c.TaperSD == 0 {
+		c.TaperSD = TaperSigmaFor(c.Window)
+	}
+	// (Windows in seconds were checked per series by checkFile.)
+	for i, ch := range checks {
+		if bad[i] == nil && o.WindowSeconds == 0 && c.Window > 0 && ch.T < c.Window {
+			why := "--window is %d; use a shorter window"
+			if o.Window == 0 {
+				why = fmt.Sprintf("the window is %%d (1/--min-freq = %g s at the cohort's shortest TR); pass a shorter --window or a higher --min-freq,", 1/o.MinFreq)
+			}
+			bad[i] = &ParseError{Path: inputs[i].Path, Err: fmt.Errorf("%w: %d time points, "+why+" or leave this series out", ErrTooShort, ch.T, c.Window)}
+		}
+	}
 	// Every series shorter than the window: one line, not one per file.
-	if tooShort := tooShortAll(o, inputs, checks, bad); tooShort != nil {
+	if tooShort := tooShortAll(o, c.Window, inputs, checks, bad); tooShort != nil {
 		return nil, append(problems, tooShort)
 	}
 	for i, in := range inputs {
@@ -204,8 +246,12 @@ func LoadCohort(o Options) (*Cohort, error) {
 			continue
 		}
 		ch := checks[i]
+		w := c.Window // this series' window: the cohort's, or from --window-seconds and its TR
+		if o.WindowSeconds > 0 {
+			w = ch.window
+		}
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, ch.window, ch.step), Window: ch.window, Step: ch.step})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, w, ch.step), Window: w, Step: ch.step})
 		if ch.warning != "" {
 			c.Warnings = append(c.Warnings, ch.warning)
 		}
@@ -242,7 +288,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		k, flag = o.StatesMax, "--states-max"
 	}
 	if k > windows {
-		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), o.Window, o.Step)}
+		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), c.Window, o.Step)}
 	}
 	return c, nil
 }
@@ -288,18 +334,18 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 			return ch
 		}
 	}
+	// The window in time points is the cohort's (LoadCohort), except with
+	// --window-seconds, where each series has its own.
 	ch.window, ch.step = windowPoints(o, ch.tr)
-	what := fmt.Sprintf("--window is %d", o.Window)
 	if o.WindowSeconds > 0 {
-		what = fmt.Sprintf("--window-seconds %g at TR %g s is %d", o.WindowSeconds, ch.tr, ch.window)
 		if ch.window < 2 {
 			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("--window-seconds %g at TR %g s gives %d time point(s); a window needs at least 2", o.WindowSeconds, ch.tr, ch.window)}
 			return ch
 		}
-	}
-	if sf.Series.T < ch.window {
-		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, %s; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, what)}
-		return ch
+		if sf.Series.T < ch.window {
+			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window-seconds %g at TR %g s is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.WindowSeconds, ch.tr, ch.window)}
+			return ch
+		}
 	}
 	return ch
 }
@@ -353,7 +399,7 @@ func fileExists(p string) bool {
 
 // tooShortAll returns one error summarising the cohort when every series
 // (more than one) is too short for the window, and nil otherwise.
-func tooShortAll(o Options, inputs []Input, checks []fileCheck, bad []error) error {
+func tooShortAll(o Options, window int, inputs []Input, checks []fileCheck, bad []error) error {
 	if len(inputs) < 2 {
 		return nil
 	}
@@ -370,8 +416,8 @@ func tooShortAll(o Options, inputs []Input, checks []fileCheck, bad []error) err
 		return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than --window-seconds %g; the longest, %s, has %d time points (TR %g s): use a shorter window",
 			ErrTooShort, len(inputs), o.WindowSeconds, inputs[longest].Rel, checks[longest].T, checks[longest].tr)}
 	}
-	return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than --window %d; the longest, %s, has %d time points: use --window %d or less",
-		ErrTooShort, len(inputs), o.Window, inputs[longest].Rel, checks[longest].T, checks[longest].T)}
+	return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than the window of %d time points; the longest, %s, has %d time points: use --window %d or less",
+		ErrTooShort, len(inputs), window, inputs[longest].Rel, checks[longest].T, checks[longest].T)}
 }
 
 // similarID returns the id of ids whose label equals id's up to leading

@@ -102,6 +102,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	if err := o.Check(); err != nil {
 		return nil, err
 	}
+	o = c.Apply(o)
 	sum.Warnings = c.Warnings
 	workers := o.Workers
 	if workers <= 0 {
@@ -188,6 +189,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.Occupancies = occ
 	sum.WorkerTimes = st.work.list()
 	sum.Fits = st.fits
+	sum.Warnings = c.Warnings // fit may have added one
 	return sum, nil
 }
 
@@ -221,6 +223,7 @@ type stages struct {
 	win          compute.WindowOptions
 	dist         compute.Distance
 	grid         []float64
+	core         int // N of the core networks (docs/methods.md §7)
 	p            int // regions analysed
 	k            int
 	cent         compute.Matrix32
@@ -249,6 +252,10 @@ func (s *stages) setup() error {
 		return &UsageError{Err: err}
 	}
 	s.grid = compute.Grid(lo, hi, n)
+	s.core = s.o.CoreTimepoints
+	if s.core == 0 {
+		s.core = s.o.Window
+	}
 	s.p = len(s.c.Keep)
 	for _, in := range s.c.Inputs {
 		s.totalWindows += int64(in.Windows)
@@ -259,14 +266,20 @@ func (s *stages) setup() error {
 // windows reads one series again and returns its window correlations.
 // stage names the stage in the worker times.
 func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error) {
+	m, _, err := s.windowsAndSeries(stage, in)
+	return m, err
+}
+
+// windowsAndSeries is windows that also returns the preprocessed series.
+func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix32, compute.Series, error) {
 	t := time.Now()
 	sf, err := s.c.Source.Read(in.Input)
 	if err != nil {
-		return compute.Matrix32{}, err
+		return compute.Matrix32{}, compute.Series{}, err
 	}
 	t = s.work.since(stage+": read", t)
 	if sf.SHA256 != in.SHA256 {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
+		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
 	}
 	y := sf.Series
 	if len(s.c.Keep) != y.P {
@@ -274,7 +287,7 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	}
 	y, err = compute.Preprocess(y, s.pre)
 	if err != nil {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
 	var buf []float32
 	if b, ok := s.bufs.Get().(*[]float32); ok {
@@ -286,10 +299,10 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	}
 	m, err := compute.SlidingCorrelationsInto(buf, y, win)
 	if err != nil {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
 	s.work.since(stage+": windows", t)
-	return m, nil
+	return m, y, nil
 }
 
 // release hands a window matrix's storage back for the next series; m must
@@ -543,7 +556,11 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			s.k = e.ChordK
 		case "second-diff":
 			s.k = e.SecondDiffK
-		case "gap":
+		case "gap", "strength":
+		default:
+			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+		}
+		if e.Rule == "gap" || s.o.AllRules {
 			gopt := compute.GapOptions{References: s.o.GapReferences, Sample: s.o.GapWindows, MaxIter: s.o.MaxIter,
 				Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
 			s.prog.Stage(fmt.Sprintf("gap statistic, %d reference sets", s.o.GapReferences), s.o.GapReferences+1)
@@ -554,9 +571,24 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			}
 			t = s.work.since("fit: gap statistic", tg)
 			e.Gap = &g
-			s.k = g.K
-		default:
-			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+			if e.Rule == "gap" {
+				s.k = g.K
+			}
+		}
+		if e.Rule == "strength" || s.o.AllRules {
+			sopt := compute.StrengthOptions{Splits: s.o.StrengthSplits, Sample: s.o.StrengthWindows, Threshold: s.o.StrengthThreshold,
+				Restarts: scan.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
+			s.prog.Stage(fmt.Sprintf("prediction strength, %d random halvings", s.o.StrengthSplits), s.o.StrengthSplits)
+			ts := time.Now()
+			ps, err := compute.PredictionStrength(x, s.o.StatesMin, s.o.StatesMax, sopt, s.o.Seed)
+			if err != nil {
+				return fmt.Errorf("ingest: prediction strength: %w", stopped(ctx, err))
+			}
+			t = s.work.since("fit: prediction strength", ts)
+			e.Strength = &ps
+			if e.Rule == "strength" {
+				s.k = ps.K
+			}
 		}
 		res = fits[s.k-s.o.StatesMin]
 		if scan.Restarts < opt.Restarts {
@@ -572,6 +604,9 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 				res = r
 			}
 		}
+	}
+	if !res.Converged {
+		s.c.Warnings = append(s.c.Warnings, fmt.Sprintf("the k-means fit at k = %d stopped at --max-iter %d before converging (relative change of W above 1e-6); its states may move with more iterations: raise --max-iter", s.k, s.o.MaxIter))
 	}
 	// Relabel: most frequent state first, ties by old label.
 	count := make([]int, s.k)
@@ -608,13 +643,16 @@ func (s *stages) writeStates(ctx context.Context, w *schema.Writer) error {
 	defer eb.Release()
 	if s.elbow != nil {
 		for i, pt := range s.elbow.Points {
-			var logW, refLogW, gap, se, pick any
+			var logW, refLogW, gap, se, pick, ps, psSE, psPick any
 			if g := s.elbow.Gap; g != nil && i < len(g.Points) && g.Points[i].K == pt.K {
 				gp := g.Points[i]
 				logW, refLogW, gap, se, pick = gp.LogW, gp.RefLogW, gp.Gap, gp.SE, pt.K == g.K
 			}
+			if st := s.elbow.Strength; st != nil && i < len(st.Points) && st.Points[i].K == pt.K {
+				ps, psSE, psPick = st.Points[i].Strength, st.Points[i].SE, pt.K == st.K
+			}
 			eb.Row(id, pt.K, pt.WCSS, pt.K == s.k, pt.K == s.elbow.ChordK, pt.K == s.elbow.SecondDiffK,
-				logW, refLogW, gap, se, pick)
+				logW, refLogW, gap, se, pick, ps, psSE, psPick)
 		}
 	}
 	cb := schema.NewBatch(schema.StateCentroids)
@@ -737,10 +775,15 @@ type stateNet struct {
 	meanWeight float64
 	filt       compute.Filtration
 	b0, b1     []int
+	// core is the number of core time points of the state;
+	// coreB0, coreB1 the Betti curves of the network of the first
+	// stages.core of them, nil when there are fewer (docs/methods.md §7).
+	core           int
+	coreB0, coreB1 []int
 }
 
 func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
-	m, err := s.windows("subjects", in)
+	m, y, err := s.windowsAndSeries("subjects", in)
 	if err != nil {
 		return nil, err
 	}
@@ -754,6 +797,14 @@ func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
 	}
 	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
 	sums, counts := compute.SumRowsByLabel(m, labels, s.k)
+	window, step := s.o.Window, s.o.Step
+	if in.Window > 0 { // this series' own window (--window-seconds)
+		window, step = in.Window, in.Step
+	}
+	core, err := compute.CoreTimepoints(labels, s.k, y.T, window, step)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
+	}
 	t = s.work.since("subjects: dynamics and networks", t)
 	defer s.work.since("subjects: filtrations and Betti curves", t)
 	for st := range s.k {
@@ -774,14 +825,26 @@ func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
 			return nil, fmt.Errorf("ingest: %s state %d: %w", in.Path, st+1, err)
 		}
 		b0, b1 := f.Curves(s.grid)
-		r.nets[st] = &stateNet{windows: counts[st], meanWeight: mean / float64(len(net)), filt: f, b0: b0, b1: b1}
+		sn := &stateNet{windows: counts[st], meanWeight: mean / float64(len(net)), filt: f, b0: b0, b1: b1, core: len(core[st])}
+		if len(core[st]) >= s.core {
+			cn, err := compute.CorrelationOfRows(y, core[st][:s.core])
+			if err != nil {
+				return nil, fmt.Errorf("ingest: %s state %d core network: %w", in.Path, st+1, err)
+			}
+			cf, err := compute.GraphFiltration(s.p, cn)
+			if err != nil {
+				return nil, fmt.Errorf("ingest: %s state %d core network: %w", in.Path, st+1, err)
+			}
+			sn.coreB0, sn.coreB1 = cf.Curves(s.grid)
+		}
+		r.nets[st] = sn
 	}
 	return r, nil
 }
 
 // outBatches accumulates per-subject rows between flushes.
 type outBatches struct {
-	inputs, seq, metrics, dyn, trans, curves, events, nets *schema.Batch
+	inputs, seq, metrics, dyn, trans, curves, events, nets, core *schema.Batch
 }
 
 func newOutBatches() *outBatches {
@@ -790,11 +853,12 @@ func newOutBatches() *outBatches {
 		metrics: schema.NewBatch(schema.StateMetrics), dyn: schema.NewBatch(schema.SubjectDynamics),
 		trans: schema.NewBatch(schema.Transitions), curves: schema.NewBatch(schema.BettiCurves),
 		events: schema.NewBatch(schema.FiltrationEvts), nets: schema.NewBatch(schema.StateNetworks),
+		core: schema.NewBatch(schema.CoreBettiCurves),
 	}
 }
 
 func (b *outBatches) all() []*schema.Batch {
-	return []*schema.Batch{b.inputs, b.seq, b.metrics, b.dyn, b.trans, b.curves, b.events, b.nets}
+	return []*schema.Batch{b.inputs, b.seq, b.metrics, b.dyn, b.trans, b.curves, b.events, b.nets, b.core}
 }
 
 func (b *outBatches) rows() int {
@@ -876,7 +940,15 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 		for _, v := range net.filt.Beta0Events {
 			tree += v
 		}
-		b.nets.Row(id, sub, ses, st+1, net.windows, net.meanWeight, tree)
+		b.nets.Row(id, sub, ses, st+1, net.windows, net.meanWeight, tree, net.core)
+		if net.coreB0 != nil {
+			for g, e := range s.grid {
+				b.core.Row(id, sub, ses, st+1, 0, e, net.coreB0[g])
+			}
+			for g, e := range s.grid {
+				b.core.Row(id, sub, ses, st+1, 1, e, net.coreB1[g])
+			}
+		}
 	}
 }
 

@@ -165,7 +165,7 @@ const (
 
 // Tables written per series by stage 3, in the order merge appends them.
 var seriesTables = []string{schema.Inputs, schema.StateSequence, schema.StateMetrics, schema.SubjectDynamics,
-	schema.Transitions, schema.BettiCurves, schema.FiltrationEvts, schema.StateNetworks}
+	schema.Transitions, schema.BettiCurves, schema.FiltrationEvts, schema.StateNetworks, schema.CoreBettiCurves}
 
 // tablePath is the Parquet file of table in partition shard.
 func (w *Work) tablePath(shard int) func(string) string {
@@ -272,6 +272,7 @@ func Plan(ctx context.Context, o Options, dir string, shards int) (w *Work, err 
 	if err != nil {
 		return nil, err
 	}
+	o = c.Apply(o)
 	if shards > len(c.Inputs) {
 		return nil, &UsageError{Err: fmt.Errorf("--shards %d is more than the %d series of the cohort", shards, len(c.Inputs))}
 	}

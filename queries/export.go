@@ -44,6 +44,7 @@ var units = map[string]string{
 	"elbow.chosen": "true/false", "elbow.chord_pick": "true/false", "elbow.second_diff_pick": "true/false",
 	"elbow.gap_log_wcss": "log of elbow.wcss units", "elbow.gap_ref_log_wcss": "log of elbow.wcss units",
 	"elbow.gap": "difference of logs (unitless)", "elbow.gap_se": "difference of logs (unitless)", "elbow.gap_pick": "true/false",
+	"elbow.strength": "share of pairs (unitless)", "elbow.strength_se": "share of pairs (unitless)", "elbow.strength_pick": "true/false",
 	"state": "state number (from 1)", "state_centroids.i": "region_index", "state_centroids.j": "region_index",
 	"state_centroids.weight":      "correlation r (Fisher z when fisher_z was on)",
 	"state_sequence.window_index": "window number (from 1)", "state_sequence.window_start": "time point (from 0)",
@@ -57,7 +58,9 @@ var units = map[string]string{
 	"dimension": "0 or 1 (Betti dimension)", "betti_curves.threshold": "correlation r",
 	"betti_curves.betti": "count (components or cycles)", "filtration_events.value": "correlation r",
 	"state_networks.n_windows": "count (windows)", "state_networks.mean_weight": "correlation r",
-	"state_networks.tree_weight": "sum of correlations r",
+	"state_networks.tree_weight":     "sum of correlations r",
+	"state_networks.core_timepoints": "count (time points)",
+	"core_betti_curves.threshold":    "correlation r", "core_betti_curves.betti": "count (components or cycles)",
 }
 
 // Unit returns the unit of a warehouse column ("" when unknown).

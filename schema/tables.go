@@ -44,6 +44,7 @@ const (
 	BettiCurves     = "betti_curves"
 	FiltrationEvts  = "filtration_events"
 	StateNetworks   = "state_networks"
+	CoreBettiCurves = "core_betti_curves"
 	Subjects        = "subjects"
 	Covariates      = "covariates"
 	Analyses        = "analyses"
@@ -58,7 +59,8 @@ func init() {
 	def(Regions, f("analysis_id", i32), nullable("region_index", i32), f("column_index", i32), f("region_name", str), f("dropped", bln))
 	def(Elbow, f("analysis_id", i32), f("k", i32), f("wcss", f64), f("chosen", bln),
 		f("chord_pick", bln), f("second_diff_pick", bln), nullable("gap_log_wcss", f64), nullable("gap_ref_log_wcss", f64),
-		nullable("gap", f64), nullable("gap_se", f64), nullable("gap_pick", bln))
+		nullable("gap", f64), nullable("gap_se", f64), nullable("gap_pick", bln),
+		nullable("strength", f64), nullable("strength_se", f64), nullable("strength_pick", bln))
 	def(StateCentroids, f("analysis_id", i32), f("state", i16), f("i", i16), f("j", i16), f("weight", f64))
 	def(StateSequence, append(id[:3:3], f("window_index", i32), f("window_start", i32),
 		f("center_seconds", f64), f("state", i16), f("distance", f64))...)
@@ -72,7 +74,9 @@ func init() {
 		f("betti", i32))...)
 	def(FiltrationEvts, append(id[:3:3], f("state", i16), f("dimension", i8), f("value", f64))...)
 	def(StateNetworks, append(id[:3:3], f("state", i16), f("n_windows", i32), f("mean_weight", f64),
-		f("tree_weight", f64))...)
+		f("tree_weight", f64), nullable("core_timepoints", i32))...)
+	def(CoreBettiCurves, append(id[:3:3], f("state", i16), f("dimension", i8), f("threshold", f64),
+		f("betti", i32))...)
 }
 
 // ArrowSchema returns the Arrow schema of a result table.

@@ -39,8 +39,8 @@ CREATE TABLE IF NOT EXISTS inputs (
     regions     INTEGER NOT NULL, -- columns of the series (p) as read
     tr_seconds  DOUBLE NOT NULL,  -- repetition time used (s)
     tr_source   VARCHAR NOT NULL, -- where the TR came from: option or sidecar path
-    window_points INTEGER,        -- sliding-window width used for this series, in its time points (--window, or round(--window-seconds / tr_seconds)); NULL for analyses written before layout 3
-    step_points   INTEGER         -- window step used for this series, in its time points (--step, or round(--step-seconds / tr_seconds)); NULL for analyses written before layout 3
+    window_points INTEGER,        -- sliding-window width used for this series, in its time points (--window, or round(--window-seconds / tr_seconds)); NULL for analyses written before layout 4
+    step_points   INTEGER         -- window step used for this series, in its time points (--step, or round(--step-seconds / tr_seconds)); NULL for analyses written before layout 4
 );
 
 CREATE TABLE IF NOT EXISTS excluded_inputs (
@@ -85,7 +85,10 @@ CREATE TABLE IF NOT EXISTS elbow (
     gap_ref_log_wcss DOUBLE,          -- mean log W*(k) over the uniform reference sets in the principal-component box; NULL as gap_log_wcss
     gap             DOUBLE,           -- gap statistic Gap(k) = gap_ref_log_wcss - gap_log_wcss; NULL as gap_log_wcss
     gap_se          DOUBLE,           -- s(k) = sd of the reference log W*(k) times sqrt(1 + 1/B); NULL as gap_log_wcss
-    gap_pick        BOOLEAN           -- the gap rule (smallest k with Gap(k) >= Gap(k+1) - s(k+1)) picks this k; NULL as gap_log_wcss
+    gap_pick        BOOLEAN,          -- the gap rule (smallest k with Gap(k) >= Gap(k+1) - s(k+1)) picks this k; NULL as gap_log_wcss
+    strength        DOUBLE,           -- prediction strength ps(k): mean over random halvings of the fitting windows of the smallest share of a cluster's pairs the other half's centroids keep together; NULL: not computed (older analyses, or a rule other than strength)
+    strength_se     DOUBLE,           -- standard error of strength (sd of the 2 x splits estimates / sqrt of their number); NULL as strength
+    strength_pick   BOOLEAN           -- the strength rule (largest k with strength >= the threshold, parameters strength_threshold) picks this k; NULL as strength
 );
 
 CREATE TABLE IF NOT EXISTS state_centroids (
@@ -164,5 +167,22 @@ CREATE TABLE IF NOT EXISTS state_networks (
     state       SMALLINT NOT NULL, -- state, from 1
     n_windows   INTEGER NOT NULL,  -- windows averaged into this network
     mean_weight DOUBLE NOT NULL,   -- mean edge weight (correlation scale)
-    tree_weight DOUBLE NOT NULL    -- total weight of the maximum spanning tree
+    tree_weight DOUBLE NOT NULL,   -- total weight of the maximum spanning tree
+    core_timepoints INTEGER        -- core time points of the state: covered only by windows of this state (docs/methods.md §7); NULL for analyses written before it existed
+);
+
+-- Betti curves of the core state networks (docs/methods.md §7): each is the
+-- correlation over the first N core time points of a subject and state
+-- (N in the analysis parameters, core_timepoints), free of windows that
+-- straddle a switch and of equal size for every subject; a subject and
+-- state with fewer than N core time points has no rows. The group test of
+-- topology (filtration_tests_by_group) uses these.
+CREATE TABLE IF NOT EXISTS core_betti_curves (
+    analysis_id INTEGER NOT NULL,  -- analysis
+    subject_id  VARCHAR NOT NULL,  -- participant label
+    session_id  VARCHAR NOT NULL,  -- session label or ''
+    state       SMALLINT NOT NULL, -- state, from 1
+    dimension   TINYINT NOT NULL,  -- 0: connected components (beta0); 1: independent cycles (beta1)
+    threshold   DOUBLE NOT NULL,   -- filtration value e (correlation scale); edges with weight > e kept
+    betti       INTEGER NOT NULL   -- Betti number of the thresholded core network
 );
