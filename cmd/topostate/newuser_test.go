@@ -410,7 +410,7 @@ func TestNewUserMessages(t *testing.T) {
 
 	r := run("ingest", "--input", abs, "--db", filepath.Join(tmp, "a.duckdb"), "--window", "50", "-q")
 	if r.code != exitUsage || strings.Count(r.stderr, "\n  - ") != 1 ||
-		!strings.Contains(r.stderr, "every one of the 3 series is shorter than --window 50") || !strings.Contains(r.stderr, "use --window 12 or less") {
+		!strings.Contains(r.stderr, "every one of the 3 series is shorter than the window of 50 time points") || !strings.Contains(r.stderr, "use --window 12 or less") {
 		t.Errorf("window too long: exit %d: %s", r.code, r.stderr)
 	}
 
