@@ -52,6 +52,10 @@ type SubjectInput struct {
 	SHA256     string
 	Timepoints int
 	Windows    int
+	// Window and Step are this series' window width and step in its own
+	// time points: --window and --step, or from --window-seconds and
+	// --step-seconds with its TR (windowPoints).
+	Window, Step int
 }
 
 // Exclusion is a series left out under --on-bad-subject skip.
@@ -69,6 +73,9 @@ type fileCheck struct {
 	windows  []*compute.RegionError // regions whose window correlations are undefined (RegionWindowProblems)
 	tr       float64
 	trSource string
+	window   int
+	step     int
+	warning  string // a TR the file's header states that its sidecar contradicts
 	err      error
 }
 
@@ -108,6 +115,9 @@ func LoadCohort(o Options) (*Cohort, error) {
 		}
 	}
 	c.Participants = part
+	if part != nil {
+		c.Warnings = append(c.Warnings, part.Warnings...)
+	}
 
 	checks := make([]fileCheck, len(inputs))
 	workers := o.Workers
@@ -147,7 +157,11 @@ func LoadCohort(o Options) (*Cohort, error) {
 		seen[key] = i
 		if part != nil {
 			if _, ok := part.Lines[in.Subject]; !ok {
-				bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: add a row for %s to %s", ErrNoParticipant, in.Subject, part.Path)})
+				hint := ""
+				if near := similarID(in.Subject, part.IDs); near != "" {
+					hint = fmt.Sprintf(" (did you mean %s, which it has? rename the file or the row so the labels match)", near)
+				}
+				bad[i] = errors.Join(bad[i], &ParseError{Path: in.Path, Err: fmt.Errorf("%w: add a row for %s to %s%s", ErrNoParticipant, in.Subject, part.Path, hint)})
 			}
 		}
 	}
@@ -209,14 +223,19 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if c.TaperSD == 0 {
 		c.TaperSD = TaperSigmaFor(c.Window)
 	}
+	// (Windows in seconds were checked per series by checkFile.)
 	for i, ch := range checks {
-		if bad[i] == nil && c.Window > 0 && ch.T < c.Window {
+		if bad[i] == nil && o.WindowSeconds == 0 && c.Window > 0 && ch.T < c.Window {
 			why := "--window is %d; use a shorter window"
 			if o.Window == 0 {
 				why = fmt.Sprintf("the window is %%d (1/--min-freq = %g s at the cohort's shortest TR); pass a shorter --window or a higher --min-freq,", 1/o.MinFreq)
 			}
 			bad[i] = &ParseError{Path: inputs[i].Path, Err: fmt.Errorf("%w: %d time points, "+why+" or leave this series out", ErrTooShort, ch.T, c.Window)}
 		}
+	}
+	// Every series shorter than the window: one line, not one per file.
+	if tooShort := tooShortAll(o, c.Window, inputs, checks, bad); tooShort != nil {
+		return nil, append(problems, tooShort)
 	}
 	// Windows whose correlations are undefined (a region that does not
 	// vary for a window's length) in a region that is analysed: the series
@@ -264,9 +283,20 @@ func LoadCohort(o Options) (*Cohort, error) {
 			continue
 		}
 		ch := checks[i]
+		w := c.Window // this series' window: the cohort's, or from --window-seconds and its TR
+		if o.WindowSeconds > 0 {
+			w = ch.window
+		}
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, c.Window, o.Step)})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, w, ch.step), Window: w, Step: ch.step})
+		if ch.warning != "" {
+			c.Warnings = append(c.Warnings, ch.warning)
+		}
 	}
+	if err := mixedTR(o, c.Inputs); err != nil {
+		problems = append(problems, err)
+	}
+	c.Warnings = append(c.Warnings, windowDurations(o, c.Inputs)...)
 	if part != nil {
 		have := map[string]bool{}
 		for _, in := range inputs {
@@ -315,6 +345,9 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 	}
 	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
 	// the file itself states (a NIfTI header's pixdim[4] with its unit).
+	// A header that contradicts its sidecar is reported and the sidecar's
+	// TR used: the sidecar is written from the scanner's protocol, while a
+	// converted header's pixdim[4] is often 1 or in the wrong unit.
 	switch {
 	case o.TR > 0:
 		ch.tr, ch.trSource = o.TR, "option --tr"
@@ -323,19 +356,37 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		ch.trSource = in.Sidecar
 		if errors.Is(ch.err, ErrNoTR) && sf.TR > 0 {
 			ch.tr, ch.trSource, ch.err = sf.TR, in.Path+" (header pixdim[4])", nil
-			if err := CheckTR(sf.TR); err != nil {
-				ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; put RepetitionTime in %s or pass --tr SECONDS", err, in.Sidecar)
-			}
+		} else if ch.err == nil && sf.TR > 0 && !sameTR(sf.TR, ch.tr) {
+			ch.warning = fmt.Sprintf("%s: the header's pixdim[4] says TR %g s but its sidecar %s says %g s; the sidecar's %g s is used", in.Path, sf.TR, in.Sidecar, ch.tr, ch.tr)
 		}
 	case sf.TR > 0:
 		ch.tr, ch.trSource = sf.TR, in.Path+" (header pixdim[4])"
-		if err := CheckTR(sf.TR); err != nil {
-			ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", err)
-		}
 	case FileKind(in.Path) == KindNifti:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: the header's pixdim[4] has no time unit (xyzt_units); pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	default:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
+	}
+	if ch.err != nil {
+		return ch
+	}
+	if strings.HasSuffix(ch.trSource, "(header pixdim[4])") {
+		if err := CheckTR(ch.tr, "the header's pixdim[4]"); err != nil {
+			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w; pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", err)}
+			return ch
+		}
+	}
+	// The window in time points is the cohort's (LoadCohort), except with
+	// --window-seconds, where each series has its own.
+	ch.window, ch.step = windowPoints(o, ch.tr)
+	if o.WindowSeconds > 0 {
+		if ch.window < 2 {
+			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("--window-seconds %g at TR %g s gives %d time point(s); a window needs at least 2", o.WindowSeconds, ch.tr, ch.window)}
+			return ch
+		}
+		if sf.Series.T < ch.window {
+			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window-seconds %g at TR %g s is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.WindowSeconds, ch.tr, ch.window)}
+			return ch
+		}
 	}
 	return ch
 }
@@ -418,4 +469,54 @@ func orNone(ses string) string {
 func fileExists(p string) bool {
 	_, err := os.Stat(p)
 	return err == nil
+}
+
+// tooShortAll returns one error summarising the cohort when every series
+// (more than one) is too short for the window, and nil otherwise.
+func tooShortAll(o Options, window int, inputs []Input, checks []fileCheck, bad []error) error {
+	if len(inputs) < 2 {
+		return nil
+	}
+	longest := 0
+	for i := range inputs {
+		if !errors.Is(bad[i], ErrTooShort) {
+			return nil
+		}
+		if checks[i].T > checks[longest].T {
+			longest = i
+		}
+	}
+	if o.WindowSeconds > 0 {
+		return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than --window-seconds %g; the longest, %s, has %d time points (TR %g s): use a shorter window",
+			ErrTooShort, len(inputs), o.WindowSeconds, inputs[longest].Rel, checks[longest].T, checks[longest].tr)}
+	}
+	return &UsageError{Err: fmt.Errorf("%w: every one of the %d series is shorter than the window of %d time points; the longest, %s, has %d time points: use --window %d or less",
+		ErrTooShort, len(inputs), window, inputs[longest].Rel, checks[longest].T, checks[longest].T)}
+}
+
+// similarID returns the id of ids whose label equals id's up to leading
+// zeros of numbers and letter case (sub-4 and sub-04, sub-ab and sub-AB),
+// or "" when none does.
+func similarID(id string, ids []string) string {
+	key := func(s string) string {
+		s = strings.ToLower(strings.TrimPrefix(s, "sub-"))
+		var b strings.Builder
+		for i := 0; i < len(s); i++ {
+			if s[i] == '0' && (i == 0 || s[i-1] < '0' || s[i-1] > '9') && i+1 < len(s) && s[i+1] >= '0' && s[i+1] <= '9' {
+				// a leading zero of a number: skip it and any that follow
+				for i+1 < len(s) && s[i] == '0' && s[i+1] >= '0' && s[i+1] <= '9' {
+					i++
+				}
+			}
+			b.WriteByte(s[i])
+		}
+		return b.String()
+	}
+	k := key(id)
+	for _, other := range ids {
+		if other != id && key(other) == k {
+			return other
+		}
+	}
+	return ""
 }

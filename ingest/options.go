@@ -25,8 +25,14 @@ type Options struct {
 	// MinFreq is f_min, the slowest frequency the series keep after their
 	// high-pass filter, in Hz; it sets the default window.
 	MinFreq float64 `json:"min_freq_hz"`
-	Step    int     `json:"step"`  // time points
-	Taper   string  `json:"taper"` // none | gauss
+	Step    int     `json:"step"` // time points
+	// WindowSeconds, when positive, replaces Window: each series gets
+	// round(WindowSeconds / its TR) time points (and StepSeconds, when
+	// positive, replaces Step likewise), so a cohort of mixed TRs has
+	// windows of one duration. The points used are stored per series.
+	WindowSeconds float64 `json:"window_seconds,omitempty"`
+	StepSeconds   float64 `json:"step_seconds,omitempty"`
+	Taper         string  `json:"taper"` // none | gauss
 	// TaperSD is the taper's Gaussian sigma in time points (gauss); 0 (the
 	// default) takes Window/10 (TaperSigmaFor).
 	TaperSD  float64 `json:"taper_sigma"`
@@ -196,10 +202,19 @@ func (o Options) Check() error {
 	if o.Input == "" {
 		bad("--input is required: the folder holding participants.tsv and the series files")
 	}
-	if o.TR != 0 { // 0: not given (cmd/topostate refuses an explicit --tr 0)
-		if err := CheckTR(o.TR); err != nil {
-			bad("--tr: %v", err)
+	if o.TR != 0 {
+		if err := CheckTR(o.TR, fmt.Sprintf("--tr %v", o.TR)); err != nil {
+			bad("%v", err)
 		}
+	}
+	if o.WindowSeconds < 0 || math.IsNaN(o.WindowSeconds) || math.IsInf(o.WindowSeconds, 0) {
+		bad("--window-seconds %v: must be a positive number of seconds", o.WindowSeconds)
+	}
+	if o.StepSeconds < 0 || math.IsNaN(o.StepSeconds) || math.IsInf(o.StepSeconds, 0) || (o.StepSeconds > 0 && o.WindowSeconds == 0) {
+		bad("--step-seconds %v: a positive number of seconds, given together with --window-seconds", o.StepSeconds)
+	}
+	if o.WindowSeconds > 0 && (o.Taper == "gauss" || o.SmoothK > 0) {
+		bad("--window-seconds: --taper-sigma and --smooth-k count time points, which last different times at different TRs; use --taper none and no --smooth-k with windows in seconds")
 	}
 	if o.Window != 0 && o.Window < 2 {
 		bad("--window %d: a window needs at least 2 time points (0: from --min-freq)", o.Window)

@@ -8,9 +8,11 @@ import (
 	"io/fs"
 	"math"
 	"os"
+	"path/filepath"
 	"regexp"
 	"strconv"
 	"strings"
+	"time"
 	"unicode"
 	"unicode/utf8"
 
@@ -19,10 +21,14 @@ import (
 
 // Covariate is one column of participants.tsv with the type inferred from
 // its values: BIGINT when every value is an integer, DOUBLE when every value
-// is a number, VARCHAR otherwise. "n/a" and empty cells are NULL (BIDS).
+// is a number, BOOLEAN when every value is true or false (any case), DATE
+// when every value is an ISO 8601 date (YYYY-MM-DD), VARCHAR otherwise.
+// "n/a" and empty cells are NULL (BIDS).
 type Covariate struct {
 	Name string
-	Type string // BIGINT, DOUBLE or VARCHAR
+	Type string // BIGINT, DOUBLE, BOOLEAN, DATE or VARCHAR
+	// Doc is the column's entry in participants.json (zero without one).
+	Doc CovariateDoc
 }
 
 // Participants is the parsed participants sheet.
@@ -30,8 +36,12 @@ type Participants struct {
 	Path       string
 	Covariates []Covariate
 	IDs        []string         // participant_id in file order, normalised to sub-<label>
-	Values     map[string][]any // per ID: one value per covariate (int64, float64, string or nil)
+	Values     map[string][]any // per ID: one value per covariate (int64, float64, bool, time.Time, string or nil)
 	Lines      map[string]int   // per ID: its line in the file
+	// DocPath is the participants.json read beside the sheet ("" when
+	// none); Warnings are its entries for columns the sheet lacks.
+	DocPath  string
+	Warnings []string
 }
 
 // ReadParticipants reads a participants.tsv (or .csv) file in UTF-8.
@@ -61,7 +71,26 @@ func ReadParticipantsEncoding(path, enc string) (*Participants, error) {
 	if enc == "latin1" {
 		r = charmap.Windows1252.NewDecoder().Reader(f)
 	}
-	return ParseParticipants(path, r, Delimiter(path))
+	p, err := ParseParticipants(path, r, Delimiter(path))
+	if err != nil {
+		return nil, err
+	}
+	names := make([]string, len(p.Covariates))
+	for i, c := range p.Covariates {
+		names[i] = c.Name
+	}
+	docs, warnings, err := readParticipantsJSON(path, names)
+	if err != nil {
+		return nil, err
+	}
+	if docs != nil || warnings != nil {
+		p.DocPath = filepath.Join(filepath.Dir(path), "participants.json")
+	}
+	for i, c := range p.Covariates {
+		p.Covariates[i].Doc = docs[c.Name]
+	}
+	p.Warnings = warnings
+	return p, nil
 }
 
 // notUTF8 returns the error for a line that is not valid UTF-8: the first
@@ -143,6 +172,13 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 		cols[i] = strings.TrimSpace(cols[i])
 	}
 	if cols[0] != "participant_id" {
+		// The right sheet with the other separator: say so.
+		if delim == '\t' && len(cols) == 1 && strings.HasPrefix(cols[0], "participant_id,") {
+			return nil, perr(path, 1, 0, "the header has commas but no tabs: this sheet is comma-separated, and a .tsv file is split at tabs; save it tab-separated (BIDS) or name it participants.csv")
+		}
+		if delim == ',' && len(cols) == 1 && strings.HasPrefix(cols[0], "participant_id\t") {
+			return nil, perr(path, 1, 0, "the header has tabs but no commas: this sheet is tab-separated, and a .csv file is split at commas; name it participants.tsv")
+		}
 		for i, c := range cols {
 			if c == "participant_id" {
 				return nil, perr(path, 1, i+1, "participant_id must be the first column (BIDS); move it to the front")
@@ -230,6 +266,10 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 				vals[c], _ = strconv.ParseInt(s, 10, 64)
 			case "DOUBLE":
 				vals[c], _ = strconv.ParseFloat(s, 64)
+			case "BOOLEAN":
+				vals[c] = strings.EqualFold(s, "true")
+			case "DATE":
+				vals[c], _ = time.Parse(time.DateOnly, s)
 			default:
 				vals[c] = s
 			}
@@ -240,13 +280,19 @@ func ParseParticipants(path string, r io.Reader, delim byte) (*Participants, err
 }
 
 func inferType(ids []string, raw map[string][]string, c int) string {
-	isInt, isNum, seen := true, true, false
+	isInt, isNum, isBool, isDate, seen := true, true, true, true, false
 	for _, id := range ids {
 		s := raw[id][c]
 		if isNull(s) {
 			continue
 		}
 		seen = true
+		if !strings.EqualFold(s, "true") && !strings.EqualFold(s, "false") {
+			isBool = false
+		}
+		if _, err := time.Parse(time.DateOnly, s); err != nil || len(s) != len(time.DateOnly) {
+			isDate = false
+		}
 		if _, err := strconv.ParseInt(s, 10, 64); err != nil {
 			isInt = false
 		}
@@ -261,6 +307,10 @@ func inferType(ids []string, raw map[string][]string, c int) string {
 		return "BIGINT"
 	case isNum:
 		return "DOUBLE"
+	case isBool:
+		return "BOOLEAN"
+	case isDate:
+		return "DATE"
 	}
 	return "VARCHAR"
 }

@@ -127,10 +127,14 @@ func (s *StatesFrom) Check(c *Cohort, o Options) error {
 	diff := func(name string, here, there any) {
 		bad = append(bad, fmt.Sprintf("%s is %v here but %v in %q", name, here, there, s.Analysis))
 	}
-	if o.Window != src.Window {
+	if o.WindowSeconds != src.WindowSeconds {
+		diff("window_seconds", o.WindowSeconds, src.WindowSeconds)
+	} else if o.WindowSeconds == 0 && o.Window != src.Window {
 		diff("window", o.Window, src.Window)
 	}
-	if o.Step != src.Step {
+	if o.StepSeconds != src.StepSeconds {
+		diff("step_seconds", o.StepSeconds, src.StepSeconds)
+	} else if o.StepSeconds == 0 && o.Step != src.Step {
 		diff("step", o.Step, src.Step)
 	}
 	if o.Taper != src.Taper {

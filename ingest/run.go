@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"path/filepath"
 	"runtime"
 	"slices"
 	"sort"
@@ -249,8 +250,14 @@ func (s *stages) recordAnalysis(ctx context.Context, w *schema.Writer) error {
 	if err != nil {
 		return fmt.Errorf("ingest: %w", err)
 	}
+	// input_dir is absolute, so the row still names the folder when the
+	// warehouse is read from another working directory.
+	inputDir, err := filepath.Abs(s.o.Input)
+	if err != nil {
+		inputDir = s.o.Input
+	}
 	if err := w.Exec(ctx, `INSERT INTO analyses VALUES (?, ?, ?, ?, ?::JSON, ?, ?, ?, ?, ?, ?)`,
-		w.ID, w.Name, time.Now().UTC(), Version, string(params), s.o.Input, len(s.c.Inputs), len(s.c.Keep), s.k, s.totalWindows, s.fitRows); err != nil {
+		w.ID, w.Name, time.Now().UTC(), Version, string(params), inputDir, len(s.c.Inputs), len(s.c.Keep), s.k, s.totalWindows, s.fitRows); err != nil {
 		return fmt.Errorf("ingest: record analysis: %w", err)
 	}
 	return nil
@@ -333,7 +340,11 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	if b, ok := s.bufs.Get().(*[]float32); ok {
 		buf = *b
 	}
-	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
+	win := s.win
+	if in.Window > 0 { // this series' own width and step (--window-seconds)
+		win.Width, win.Step = in.Window, in.Step
+	}
+	m, err := compute.SlidingCorrelationsInto(buf, y, win)
 	if err != nil {
 		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
 	}
@@ -846,7 +857,11 @@ func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
 	}
 	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
 	sums, counts := compute.SumRowsByLabel(m, labels, s.k)
-	core, err := compute.CoreTimepoints(labels, s.k, y.T, s.o.Window, s.o.Step)
+	window, step := s.o.Window, s.o.Step
+	if in.Window > 0 { // this series' own window (--window-seconds)
+		window, step = in.Window, in.Step
+	}
+	core, err := compute.CoreTimepoints(labels, s.k, y.T, window, step)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
@@ -932,10 +947,14 @@ func (b *outBatches) release() {
 
 func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 	sub, ses := in.Subject, in.Session
-	b.inputs.Row(id, sub, ses, in.Rel, in.SHA256, in.Timepoints, len(s.c.Regions), in.TR, in.TRSource)
-	half := float64(s.o.Window-1) / 2
+	window, step := in.Window, in.Step
+	if window == 0 { // a plan written before per-series windows
+		window, step = s.o.Window, s.o.Step
+	}
+	b.inputs.Row(id, sub, ses, in.Rel, in.SHA256, in.Timepoints, len(s.c.Regions), in.TR, in.TRSource, window, step)
+	half := float64(window-1) / 2
 	for wi, l := range r.labels {
-		start := wi * s.o.Step
+		start := wi * step
 		b.seq.Row(id, sub, ses, wi+1, start, (float64(start)+half)*in.TR, l+1, r.dist[wi])
 	}
 	d := r.dyn
@@ -944,7 +963,7 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 		var mw, ms *float64
 		if d.Dwells[st] > 0 {
 			visited++
-			a, c := d.MeanDwell[st], d.MeanDwell[st]*float64(s.o.Step)*in.TR
+			a, c := d.MeanDwell[st], d.MeanDwell[st]*float64(step)*in.TR
 			mw, ms = &a, &c
 		}
 		b.metrics.Row(id, sub, ses, st+1, d.Occupancy[st], d.Dwells[st], mw, ms)

@@ -117,9 +117,9 @@ func TestParseParticipants(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	wantCols := []Covariate{{"group", "VARCHAR"}, {"age", "BIGINT"}, {"score", "DOUBLE"}}
+	wantCols := []Covariate{{Name: "group", Type: "VARCHAR"}, {Name: "age", Type: "BIGINT"}, {Name: "score", Type: "DOUBLE"}}
 	for i, c := range wantCols {
-		if p.Covariates[i] != c {
+		if p.Covariates[i].Name != c.Name || p.Covariates[i].Type != c.Type {
 			t.Errorf("column %d = %+v, want %+v", i, p.Covariates[i], c)
 		}
 	}

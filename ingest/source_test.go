@@ -162,9 +162,19 @@ func TestNiftiTRPrecedence(t *testing.T) {
 	os.WriteFile(fn("sub-03")+".json", []byte(`{"TaskName": "rest"}`), 0o644)
 	o := cohortOptions(dir)
 	o.Atlas = filepath.Join(niftiDir, "atlas.nii.gz")
+	// Two TRs (3 s and 2 s) are refused with the window in time points...
+	if _, err := LoadCohort(o); err == nil || !strings.Contains(err.Error(), "2 different repetition times") {
+		t.Errorf("mixed TRs with --window: %v", err)
+	}
+	// ... and accepted with the window in seconds.
+	o.WindowSeconds = 24
 	c, err := LoadCohort(o)
 	if err != nil {
 		t.Fatal(err)
+	}
+	// sub-02's header (2 s) contradicts its sidecar (3 s): reported.
+	if w := strings.Join(c.Warnings, "\n"); !strings.Contains(w, fn("sub-02")+".nii.gz: the header's pixdim[4] says TR 2 s but its sidecar "+fn("sub-02")+".json says 3 s; the sidecar's 3 s is used") {
+		t.Errorf("warnings: %s", w)
 	}
 	want := map[string]float64{"sub-01": 2, "sub-02": 3, "sub-03": 2, "sub-04": 2}
 	for _, in := range c.Inputs {

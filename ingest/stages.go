@@ -85,6 +85,8 @@ type PlannedInput struct {
 	TRSource   string  `json:"tr_source"`
 	Timepoints int     `json:"timepoints"`
 	Windows    int     `json:"windows"`
+	Window     int     `json:"window_points,omitempty"` // 0 in older plans: the options' --window
+	Step       int     `json:"step_points,omitempty"`
 }
 
 // PlannedSkip is a series excluded under --on-bad-subject skip.
@@ -387,7 +389,7 @@ func Plan(ctx context.Context, o Options, dir string, shards int) (w *Work, err 
 		Shards: shards, Options: o, Regions: c.Regions, Keep: c.Keep, Dropped: c.Dropped, Warnings: c.Warnings}
 	for _, in := range c.Inputs {
 		m.Inputs = append(m.Inputs, PlannedInput{Subject: in.Subject, Session: in.Session, Path: in.Path, Rel: in.Rel,
-			Sidecar: in.Sidecar, SHA256: in.SHA256, TR: in.TR, TRSource: in.TRSource, Timepoints: in.Timepoints, Windows: in.Windows})
+			Sidecar: in.Sidecar, SHA256: in.SHA256, TR: in.TR, TRSource: in.TRSource, Timepoints: in.Timepoints, Windows: in.Windows, Window: in.Window, Step: in.Step})
 	}
 	for _, x := range c.Excluded {
 		m.Excluded = append(m.Excluded, PlannedSkip{Subject: x.Subject, Session: x.Session, Path: x.Path, Rel: x.Rel, Reason: x.Reason})
@@ -475,7 +477,7 @@ func OpenWork(dir string) (*Work, error) {
 	c := &Cohort{Dir: m.Options.Input, Source: src, Regions: m.Regions, Keep: m.Keep, Dropped: m.Dropped, Warnings: m.Warnings}
 	for _, in := range m.Inputs {
 		c.Inputs = append(c.Inputs, SubjectInput{Input: Input{Subject: in.Subject, Session: in.Session, Path: in.Path, Rel: in.Rel, Sidecar: in.Sidecar},
-			TR: in.TR, TRSource: in.TRSource, SHA256: in.SHA256, Timepoints: in.Timepoints, Windows: in.Windows})
+			TR: in.TR, TRSource: in.TRSource, SHA256: in.SHA256, Timepoints: in.Timepoints, Windows: in.Windows, Window: in.Window, Step: in.Step})
 	}
 	for _, x := range m.Excluded {
 		c.Excluded = append(c.Excluded, Exclusion{Input: Input{Subject: x.Subject, Session: x.Session, Path: x.Path, Rel: x.Rel}, Reason: x.Reason})

@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"context"
+	"time"
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
@@ -23,6 +24,10 @@ func (s *stages) writeSubjects(ctx context.Context, w *schema.Writer) error {
 			t = arrow.PrimitiveTypes.Int64
 		case "DOUBLE":
 			t = arrow.PrimitiveTypes.Float64
+		case "BOOLEAN":
+			t = arrow.FixedWidthTypes.Boolean
+		case "DATE":
+			t = arrow.FixedWidthTypes.Date32
 		}
 		fields = append(fields, arrow.Field{Name: cv.Name, Type: t, Nullable: true})
 	}
@@ -45,10 +50,30 @@ func (s *stages) writeSubjects(ctx context.Context, w *schema.Writer) error {
 				fb.(*array.Float64Builder).Append(x)
 			case string:
 				fb.(*array.StringBuilder).Append(x)
+			case bool:
+				fb.(*array.BooleanBuilder).Append(x)
+			case time.Time:
+				fb.(*array.Date32Builder).Append(arrow.Date32FromTime(x))
 			}
 		}
 	}
 	rec := rb.NewRecord()
 	defer rec.Release()
-	return w.AppendRecord(ctx, schema.Subjects, rec)
+	if err := w.AppendRecord(ctx, schema.Subjects, rec); err != nil {
+		return err
+	}
+	// What participants.json says of each column, for the data dictionary
+	// and codebook of export.
+	cb := schema.NewBatch(schema.Covariates)
+	defer cb.Release()
+	orNil := func(s string) any {
+		if s == "" {
+			return nil
+		}
+		return s
+	}
+	for _, cv := range p.Covariates {
+		cb.Row(w.ID, cv.Name, cv.Type, orNil(cv.Doc.Description), orNil(cv.Doc.Units), orNil(cv.Doc.LevelsJSON()))
+	}
+	return w.Append(ctx, cb)
 }

@@ -1,6 +1,6 @@
 -- name: adjusted_group_contrast
 -- description: Group contrast of occupancy and mean dwell time per state and of switch rate, adjusted for the subjects columns in adjust by least squares, with Student t and Freedman-Lane permutation p-values, BH across those rows (one family); the Betti-0 curve area per state as a description (no p-value).
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group

@@ -1,6 +1,6 @@
 -- name: betti_curves_by_group
 -- description: Group mean Betti curves per state and dimension, one row per threshold, ready for plotting.
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group

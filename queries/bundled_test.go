@@ -488,7 +488,7 @@ func TestSubjectFeatures(t *testing.T) {
 		id     int
 	}{
 		{map[string]string{"analysis": "first"}, 1},
-		{nil, 2}, // the default, latest
+		{map[string]string{"analysis": "latest"}, 2},
 	} {
 		q, _ := Lookup(FS, "subject_features")
 		rows, err := Run(context.Background(), d.Conn, q, c.params)
@@ -630,8 +630,10 @@ func TestInjectionHarmless(t *testing.T) {
 		params map[string]string
 		fails  bool
 	}{
-		{"state_dwell_by_group", map[string]string{"group_a": evil, "group_b": "day"}, false},
-		{"transitions_by_group", map[string]string{"group_a": "day", "group_b": `night"); DROP TABLE subjects; --`}, false},
+		// A group value no subject has is refused (subject_groups), the
+		// value arriving as data in the message.
+		{"state_dwell_by_group", map[string]string{"group_a": evil, "group_b": "day"}, true},
+		{"transitions_by_group", map[string]string{"group_a": "day", "group_b": `night"); DROP TABLE subjects; --`}, true},
 		{"state_dwell_by_group", map[string]string{"group_column": `group" FROM subjects; DROP TABLE subjects; --`, "group_a": "a", "group_b": "b"}, true},
 		{"state_pairs_ks", map[string]string{"analysis": "1; DROP TABLE subjects"}, true},
 		{"covariate_association", map[string]string{"covariate": evil}, true},
@@ -686,23 +688,28 @@ func TestParamErrors(t *testing.T) {
 	}{
 		{map[string]string{"group_b": "day"}, "parameter group_a: required"},
 		{map[string]string{"group_a": "night", "group_b": "day", "colour": "red"}, "takes no such parameter"},
-		{map[string]string{"group_a": "night", "group_b": "day", "analysis": "third"}, `no such analysis "third"; the warehouse holds: 1 (first), 2 (second)`},
+		{map[string]string{"group_a": "night", "group_b": "day", "analysis": "third"}, `no such analysis "third"; the warehouse holds: 1 ("first"), 2 ("second")`},
+		// Two analyses and none named: refused, never the newest by guess.
+		{map[string]string{"group_a": "night", "group_b": "day", "analysis": ""}, `no analysis chosen: the warehouse holds 2 analyses: 1 ("first"), 2 ("second")`},
 		{map[string]string{"group_a": "night", "group_b": "day", "analysis": "9"}, "no such analysis"},
 		{map[string]string{"group_a": "night", "group_b": "day", "group_column": "grp"}, `no column "grp"; its covariates are: group, age, sleep hours`},
 		{map[string]string{"group_a": "night", "group_b": "day", "n_perm": "many"}, `"many" is not an integer`},
 		{map[string]string{"group_a": "night", "group_b": "night"}, "group_a and group_b are both night"},
 	} {
+		if _, ok := c.params["analysis"]; !ok {
+			c.params["analysis"] = "latest"
+		}
 		_, err := Run(ctx, d.Conn, q, c.params)
 		if err == nil || !strings.Contains(err.Error(), c.want) {
 			t.Errorf("%v: %v, want an error containing %q", c.params, err, c.want)
 		}
 	}
 	cq, _ := Lookup(FS, "covariate_association")
-	if _, err := Run(ctx, d.Conn, cq, map[string]string{"covariate": "group"}); err == nil || !strings.Contains(err.Error(), "needs a numeric column") {
+	if _, err := Run(ctx, d.Conn, cq, map[string]string{"covariate": "group", "analysis": "latest"}); err == nil || !strings.Contains(err.Error(), "needs a numeric column") {
 		t.Errorf("a text covariate: %v", err)
 	}
 	// Case-insensitive column names resolve to the stored spelling.
-	rows, err := Run(ctx, d.Conn, q, map[string]string{"group_column": "GROUP", "group_a": "night", "group_b": "day"})
+	rows, err := Run(ctx, d.Conn, q, map[string]string{"group_column": "GROUP", "group_a": "night", "group_b": "day", "analysis": "latest"})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -5,6 +5,7 @@ import (
 	"database/sql"
 	"encoding/csv"
 	"fmt"
+	"maps"
 	"os"
 	"path/filepath"
 	"slices"
@@ -46,6 +47,8 @@ type codebookFacts struct {
 	sessions        []string
 	text            map[string][]string // text covariate -> distinct values (nil: more than maxListed)
 	textCount       map[string]int
+	covariates      map[string]covariateDoc // participants.json entries
+	noSession       bool                    // some series has session_id '' (a cohort without sessions)
 }
 
 func loadCodebookFacts(ctx context.Context, conn *sql.Conn, docs []schema.ColumnDoc, analysis *int64) (*codebookFacts, error) {
@@ -62,6 +65,12 @@ func loadCodebookFacts(ctx context.Context, conn *sql.Conn, docs []schema.Column
 		return nil, err
 	}
 	f.states, f.regions, f.fisherZ = int(k.Int64), int(p.Int64), z.Bool
+	if err := conn.QueryRowContext(ctx, `SELECT count(*) > 0 FROM inputs WHERE session_id = '' AND (?::BIGINT IS NULL OR analysis_id = ?)`, id, id).Scan(&f.noSession); err != nil {
+		return nil, err
+	}
+	if f.covariates, err = covariateDocs(ctx, conn, analysis); err != nil {
+		return nil, err
+	}
 	rows, err := conn.QueryContext(ctx, `SELECT DISTINCT session_id FROM inputs
 		WHERE session_id <> '' AND (?::BIGINT IS NULL OR analysis_id = ?) ORDER BY 1 LIMIT `+strconv.Itoa(maxListed+1), id, id)
 	if err != nil {
@@ -153,7 +162,22 @@ func (f *codebookFacts) entry(d schema.ColumnDoc) []string {
 	switch {
 	case covariate:
 		unit = "as recorded in participants.tsv"
-		if typ == "text" {
+		if d.Unit != "" {
+			unit = d.Unit
+		}
+		switch {
+		case len(f.covariates[d.Column].levels) > 0:
+			// participants.json's Levels: the codes and their meanings.
+			lv := f.covariates[d.Column].levels
+			codes := slices.Sorted(maps.Keys(lv))
+			pairs := make([]string, len(codes))
+			for i, c := range codes {
+				pairs[i] = escapeValue(c + "=" + lv[c])
+			}
+			allowed, labels = valueList(codes), strings.Join(pairs, ";")
+		case typ == "boolean":
+			allowed = "true;false"
+		case typ == "text":
 			if n := f.textCount[d.Column]; n > maxListed {
 				label += fmt.Sprintf(" (%d distinct values)", n)
 			} else {
@@ -177,12 +201,24 @@ func (f *codebookFacts) entry(d schema.ColumnDoc) []string {
 	case name == "filtration_events.value" || name == "state_networks.mean_weight" || name == "state_centroids.weight" && !f.fisherZ:
 		allowed = "-1..1"
 	case d.Column == "session_id":
-		label += " (in CSV, '' is an empty cell)"
+		// '' is a value (the cohort has no sessions), never missing. In
+		// CSV it is an empty cell, which readers that guess types take for
+		// a missing value when the whole column is empty (R's read.csv
+		// types it logical NA, pandas NaN: from memory, neither is
+		// installed here); the codebook says so where the reader looks.
+		label += " ('' = no session: the cohort has one series per subject)"
 		if len(f.sessions) > 0 && len(f.sessions) <= maxListed {
 			allowed = valueList(f.sessions)
 		}
+		if f.noSession {
+			allowed = strings.TrimPrefix(valueList(f.sessions)+";''", ";")
+			labels = "''=no session"
+		}
 	}
 	missing := "none"
+	if d.Column == "session_id" && f.noSession {
+		missing = "none: an empty cell in CSV is the value '' (no session), not a missing value; read this column as text and keep empty cells as '' (R: read.csv(..., colClasses = c(session_id = \"character\")); pandas: read_csv(...).fillna({\"session_id\": \"\"}))"
+	}
 	if d.Nullable {
 		missing = "empty cell"
 		if d.Table == schema.Subjects {

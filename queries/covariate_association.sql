@@ -1,6 +1,6 @@
 -- name: covariate_association
 -- description: Pearson correlation of a numeric covariate with occupancy and dwell time per state, BH-adjusted across states.
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: covariate numeric_column -- numeric subjects column, e.g. a symptom score
 -- One row per state and measure (occupancy, 0-1; dwell_seconds). Subjects
 -- with a covariate value are used; a subject's sessions are averaged first,

@@ -5,6 +5,7 @@ import (
 	"database/sql"
 	"database/sql/driver"
 	"encoding/csv"
+	"encoding/json"
 	"fmt"
 	"io"
 	"os"
@@ -33,6 +34,9 @@ var units = map[string]string{
 	"dropped_analyses.name": "text", "dropped_analyses.dropped_at": "timestamp (UTC)", "dropped_analyses.rows_removed": "count (rows)",
 	"inputs.path": "path", "inputs.sha256": "hex digest", "inputs.timepoints": "count (time points)",
 	"inputs.regions": "count (regions)", "inputs.tr_seconds": "seconds", "inputs.tr_source": "text",
+	"inputs.window_points": "count (time points)", "inputs.step_points": "count (time points)",
+	"covariates.column_name": "text", "covariates.data_type": "DuckDB type name", "covariates.description": "text",
+	"covariates.units": "text", "covariates.levels": "JSON text",
 	"excluded_inputs.path": "path", "excluded_inputs.reason": "text",
 	"regions.region_index": "index (from 1)", "regions.column_index": "index (from 1)",
 	"regions.region_name": "text", "regions.dropped": "true/false",
@@ -164,7 +168,7 @@ func Export(ctx context.Context, conn *sql.Conn, o ExportOptions) ([]ExportedFil
 			return nil, err
 		}
 		out = append(out, f)
-		cols, err := tableColumns(ctx, conn, td)
+		cols, err := tableColumns(ctx, conn, td, analysis)
 		if err != nil {
 			return nil, err
 		}
@@ -222,10 +226,14 @@ func (s *staging) commit() error {
 
 // tableColumns returns the dictionary rows of a table, adding the subjects
 // table's covariate columns as the file has them.
-func tableColumns(ctx context.Context, conn *sql.Conn, td schema.TableDoc) ([]schema.ColumnDoc, error) {
+func tableColumns(ctx context.Context, conn *sql.Conn, td schema.TableDoc, analysis *int64) ([]schema.ColumnDoc, error) {
 	cols := slices.Clone(td.Columns)
 	if td.Name != schema.Subjects {
 		return cols, nil
+	}
+	docs, err := covariateDocs(ctx, conn, analysis)
+	if err != nil {
+		return nil, err
 	}
 	rows, err := conn.QueryContext(ctx, `SELECT column_name, data_type FROM information_schema.columns
 		WHERE table_name = 'subjects' AND column_name NOT IN ('analysis_id', 'subject_id') ORDER BY ordinal_position`)
@@ -238,10 +246,56 @@ func tableColumns(ctx context.Context, conn *sql.Conn, td schema.TableDoc) ([]sc
 		if err := rows.Scan(&n, &t); err != nil {
 			return nil, fmt.Errorf("queries: export: %w", err)
 		}
-		cols = append(cols, schema.ColumnDoc{Table: td.Name, Column: n, Type: t, Nullable: true,
-			Description: "covariate from participants.tsv (n/a and empty cells are NULL)"})
+		d := schema.ColumnDoc{Table: td.Name, Column: n, Type: t, Nullable: true,
+			Description: "covariate from participants.tsv (n/a and empty cells are NULL)"}
+		if doc, ok := docs[n]; ok {
+			if doc.description != "" {
+				d.Description = doc.description + " (participants.json; n/a and empty cells are NULL)"
+			}
+			d.Unit = doc.units
+		}
+		cols = append(cols, d)
 	}
 	return cols, rows.Err()
+}
+
+// covariateDoc is a covariates row: what participants.json said of a
+// column.
+type covariateDoc struct {
+	description, units string
+	levels             map[string]string
+}
+
+// covariateDocs reads the covariates table for the exported analyses (all
+// when analysis is nil); where analyses differ, the newest one's entry is
+// kept.
+func covariateDocs(ctx context.Context, conn *sql.Conn, analysis *int64) (map[string]covariateDoc, error) {
+	var id sql.NullInt64
+	if analysis != nil {
+		id = sql.NullInt64{Int64: *analysis, Valid: true}
+	}
+	rows, err := conn.QueryContext(ctx, `SELECT column_name, arg_max(coalesce(description, ''), analysis_id),
+			arg_max(coalesce(units, ''), analysis_id), arg_max(coalesce(levels, ''), analysis_id)
+		FROM covariates WHERE ?::BIGINT IS NULL OR analysis_id = ? GROUP BY column_name`, id, id)
+	if err != nil {
+		return nil, fmt.Errorf("queries: export: covariates: %w", err)
+	}
+	defer rows.Close()
+	out := map[string]covariateDoc{}
+	for rows.Next() {
+		var name, levels string
+		var d covariateDoc
+		if err := rows.Scan(&name, &d.description, &d.units, &levels); err != nil {
+			return nil, fmt.Errorf("queries: export: covariates: %w", err)
+		}
+		if levels != "" {
+			if err := json.Unmarshal([]byte(levels), &d.levels); err != nil {
+				return nil, fmt.Errorf("queries: export: covariates.levels of %q: %w", name, err)
+			}
+		}
+		out[name] = d
+	}
+	return out, rows.Err()
 }
 
 // slice is one bounded read of a table: a WHERE clause and its arguments.
@@ -446,6 +500,9 @@ func writeDictionary(docs []schema.ColumnDoc, o ExportOptions, st *staging) (Exp
 	header := []string{"table", "column", "type", "nullable", "meaning", "unit"}
 	record := func(d schema.ColumnDoc) []string {
 		unit := Unit(d.Table, d.Column)
+		if d.Unit != "" {
+			unit = d.Unit
+		}
 		if unit == "" && d.Table == schema.Subjects {
 			unit = "as recorded in participants.tsv"
 		}

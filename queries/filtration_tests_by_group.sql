@@ -1,6 +1,6 @@
 -- name: filtration_tests_by_group
 -- description: Per state and dimension, a permutation test between the two groups' core Betti curves (the group test of topology, not confounded by dwell time) and, as a description only, the KS distance between the groups' pooled filtration events.
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group

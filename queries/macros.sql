@@ -41,13 +41,47 @@ CREATE OR REPLACE TEMP MACRO subject_covariate(aid, column_name) AS TABLE
 
 -- subject_groups(analysis, column_name, group_a, group_b): the subjects whose
 -- column_name value (compared as text) is group_a or group_b:
--- (subject_id, side, group_value) with side 'a' or 'b'.
+-- (subject_id, side, group_value) with side 'a' or 'b'. A group value that
+-- no subject of the analysis has is an error listing the values present in
+-- the column (and the one that differs only in case, when there is one),
+-- never an empty group: a typo must not read as "n = 0".
 CREATE OR REPLACE TEMP MACRO subject_groups(aid, column_name, group_a, group_b) AS TABLE
+    WITH cov AS (
+        SELECT subject_id, value FROM subject_covariate(aid, column_name)
+    ),
+    present AS (
+        SELECT coalesce(list(DISTINCT value ORDER BY value), []) AS vals FROM cov
+    ),
+    missing AS (
+        SELECT vals,
+               CASE WHEN NOT list_contains(vals, group_a) THEN 'group_a'
+                    WHEN NOT list_contains(vals, group_b) THEN 'group_b' END AS which,
+               CASE WHEN NOT list_contains(vals, group_a) THEN group_a
+                    WHEN NOT list_contains(vals, group_b) THEN group_b END AS given
+        FROM present
+    ),
+    checked AS (
+        SELECT CASE
+            WHEN group_a IS NULL OR group_b IS NULL
+                THEN error('subject_groups: group_a and group_b must both be given')
+            WHEN group_a = group_b
+                THEN error('subject_groups: group_a and group_b are both ' || group_a)
+            WHEN len(vals) = 0
+                THEN error('subject_groups: column ' || column_name
+                           || ' has no values for the subjects of analysis ' || aid)
+            WHEN which IS NOT NULL
+                THEN error('subject_groups: ' || which || ' value ''' || given
+                           || ''' matches no subject of analysis ' || aid || ' in column ' || column_name
+                           || '; the values there are: ' || array_to_string(vals[1:20], ', ')
+                           || CASE WHEN len(vals) > 20 THEN ', ... (' || len(vals) || ' values)' ELSE '' END
+                           || coalesce(' (did you mean '''
+                                       || list_filter(vals, v -> lower(v) = lower(given))[1] || '''?)', ''))
+            ELSE true
+        END AS ok
+        FROM missing
+    )
     SELECT subject_id,
            CASE WHEN value = group_a THEN 'a' ELSE 'b' END AS side,
            value AS group_value
-    FROM subject_covariate(aid, column_name)
-    WHERE value IN (group_a, group_b)
-      AND CASE WHEN group_a = group_b
-               THEN error('subject_groups: group_a and group_b are both ' || group_a)
-               ELSE true END;
+    FROM cov, checked
+    WHERE ok AND value IN (group_a, group_b);

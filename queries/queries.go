@@ -40,7 +40,9 @@ const (
 	// TypeNumber binds a DOUBLE.
 	TypeNumber ParamType = "number"
 	// TypeAnalysis accepts an analysis id, an analysis name, or "latest"
-	// (the highest analysis_id) and binds the id as INTEGER.
+	// (the highest analysis_id), and binds the id as INTEGER. Left out,
+	// it is the warehouse's only analysis; with several, a refusal that
+	// lists them (FindAnalysis).
 	TypeAnalysis ParamType = "analysis"
 	// TypeColumn names a covariate column of the subjects table; the name
 	// is checked against the table and bound as VARCHAR (queries look the

@@ -80,12 +80,7 @@ var ErrNoAnalysis = errors.New("no such analysis")
 // key is bound as text. Otherwise a key q does not declare, or a declared
 // parameter without a default and without a value, is a *ParamError.
 func Bind(ctx context.Context, conn *sql.Conn, q *Query, values map[string]string) (map[string]any, error) {
-	params := q.Params
-	if len(params) == 0 {
-		for _, k := range slices.Sorted(maps.Keys(values)) {
-			params = append(params, Param{Name: k, Type: TypeText})
-		}
-	}
+	params := EffectiveParams(q, values)
 	declared := make([]string, len(params))
 	for i, p := range params {
 		declared[i] = p.Name
@@ -102,7 +97,9 @@ func Bind(ctx context.Context, conn *sql.Conn, q *Query, values map[string]strin
 	for _, p := range params {
 		text, ok := values[p.Name]
 		if !ok {
-			if !p.HasDefault {
+			// An analysis left out is the warehouse's only analysis
+			// (FindAnalysis refuses when there are several).
+			if !p.HasDefault && p.Type != TypeAnalysis {
 				return nil, &ParamError{Param: p.Name, Err: fmt.Errorf("required by %s: give --param %s=VALUE (%s)", queryLabel(q), p.Name, p.Description)}
 			}
 			text = p.Default
@@ -113,12 +110,40 @@ func Bind(ctx context.Context, conn *sql.Conn, q *Query, values map[string]strin
 		}
 		// The name is checked by nameRe (header parser or above), so it is
 		// a plain identifier; only the value is a parameter.
-		if _, err := conn.ExecContext(ctx, "SET VARIABLE "+p.Name+" = ?", v); err != nil {
+		set := "SET VARIABLE " + p.Name + " = ?"
+		if p.Type == TypeAnalysis {
+			set = "SET VARIABLE " + p.Name + " = CAST(? AS INTEGER)" // analysis_id's type
+		}
+		if _, err := conn.ExecContext(ctx, set, v); err != nil {
 			return nil, fmt.Errorf("queries: set %s: %w", p.Name, err)
 		}
 		bound[p.Name] = v
 	}
 	return bound, nil
+}
+
+// EffectiveParams returns the parameters Bind binds for q given values:
+// q's declared parameters; or, for SQL without a header, every given key as
+// text, except that "analysis" is always TypeAnalysis (an id, a name or
+// latest, bound as the INTEGER id) and is added when the SQL reads
+// getvariable('analysis') without it being given (then it is the only
+// analysis of the warehouse, or a refusal listing them).
+func EffectiveParams(q *Query, values map[string]string) []Param {
+	if len(q.Params) > 0 {
+		return q.Params
+	}
+	var params []Param
+	for _, k := range slices.Sorted(maps.Keys(values)) {
+		t := TypeText
+		if k == "analysis" {
+			t = TypeAnalysis
+		}
+		params = append(params, Param{Name: k, Type: t})
+	}
+	if _, given := values["analysis"]; !given && slices.Contains(Variables(q.SQL), "analysis") {
+		params = append(params, Param{Name: "analysis", Type: TypeAnalysis})
+	}
+	return params
 }
 
 func queryLabel(q *Query) string {
@@ -180,46 +205,6 @@ func convert(ctx context.Context, conn *sql.Conn, p Param, text string) (any, er
 	return nil, perr("unknown type %q", p.Type)
 }
 
-// ResolveAnalysis turns "latest", an analysis id or an analysis name into
-// the analysis_id. An analysis that is not there is an error wrapping
-// ErrNoAnalysis that lists the analyses present.
-func ResolveAnalysis(ctx context.Context, conn *sql.Conn, v string) (int64, error) {
-	v = strings.TrimSpace(v)
-	var id sql.NullInt64
-	var err error
-	switch n, perr := strconv.ParseInt(v, 10, 64); {
-	case v == "latest":
-		err = conn.QueryRowContext(ctx, `SELECT max(analysis_id) FROM analyses`).Scan(&id)
-	case perr == nil:
-		err = conn.QueryRowContext(ctx, `SELECT max(analysis_id) FROM analyses WHERE analysis_id = ?`, n).Scan(&id)
-	default:
-		err = conn.QueryRowContext(ctx, `SELECT max(analysis_id) FROM analyses WHERE name = ?`, v).Scan(&id)
-	}
-	if err != nil {
-		return 0, fmt.Errorf("queries: find analysis: %w", err)
-	}
-	if id.Valid {
-		return id.Int64, nil
-	}
-	rows, err := conn.QueryContext(ctx, `SELECT analysis_id || ' (' || name || ')' FROM analyses ORDER BY analysis_id`) // names escaped below
-	if err != nil {
-		return 0, fmt.Errorf("queries: %w", err)
-	}
-	defer rows.Close()
-	var have []string
-	for rows.Next() {
-		var s string
-		if err := rows.Scan(&s); err != nil {
-			return 0, fmt.Errorf("queries: %w", err)
-		}
-		have = append(have, schema.Printable(s))
-	}
-	if len(have) == 0 {
-		return 0, fmt.Errorf("%w: the warehouse holds no analyses yet", ErrNoAnalysis)
-	}
-	return 0, fmt.Errorf("%w %q; the warehouse holds: %s (give an id, a name or latest)", ErrNoAnalysis, v, strings.Join(have, ", "))
-}
-
 // subjectColumn checks that the subjects table has a covariate column
 // called name (exactly, or else ignoring case, as DuckDB does) and returns
 // its stored spelling.
@@ -279,7 +264,32 @@ func Run(ctx context.Context, conn *sql.Conn, q *Query, values map[string]string
 	}
 	rows, err := conn.QueryContext(ctx, last)
 	if err != nil {
+		if pe := MacroParamError(err); pe != nil {
+			return nil, pe
+		}
 		return nil, fmt.Errorf("queries: %s: %w", queryLabel(q), err)
 	}
 	return rows, nil
+}
+
+// macroErrorPrefixes start the messages the macros of MacrosFile raise
+// with error() for a parameter value that cannot be used (a group value no
+// subject has, two equal groups).
+var macroErrorPrefixes = []string{"subject_groups: "}
+
+// MacroParamError returns err as a *ParamError when it is a macro's
+// refusal of a parameter value (see macroErrorPrefixes), with DuckDB's
+// "Invalid Input Error: " prefix removed; otherwise nil. The command
+// reports such an error as a usage error.
+func MacroParamError(err error) error {
+	if err == nil {
+		return nil
+	}
+	msg := err.Error()
+	for _, p := range macroErrorPrefixes {
+		if i := strings.Index(msg, p); i >= 0 {
+			return &ParamError{Err: errors.New(msg[i:])}
+		}
+	}
+	return nil
 }

@@ -1,6 +1,6 @@
 -- name: state_pairs_ks
 -- description: Exact KS test between every pair of states on the filtration events of the group-level state centroid networks.
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- One row per pair of states (state_a < state_b) and dimension (0: the p-1
 -- maximum-spanning-tree weights, beta0; 1: the other edges, beta1) of the
 -- k-means centroids (state_centroids), so both samples have the same size.

@@ -1,6 +1,6 @@
 -- name: subject_features
 -- description: One row per subject (and session) with every covariate and the per-state features, for R, Stata, SPSS or pandas.
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- Columns: subject_id, session_id ('' without sessions), every covariate
 -- of participants.tsv, the subject's dynamics (n_windows, n_transitions,
 -- switch_rate, states_visited), then per state NN (two digits, from 01):

@@ -1,6 +1,6 @@
 -- name: transitions_by_group
 -- description: Transition matrix of each group: mean over subjects of the row-normalised transition probabilities.
--- param: analysis analysis = latest -- analysis id or name; latest is the newest
+-- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group

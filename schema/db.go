@@ -17,8 +17,10 @@ import (
 // is layout 1 with the tables and nullable columns added since (all in
 // v1.sql); Upgrade brings a layout-1 file to it in place. Layout 3 adds
 // core_betti_curves and state_networks.core_timepoints (docs/methods.md §7);
-// Upgrade brings a layout-1 or -2 file to it the same way.
-const Version = 3
+// layout 4 adds inputs.window_points and inputs.step_points (the per-series
+// window of --window-seconds) and the covariates table (participants.json).
+// Upgrade brings a layout-1, -2 or -3 file to it the same way.
+const Version = 4
 
 //go:embed v1.sql
 var ddlV1 string

@@ -14,6 +14,9 @@ type ColumnDoc struct {
 	Type        string
 	Nullable    bool
 	Description string
+	// Unit overrides the unit of a column whose unit the DDL cannot know
+	// (a covariate's Units from participants.json); "" otherwise.
+	Unit string
 }
 
 // TableDoc is one table with its columns, in DDL order.

@@ -46,14 +46,16 @@ const (
 	StateNetworks   = "state_networks"
 	CoreBettiCurves = "core_betti_curves"
 	Subjects        = "subjects"
+	Covariates      = "covariates"
 	Analyses        = "analyses"
 )
 
 func init() {
 	id := []arrow.Field{f("analysis_id", i32), f("subject_id", str), f("session_id", str)}
 	def(Inputs, append(id[:3:3], f("path", str), f("sha256", str), f("timepoints", i32),
-		f("regions", i32), f("tr_seconds", f64), f("tr_source", str))...)
+		f("regions", i32), f("tr_seconds", f64), f("tr_source", str), nullable("window_points", i32), nullable("step_points", i32))...)
 	def(ExcludedInputs, append(id[:3:3], f("path", str), f("reason", str))...)
+	def(Covariates, f("analysis_id", i32), f("column_name", str), f("data_type", str), nullable("description", str), nullable("units", str), nullable("levels", str))
 	def(Regions, f("analysis_id", i32), nullable("region_index", i32), f("column_index", i32), f("region_name", str), f("dropped", bln))
 	def(Elbow, f("analysis_id", i32), f("k", i32), f("wcss", f64), f("chosen", bln),
 		f("chord_pick", bln), f("second_diff_pick", bln), nullable("gap_log_wcss", f64), nullable("gap_ref_log_wcss", f64),

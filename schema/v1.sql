@@ -14,7 +14,7 @@ CREATE TABLE IF NOT EXISTS analyses (
     created_at   TIMESTAMP NOT NULL,  -- when the ingest committed (UTC)
     tool_version VARCHAR NOT NULL,    -- topostate version that wrote it
     parameters   JSON NOT NULL,       -- every ingest option, as JSON
-    input_dir    VARCHAR NOT NULL,    -- cohort folder read
+    input_dir    VARCHAR NOT NULL,    -- cohort folder read, as an absolute path
     n_subjects   INTEGER NOT NULL,    -- series files analysed (subject x session)
     n_regions    INTEGER NOT NULL,    -- regions per network after any drop
     n_states     INTEGER NOT NULL,    -- number of connectivity states k
@@ -38,7 +38,9 @@ CREATE TABLE IF NOT EXISTS inputs (
     timepoints  INTEGER NOT NULL, -- rows of the series (T)
     regions     INTEGER NOT NULL, -- columns of the series (p) as read
     tr_seconds  DOUBLE NOT NULL,  -- repetition time used (s)
-    tr_source   VARCHAR NOT NULL  -- where the TR came from: option or sidecar path
+    tr_source   VARCHAR NOT NULL, -- where the TR came from: option or sidecar path
+    window_points INTEGER,        -- sliding-window width used for this series, in its time points (--window, or round(--window-seconds / tr_seconds)); NULL for analyses written before layout 4
+    step_points   INTEGER         -- window step used for this series, in its time points (--step, or round(--step-seconds / tr_seconds)); NULL for analyses written before layout 4
 );
 
 CREATE TABLE IF NOT EXISTS excluded_inputs (
@@ -53,6 +55,15 @@ CREATE TABLE IF NOT EXISTS subjects (
     analysis_id INTEGER NOT NULL, -- analysis whose participants sheet this row came from
     subject_id  VARCHAR NOT NULL  -- participant_id from participants.tsv
     -- one further column per participants.tsv covariate is added at ingest
+);
+
+CREATE TABLE IF NOT EXISTS covariates (
+    analysis_id INTEGER NOT NULL, -- analysis whose participants sheet had the column
+    column_name VARCHAR NOT NULL, -- covariate column of the subjects table
+    data_type   VARCHAR NOT NULL, -- type read from its values: BIGINT, DOUBLE, BOOLEAN (true/false), DATE (YYYY-MM-DD) or VARCHAR
+    description VARCHAR,          -- Description (else LongName) from participants.json; NULL when it has none
+    units       VARCHAR,          -- Units from participants.json; NULL when it has none
+    levels      VARCHAR           -- Levels from participants.json as a JSON object of value -> meaning; NULL when it has none
 );
 
 CREATE TABLE IF NOT EXISTS regions (

@@ -59,7 +59,7 @@ var ErrAnalysisExists = errors.New("an analysis with this name already exists")
 
 // CheckAnalysisName reports why name cannot name a new analysis, or nil.
 // Commands take an analysis as an id, a name or the keyword latest
-// (queries.ResolveAnalysis), so a name that reads as an id or a keyword
+// (queries.FindAnalysis), so a name that reads as an id or a keyword
 // would be found differently by different commands; surrounding spaces are
 // trimmed when a name is looked up, and control characters would print as
 // terminal commands. An empty name means the default, analysis-<id>.

@@ -125,6 +125,13 @@ func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	return exitFailure
 }
 
+// analysisFlag is the --analysis option of query, plot, report, export and
+// drop: one spelling and one rule (queries.FindAnalysis) everywhere. left
+// says what leaving it out means for the command.
+func analysisFlag(left string) *cli.StringFlag {
+	return &cli.StringFlag{Name: "analysis", Usage: "the analysis: an `ID`, a name, or latest (the newest); " + left}
+}
+
 // openRead opens a warehouse read-only and checks its layout.
 func openRead(ctx context.Context, path string) (*sqlDB, error) {
 	db, err := schema.Open(path, true, nil)

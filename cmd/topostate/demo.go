@@ -8,6 +8,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"text/tabwriter"
@@ -79,8 +80,9 @@ func demoCommand() *cli.Command {
 			fmt.Fprintf(out, "1. simulated the cohort into %s\n", cohort)
 			o := ingest.Defaults()
 			o.Input, o.Analysis, o.Seed = cohort, "ridge-demo", 11
+			self, built := selfCommand(os.Args[0])
 			w := ingest.WindowFor(demoTR, o.MinFreq)
-			fmt.Fprintf(out, "2. topostate ingest --input %s --db %s --analysis %s --seed %d\n"+
+			fmt.Fprintf(out, "2. "+self+" ingest --input %s --db %s --analysis %s --seed %d\n"+
 				"   every other setting at its default: windows of %d time points (%.1f s >= 1/--min-freq = %g s), k scanned over %d..%d by %s\n\n",
 				cohort, dbPath, o.Analysis, o.Seed, w, float64(w)*demoTR, 1/o.MinFreq, o.StatesMin, o.StatesMax, o.KRule)
 			sum, err := runIngest(c, o, dbPath, out)
@@ -95,10 +97,13 @@ func demoCommand() *cli.Command {
 			}
 			db, a := shellWord(dbPath), o.Analysis
 			fmt.Fprintln(out, "\nNext:")
-			fmt.Fprintf(out, "  topostate info   --db %s\n", db)
-			fmt.Fprintf(out, "  topostate query  --db %s state_dwell_by_group --param group_a=practice --param group_b=waitlist\n", db)
-			fmt.Fprintf(out, "  topostate plot   --db %s --analysis %s --out %s\n", db, a, shellWord(filepath.Join(dir, "figures")))
-			fmt.Fprintf(out, "  topostate report --db %s --analysis %s --out %s\n", db, a, shellWord(filepath.Join(dir, "report.html")))
+			if !built {
+				fmt.Fprintln(out, "  (topostate ran through 'go run'; 'go build -o topostate ./cmd/topostate' makes a program you can call as ./topostate)")
+			}
+			fmt.Fprintf(out, "  %s info   --db %s\n", self, db)
+			fmt.Fprintf(out, "  %s query  --db %s state_dwell_by_group --param group_a=practice --param group_b=waitlist\n", self, db)
+			fmt.Fprintf(out, "  %s plot   --db %s --analysis %s --out %s\n", self, db, a, shellWord(filepath.Join(dir, "figures")))
+			fmt.Fprintf(out, "  %s report --db %s --analysis %s --out %s\n", self, db, a, shellWord(filepath.Join(dir, "report.html")))
 			fmt.Fprintln(out, "  (or open the file in DuckDB and ask your own questions in SQL)")
 			fmt.Fprintln(out)
 			fmt.Fprintln(out, caution)
@@ -207,4 +212,23 @@ func scalarInt(ctx context.Context, db *sql.DB, q string, args ...any) (int, err
 	var n int
 	err := db.QueryRowContext(ctx, q, args...).Scan(&n)
 	return n, err
+}
+
+// selfCommand is how the user can call this program again, for the lines
+// the demo prints: the name when the PATH finds this program under it, the
+// path as invoked otherwise, and "go run ./cmd/topostate" when the program
+// is a temporary build of 'go run' (built is false then).
+func selfCommand(arg0 string) (cmd string, built bool) {
+	if strings.Contains(filepath.ToSlash(arg0), "/go-build") {
+		return "go run ./cmd/topostate", false
+	}
+	base := filepath.Base(arg0)
+	if found, err := exec.LookPath(base); err == nil {
+		a, _ := filepath.Abs(arg0)
+		b, _ := filepath.Abs(found)
+		if a == b || base == arg0 {
+			return base, true
+		}
+	}
+	return shellWord(arg0), true
 }

@@ -3,7 +3,6 @@ package main
 import (
 	"bufio"
 	"context"
-	"database/sql"
 	"errors"
 	"fmt"
 	"io"
@@ -14,6 +13,7 @@ import (
 
 	"github.com/urfave/cli/v2"
 
+	"github.com/topostate/topostate/queries"
 	"github.com/topostate/topostate/schema"
 )
 
@@ -24,16 +24,16 @@ func dropCommand() *cli.Command {
 		ArgsUsage: " ",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE`"},
-			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis to remove (see 'topostate info')"},
+			analysisFlag("required (see 'topostate info')"),
 			&cli.BoolFlag{Name: "yes", Aliases: []string{"y"}, Usage: "do not ask for confirmation"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {
 				return usagef("drop takes no arguments (got %q); name the analysis with --analysis", c.Args().First())
 			}
-			name, path := c.String("analysis"), c.String("db")
-			if name == "" {
-				return usagef("drop: --analysis NAME is required; 'topostate info --db %s' lists the analyses", path)
+			given, path := c.String("analysis"), c.String("db")
+			if given == "" {
+				return usagef("drop: --analysis is required (an id, a name or latest); 'topostate info --db %s' lists the analyses", path)
 			}
 			if _, err := os.Stat(path); errors.Is(err, fs.ErrNotExist) {
 				return fmt.Errorf("drop: %s does not exist", path)
@@ -45,12 +45,12 @@ func dropCommand() *cli.Command {
 			}
 			// Look first with a read-only handle, so the write lock is not
 			// held while a person reads the question.
-			id, series, err := findAnalysis(c.Context, path, name)
+			id, name, series, err := findAnalysis(c.Context, path, given)
 			if err != nil {
 				return err
 			}
 			if !c.Bool("yes") {
-				fmt.Fprintf(c.App.ErrWriter, "drop analysis %q (%d series) from %s? [y/N] ", name, series, path)
+				fmt.Fprintf(c.App.ErrWriter, "drop analysis %d (%q, %d series) from %s? [y/N] ", id, name, series, path)
 				if !confirmed(c.App.Reader) {
 					fmt.Fprintln(c.App.ErrWriter)
 					return errors.New("drop: not confirmed; nothing was removed (answer y, or pass --yes)")
@@ -61,6 +61,15 @@ func dropCommand() *cli.Command {
 				return err
 			}
 			fmt.Fprintf(c.App.Writer, "dropped analysis %q (id %d): %d rows from %d tables of %s\n", name, id, rows, tables, path)
+			// DuckDB does not shrink a file when rows are deleted: the
+			// checkpoint frees their blocks for later ingests, and VACUUM
+			// does not return them to the file system; a copy does.
+			if st, err := os.Stat(path); err == nil {
+				fmt.Fprintf(c.App.Writer, "the file keeps its size (%s): DuckDB reuses the freed space for later ingests but does not shrink the file;\n"+
+					"to shrink it, copy the warehouse into a new file with DuckDB's COPY FROM DATABASE:\n"+
+					"  duckdb -c \"ATTACH %s AS old (READ_ONLY); ATTACH %s AS new; COPY FROM DATABASE old TO new\"\n",
+					byteSize(st.Size()), sqlString(path), sqlString(path+".compact.duckdb"))
+			}
 			return nil
 		},
 	}
@@ -73,37 +82,25 @@ func confirmed(r io.Reader) bool {
 	return a == "y" || a == "yes"
 }
 
-// findAnalysis returns the id and series count of the analysis called name.
-func findAnalysis(ctx context.Context, path, name string) (id, series int, err error) {
+// findAnalysis resolves v (an id, a name or latest: queries.FindAnalysis)
+// and returns the analysis's id, name and series count.
+func findAnalysis(ctx context.Context, path, v string) (id int, name string, series int, err error) {
 	db, err := openRead(ctx, path)
 	if err != nil {
-		return 0, 0, err
+		return 0, "", 0, err
 	}
 	defer db.Close()
-	err = db.QueryRowContext(ctx, `SELECT analysis_id, n_subjects FROM analyses WHERE name = ?`, name).Scan(&id, &series)
-	if errors.Is(err, sql.ErrNoRows) {
-		var names []string
-		rows, qerr := db.QueryContext(ctx, `SELECT name FROM analyses ORDER BY analysis_id`)
-		if qerr != nil {
-			return 0, 0, fmt.Errorf("drop: %w", qerr)
-		}
-		defer rows.Close()
-		for rows.Next() {
-			var n string
-			if err := rows.Scan(&n); err != nil {
-				return 0, 0, fmt.Errorf("drop: %w", err)
-			}
-			names = append(names, fmt.Sprintf("%q", n))
-		}
-		if len(names) == 0 {
-			return 0, 0, fmt.Errorf("drop: %s holds no analyses; nothing to remove", path)
-		}
-		return 0, 0, fmt.Errorf("drop: no analysis named %q in %s; it holds %s", name, path, strings.Join(names, ", "))
+	a, err := queries.FindAnalysis(ctx, db, v)
+	if errors.Is(err, queries.ErrNoAnalysis) {
+		return 0, "", 0, usageError{fmt.Errorf("drop: %s: %w", path, err)}
 	}
 	if err != nil {
-		return 0, 0, fmt.Errorf("drop: %w", err)
+		return 0, "", 0, fmt.Errorf("drop: %w", err)
 	}
-	return id, series, nil
+	if err := db.QueryRowContext(ctx, `SELECT n_subjects FROM analyses WHERE analysis_id = ?`, a.ID).Scan(&series); err != nil {
+		return 0, "", 0, fmt.Errorf("drop: %w", err)
+	}
+	return int(a.ID), a.Name, series, nil
 }
 
 // dropAnalysis deletes every row carrying analysis_id = id, from every table
@@ -182,3 +179,14 @@ func upgradeIfOld(c *cli.Context, path string) error {
 	_, err = upgradeFile(c, path)
 	return err
 }
+
+// byteSize writes a file size in MiB (or bytes when small).
+func byteSize(n int64) string {
+	if n < 1<<20 {
+		return fmt.Sprintf("%d bytes", n)
+	}
+	return fmt.Sprintf("%.1f MiB", float64(n)/(1<<20))
+}
+
+// sqlString quotes s as an SQL string literal.
+func sqlString(s string) string { return "'" + strings.ReplaceAll(s, "'", "''") + "'" }

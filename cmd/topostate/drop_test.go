@@ -48,12 +48,12 @@ func TestDrop(t *testing.T) {
 		stderr []string
 	}{
 		{"answer n", []string{"--analysis", "second"}, "n\n", 1,
-			[]string{`drop analysis "second" (3 series) from`, "[y/N]", "not confirmed; nothing was removed"}},
+			[]string{`drop analysis 2 ("second", 3 series) from`, "[y/N]", "not confirmed; nothing was removed"}},
 		{"no answer", []string{"--analysis", "second"}, "", 1, []string{"[y/N]", "not confirmed"}},
 		{"answer yess", []string{"--analysis", "second"}, "yess\n", 1, []string{"not confirmed"}},
-		{"unknown name", []string{"--analysis", "third", "--yes"}, "", 1,
-			[]string{`no analysis named "third"`, `it holds "baseline", "second"`}},
-		{"no name", []string{"--yes"}, "", 2, []string{"--analysis NAME is required"}},
+		{"unknown name", []string{"--analysis", "third", "--yes"}, "", 2,
+			[]string{`no such analysis "third"`, `holds: 1 ("baseline"), 2 ("second")`}},
+		{"no name", []string{"--yes"}, "", 2, []string{"--analysis is required"}},
 		{"stray argument", []string{"--analysis", "second", "--yes", "now"}, "", 2, []string{"drop takes no arguments"}},
 	}
 	db, rows2 := twoAnalyses(t)

@@ -28,7 +28,8 @@ func infoCommand() *cli.Command {
 			rows, err := db.QueryContext(c.Context, `
 				SELECT analysis_id, name, strftime(created_at, '%Y-%m-%d %H:%M'), tool_version, n_subjects,
 				       n_regions, n_states, n_windows, fit_windows,
-				       parameters->>'window', parameters->>'step', parameters->>'taper', parameters->>'fisher_z',
+				       CASE WHEN (parameters->>'window_seconds')::DOUBLE > 0 THEN (parameters->>'window_seconds') || 's' ELSE parameters->>'window' END,
+				       CASE WHEN (parameters->>'step_seconds')::DOUBLE > 0 THEN (parameters->>'step_seconds') || 's' ELSE parameters->>'step' END, parameters->>'taper', parameters->>'fisher_z',
 				       parameters->>'seed', input_dir,
 				       (SELECT count(*) FROM excluded_inputs e WHERE e.analysis_id = a.analysis_id)
 				FROM analyses a ORDER BY analysis_id`)

@@ -21,12 +21,14 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "cohort `FOLDER`: participants.tsv and sub-<label>[_ses-<label>]_..._timeseries.tsv|csv|npy files (or _bold.nii[.gz] with --atlas)"},
 		&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (created when missing)"},
 		&cli.StringFlag{Name: "analysis", Usage: "`NAME` of this analysis in the warehouse (default analysis-<id>)"},
-		&cli.Float64Flag{Name: "tr", Usage: "repetition time in `SECONDS`; default: RepetitionTime from each file's JSON sidecar, else a NIfTI header's pixdim[4]"},
+		&cli.Float64Flag{Name: "tr", DefaultText: "each file's sidecar", Usage: fmt.Sprintf("repetition time in `SECONDS` (%g-%g) for every file, overriding sidecars; default: RepetitionTime from each file's JSON sidecar, else a NIfTI header's pixdim[4]", ingest.MinTR, ingest.MaxTR)},
 		&cli.StringFlag{Name: "atlas", Usage: "label image `FILE` (.nii or .nii.gz) on the grid of the sub-<label>_..._bold.nii[.gz] images; each label's voxels are averaged into one region"},
 		&cli.StringFlag{Name: "atlas-labels", Usage: "`TSV` of label<TAB>name naming the atlas's regions (default label_<n>); also names the columns of .npy arrays, in ascending label order"},
 		&cli.IntFlag{Name: "window", Value: d.Window, DefaultText: "from --min-freq", Usage: "sliding-window width in `N` time points; by default the fewest points spanning 1/--min-freq seconds at the cohort's shortest TR (a window shorter than the slowest period kept lets that frequency alone swing the correlations: Leonardi & Van De Ville 2015)"},
 		&cli.Float64Flag{Name: "min-freq", Value: d.MinFreq, Usage: "slowest frequency the series keep after high-pass filtering, in `HZ`; sets the default window (0.01 Hz, the usual cutoff: 100 s windows)"},
 		&cli.IntFlag{Name: "step", Value: d.Step, Usage: "window step in `N` time points (1: every window; the fitting sample thins the overlap)"},
+		&cli.Float64Flag{Name: "window-seconds", DefaultText: "use --window", Usage: "sliding-window width in `SECONDS` instead of --window: each series gets round(SECONDS / its TR) time points (for a cohort of mixed TRs; recorded per series in inputs.window_points)"},
+		&cli.Float64Flag{Name: "step-seconds", DefaultText: "use --step", Usage: "window step in `SECONDS` with --window-seconds: round(SECONDS / TR) time points per series, at least 1"},
 		&cli.StringFlag{Name: "taper", Value: d.Taper, Usage: "window weights `MODE`: none (rectangle) or gauss (rectangle convolved with a Gaussian)"},
 		&cli.Float64Flag{Name: "taper-sigma", Value: d.TaperSD, DefaultText: "window/10", Usage: "Gaussian sigma of the taper, in `N` time points; by default a tenth of the window, so the outer fifth at each end is tapered and the middle three fifths keep full weight"},
 		&cli.BoolFlag{Name: "detrend", Usage: "remove a linear trend from each region before windowing"},
@@ -65,10 +67,22 @@ func ingestFlags() []cli.Flag {
 	}
 }
 
+// checkWindowFlags refuses a window given both in time points and in
+// seconds (and a step likewise).
+func checkWindowFlags(c *cli.Context) error {
+	if c.IsSet("window") && c.IsSet("window-seconds") {
+		return usagef("give the window once: --window N (time points) or --window-seconds S, not both")
+	}
+	if c.IsSet("step") && c.IsSet("step-seconds") {
+		return usagef("give the step once: --step N (time points) or --step-seconds S, not both")
+	}
+	return nil
+}
+
 func ingestOptions(c *cli.Context) ingest.Options {
 	return ingest.Options{
 		Input: c.String("input"), TR: c.Float64("tr"), Atlas: c.String("atlas"), AtlasLabels: c.String("atlas-labels"),
-		Window: c.Int("window"), MinFreq: c.Float64("min-freq"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
+		Window: c.Int("window"), MinFreq: c.Float64("min-freq"), Step: c.Int("step"), WindowSeconds: c.Float64("window-seconds"), StepSeconds: c.Float64("step-seconds"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
 		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),
 		KRule: c.String("k-rule"), GapReferences: c.Int("gap-references"), GapWindows: c.Int("gap-windows"),
@@ -85,7 +99,7 @@ func ingestOptions(c *cli.Context) ingest.Options {
 // knows: an explicit --tr 0 (Options.TR 0 means "read each file's TR").
 func checkOptions(c *cli.Context, o ingest.Options) error {
 	if c.IsSet("tr") && o.TR == 0 {
-		return usagef("--tr 0: %v; leave --tr out to read RepetitionTime from each file's sidecar", ingest.CheckTR(0))
+		return usagef("%v; leave --tr out to read RepetitionTime from each file's sidecar", ingest.CheckTR(0, "--tr 0"))
 	}
 	if err := checkAnalysisFlag(c); err != nil {
 		return err
@@ -117,6 +131,9 @@ func ingestCommand() *cli.Command {
 				return usagef("ingest takes no arguments (got %q); name the cohort with --input", c.Args().First())
 			}
 			o := ingestOptions(c)
+			if err := checkWindowFlags(c); err != nil {
+				return err
+			}
 			if err := checkOptions(c, o); err != nil {
 				return err
 			}

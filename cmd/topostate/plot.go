@@ -18,11 +18,11 @@ func plotCommand() *cli.Command {
 		ArgsUsage: " ",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
-			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis (default: the only one in the file)"},
+			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.StringFlag{Name: "out", Usage: "`FOLDER` for the image files (created when missing)"},
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
-			&cli.StringFlag{Name: "format", Value: "png,svg", Usage: "image formats, comma-separated: png, svg"},
-			&cli.IntFlag{Name: "dpi", Value: 144, Usage: "resolution of the PNG files, dots per inch"},
+			&cli.StringFlag{Name: "format", Value: "png,svg", Usage: "image `FORMATS`, comma-separated: png, svg"},
+			&cli.IntFlag{Name: "dpi", Value: 144, Usage: "resolution of the PNG files in `DPI` (dots per inch)"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {
@@ -72,7 +72,7 @@ func plotCommand() *cli.Command {
 			if err != nil {
 				return err
 			}
-			fmt.Fprintf(c.App.Writer, "%d figure files for analysis %q written to %s:\n", len(files), d.Name, c.String("out"))
+			fmt.Fprintf(c.App.Writer, "%d figure files for analysis %d (%q) written to %s:\n", len(files), d.AnalysisID, d.Name, c.String("out"))
 			for _, f := range files {
 				fmt.Fprintf(c.App.Writer, "  %s\n", f)
 			}

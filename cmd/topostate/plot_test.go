@@ -32,7 +32,7 @@ func TestPlotCommand(t *testing.T) {
 	}{
 		{"no --out", []string{"plot", "--db", db}, exitUsage, "--out FOLDER is required"},
 		{"bad format", []string{"plot", "--db", db, "--out", out, "--format", "gif"}, exitUsage, `--format "gif"`},
-		{"unknown analysis", []string{"plot", "--db", db, "--out", out, "--analysis", "x"}, exitUsage, `no analysis named "x"`},
+		{"unknown analysis", []string{"plot", "--db", db, "--out", out, "--analysis", "x"}, exitUsage, `no such analysis "x"`},
 		{"unknown group column", []string{"plot", "--db", db, "--out", out, "--group", "shift"}, exitUsage, `no column "shift"`},
 		{"missing warehouse", []string{"plot", "--db", filepath.Join(dir, "none.duckdb"), "--out", out}, exitFailure, "none.duckdb"},
 		{"svg only", []string{"plot", "--db", db, "--out", out, "--format", "svg"}, exitOK, "6 figure files"},
@@ -66,7 +66,7 @@ func TestPlotCommand(t *testing.T) {
 	if code, _, se := call("ingest", "--input", cohort, "--db", db, "--window", "20", "--states", "2", "--fisher-z", "--analysis", "z", "-q"); code != 0 {
 		t.Fatalf("ingest: %d %s", code, se)
 	}
-	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.Contains(se, "holds 2 analyses (t, z)") {
+	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.Contains(se, `holds 2 analyses: 1 ("t"), 2 ("z")`) {
 		t.Errorf("two analyses without --analysis: %d %s", code, se)
 	}
 	zdir := filepath.Join(dir, "z")

@@ -26,10 +26,11 @@ func queryCommand() *cli.Command {
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE`"},
 			// No short alias: urfave/cli copies a value to its aliases by
 			// calling Set again, which would repeat every parameter.
+			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them); same as --param analysis=ID"),
 			&cli.GenericFlag{Name: "param", Value: &keyValues{}, Usage: "parameter `KEY=VALUE` (repeatable; the value is taken as it is, commas included)"},
 			&cli.StringFlag{Name: "sql", Usage: "run this SQL `TEXT` instead of a bundled query"},
 			&cli.StringFlag{Name: "file", Usage: "run the SQL in this `PATH` (a header as in the bundled files declares parameters)"},
-			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "table", Usage: "output: table, csv, tsv, json or parquet"},
+			&cli.StringFlag{Name: "format", Aliases: []string{"f"}, Value: "table", Usage: "output `FORMAT`: table, csv, tsv, json or parquet"},
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "write the result to `PATH` (default: standard output; required for parquet)"},
 			&cli.BoolFlag{Name: "list", Usage: "list the bundled queries, the SQL functions and the macros"},
 			&cli.StringFlag{Name: "show", Usage: "print the SQL of the bundled query `NAME`"},
@@ -117,6 +118,12 @@ func readQueryOptions(c *cli.Context) (queryOptions, error) {
 			return o, usagef("query: --param %s given twice", k)
 		}
 		o.params[k] = v
+	}
+	if a := get("analysis"); a != "" {
+		if _, dup := o.params["analysis"]; dup {
+			return o, usagef("query: give the analysis once, with --analysis or with --param analysis=")
+		}
+		o.params["analysis"] = a
 	}
 	return o, nil
 }
@@ -223,23 +230,69 @@ func queryAction(c *cli.Context, o queryOptions) error {
 }
 
 func runQuery(c *cli.Context, db *queries.DB, q *queries.Query, params map[string]string, format queries.Format, w io.Writer) (int64, error) {
-	if format == queries.FormatParquet {
-		if _, err := queries.Bind(c.Context, db.Conn, q, params); err != nil {
-			return 0, err
-		}
-		last, err := queries.Prepare(c.Context, db.Conn, q.SQL)
-		if err != nil {
-			return 0, err
-		}
-		return queries.WriteParquet(c.Context, db.Conn, last, w)
-	}
-	rows, err := queries.Run(c.Context, db.Conn, q, params)
+	bound, err := queries.Bind(c.Context, db.Conn, q, params)
 	if err != nil {
 		return 0, err
 	}
+	if err := nameAnalyses(c, db, q, params, bound); err != nil {
+		return 0, err
+	}
+	last, err := queries.Prepare(c.Context, db.Conn, q.SQL)
+	if err != nil {
+		return 0, err
+	}
+	if format == queries.FormatParquet {
+		n, err := queries.WriteParquet(c.Context, db.Conn, last, w)
+		if pe := queries.MacroParamError(err); pe != nil {
+			return n, pe
+		}
+		return n, err
+	}
+	rows, err := db.Conn.QueryContext(c.Context, last)
+	if err != nil {
+		if pe := queries.MacroParamError(err); pe != nil {
+			return 0, pe
+		}
+		return 0, fmt.Errorf("queries: %s: %w", queryName(q), err)
+	}
 	defer rows.Close()
 	n, err := queries.WriteRows(w, rows, format)
+	if pe := queries.MacroParamError(err); pe != nil {
+		return int64(n), pe
+	}
 	return int64(n), err
+}
+
+// nameAnalyses says on standard error which analysis each analysis
+// parameter resolved to, so standard output stays plain CSV, TSV, JSON or
+// a table: "query: analysis 2 ("rest-b"), 1 of 2 in the warehouse".
+func nameAnalyses(c *cli.Context, db *queries.DB, q *queries.Query, params map[string]string, bound map[string]any) error {
+	for _, p := range queries.EffectiveParams(q, params) {
+		if p.Type != queries.TypeAnalysis {
+			continue
+		}
+		a, err := queries.FindAnalysis(c.Context, db.Conn, fmt.Sprint(bound[p.Name]))
+		if err != nil {
+			return err
+		}
+		how := "the only analysis in the warehouse"
+		if a.Count > 1 {
+			how = fmt.Sprintf("one of %d in the warehouse", a.Count)
+		}
+		label := "analysis"
+		if p.Name != "analysis" {
+			label = p.Name + ": analysis"
+		}
+		fmt.Fprintf(c.App.ErrWriter, "query: %s %s, %s\n", label, a, how)
+	}
+	return nil
+}
+
+func queryName(q *queries.Query) string {
+	if q.Name != "" {
+		return "query " + q.Name
+	}
+	return "this SQL"
 }
 
 func listQueries(out io.Writer) error {
@@ -252,7 +305,9 @@ func listQueries(out io.Writer) error {
 		fmt.Fprintf(out, "\n  %s\n      %s\n", q.Name, q.Description)
 		for _, p := range q.Params {
 			def := "required"
-			if p.HasDefault {
+			if p.Type == queries.TypeAnalysis && !p.HasDefault {
+				def = "default: the only analysis"
+			} else if p.HasDefault {
 				def = "default " + p.Default
 			}
 			fmt.Fprintf(out, "      %s (%s, %s): %s\n", p.Name, p.Type, def, p.Description)

@@ -27,11 +27,11 @@ func reportCommand() *cli.Command {
 			"With --adjust COLUMNS, also adjusted_group_contrast: the group contrasts adjusted for those covariates.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
-			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis (default: the only one in the file)"},
+			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "the HTML `FILE` to write"},
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
-			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "relabellings of every permutation test"},
-			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation seed"},
+			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "`N` relabellings of every permutation test"},
+			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation `SEED`"},
 			&cli.StringFlag{Name: "adjust", Usage: "comma-separated subjects `COLUMNS` (e.g. age,sex,site): add group contrasts adjusted for them (bundled query adjusted_group_contrast)"},
 		},
 		Action: func(c *cli.Context) error {
@@ -79,7 +79,7 @@ func reportCommand() *cli.Command {
 			if err := writeFileAtomic(out, r); err != nil {
 				return err
 			}
-			fmt.Fprintf(c.App.Writer, "report for analysis %q written to %s (%s)\n", r.Analysis.Name, out, plural(len(r.Contrasts), "group contrast"))
+			fmt.Fprintf(c.App.Writer, "report for analysis %d (%q) written to %s (%s)\n", r.Analysis.ID, r.Analysis.Name, out, plural(len(r.Contrasts), "group contrast"))
 			return nil
 		},
 	}

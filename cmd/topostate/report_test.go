@@ -20,7 +20,7 @@ func TestReportCommand(t *testing.T) {
 		stderr string
 	}{
 		{"no --out", []string{"report", "--db", warehouse}, exitUsage, "", "--out FILE is required"},
-		{"unknown analysis", []string{"report", "--db", warehouse, "--out", out, "--analysis", "x"}, exitUsage, "", `no analysis named "x"`},
+		{"unknown analysis", []string{"report", "--db", warehouse, "--out", out, "--analysis", "x"}, exitUsage, "", `no such analysis "x"`},
 		{"unknown group column", []string{"report", "--db", warehouse, "--out", out, "--group", "shift"}, exitUsage, "", `no column "shift"`},
 		{"bad --n-perm", []string{"report", "--db", warehouse, "--out", out, "--n-perm", "0"}, exitUsage, "", "--n-perm 0"},
 		{"an argument", []string{"report", "--db", warehouse, "--out", out, "extra"}, exitUsage, "", "takes no arguments"},

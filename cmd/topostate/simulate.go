@@ -28,17 +28,17 @@ func simulateCommand() *cli.Command {
 			"   no states at all:        --states 1 (one stationary process)",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "new or empty `FOLDER` to write the cohort into (a folder holding anything is refused: simulate never mixes into or replaces files)"},
-			&cli.IntFlag{Name: "subjects", Value: 20, Usage: "number of subjects (alternating groups A and B)"},
-			&cli.IntFlag{Name: "regions", Value: 30, Usage: "regions per series"},
-			&cli.IntFlag{Name: "timepoints", Value: 600, Usage: "time points per series"},
-			&cli.IntFlag{Name: "states", Value: 3, Usage: "latent connectivity states"},
-			&cli.Float64Flag{Name: "tr", Value: 2.0, Usage: "repetition time written to the sidecars, seconds"},
-			&cli.Float64Flag{Name: "stickiness", Value: 0.97, Usage: "per-time-point probability of staying in a state"},
-			&cli.Float64Flag{Name: "group-effect", Usage: "added to group B's stickiness (longer dwell times; the state networks stay identical between groups)"},
-			&cli.Float64Flag{Name: "noise", Value: 0.5, Usage: "measurement noise relative to the signal"},
-			&cli.Float64Flag{Name: "offset", Value: 1000, Usage: "constant scanner-like offset added to every region"},
-			&cli.Float64Flag{Name: "autocorr", Value: compute.DefaultAutocorr, Usage: "lag-1 autocorrelation of the latent AR(1) signals per time point, in [0, 1); 0 = independent time points"},
-			&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "seed; same seed, same cohort"},
+			&cli.IntFlag{Name: "subjects", Value: 20, Usage: "`N` subjects (alternating groups A and B)"},
+			&cli.IntFlag{Name: "regions", Value: 30, Usage: "`N` regions per series"},
+			&cli.IntFlag{Name: "timepoints", Value: 600, Usage: "`N` time points per series"},
+			&cli.IntFlag{Name: "states", Value: 3, Usage: "`K` latent connectivity states"},
+			&cli.Float64Flag{Name: "tr", Value: 2.0, Usage: "repetition time in `SECONDS` written to the sidecars"},
+			&cli.Float64Flag{Name: "stickiness", Value: 0.97, Usage: "per-time-point `PROBABILITY` of staying in a state"},
+			&cli.Float64Flag{Name: "group-effect", Usage: "`AMOUNT` added to group B's stickiness (longer dwell times; the state networks stay identical between groups)"},
+			&cli.Float64Flag{Name: "noise", Value: 0.5, Usage: "measurement noise `SD` relative to the signal"},
+			&cli.Float64Flag{Name: "offset", Value: 1000, Usage: "constant scanner-like `OFFSET` added to every region"},
+			&cli.Float64Flag{Name: "autocorr", Value: compute.DefaultAutocorr, Usage: "lag-1 autocorrelation `RHO` of the latent AR(1) signals per time point, in [0, 1); 0 = independent time points"},
+			&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "`SEED`; same seed, same cohort"},
 			// For the benchmark harness's state-recovery check (scripts/bench).
 			&cli.BoolFlag{Name: "truth", Hidden: true, Usage: "also write truth.tsv: the latent state of every subject at every time point"},
 		},
@@ -49,8 +49,8 @@ func simulateCommand() *cli.Command {
 			if err := refuseNonEmpty("simulate", "--out", c.String("out")); err != nil {
 				return err
 			}
-			if err := ingest.CheckTR(c.Float64("tr")); err != nil {
-				return usagef("simulate: --tr: %v", err)
+			if err := ingest.CheckTR(c.Float64("tr"), "simulate --tr"); err != nil {
+				return usagef("%v", err)
 			}
 			spec := compute.CohortSpec{
 				Subjects: c.Int("subjects"), Regions: c.Int("regions"), Timepoints: c.Int("timepoints"),

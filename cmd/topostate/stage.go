@@ -45,6 +45,9 @@ func stageCommand() *cli.Command {
 						return err
 					}
 					o := ingestOptions(c)
+					if err := checkWindowFlags(c); err != nil {
+						return err
+					}
 					if err := checkOptions(c, o); err != nil {
 						return err
 					}

@@ -8,6 +8,8 @@ import (
 	"math"
 	"slices"
 	"strings"
+
+	"github.com/topostate/topostate/queries"
 )
 
 // MaxGroups is the most groups a figure compares: the colour-blind-safe
@@ -46,8 +48,9 @@ type Data struct {
 
 // Group is one level of the grouping column.
 type Group struct {
-	Name   string
-	Series int // series (subject x session) of this group in the analysis
+	Name     string
+	Series   int // series (subject x session) of this group in the analysis
+	Subjects int // distinct subjects among them (the unit of the group tests)
 }
 
 // Curve is a group's mean Betti curve for one state and dimension:
@@ -71,30 +74,21 @@ type ElbowPoint struct {
 
 func quoteIdent(s string) string { return `"` + strings.ReplaceAll(s, `"`, `""`) + `"` }
 
-// Load reads analysis name (or the only analysis, when name is "") from
-// db. group names a column of the subjects table whose values split the
+// Load reads the analysis named by name (an id, a name, "latest", or ""
+// for the only analysis: queries.FindAnalysis) from db. group names a column of the subjects table whose values split the
 // series into groups; "" (or a missing default "group" column, with
 // defaultGroup true) puts every series in one group.
 func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool) (*Data, error) {
 	d := &Data{}
-	var err error
-	if name == "" {
-		var names []string
-		names, err = analysisNames(ctx, db)
-		if err != nil {
-			return nil, err
-		}
-		if len(names) != 1 {
-			return nil, fmt.Errorf("%w: the warehouse holds %d analyses (%s); choose one with --analysis", ErrUsage, len(names), strings.Join(names, ", "))
-		}
-		name = names[0]
+	a, err := queries.FindAnalysis(ctx, db, name)
+	if errors.Is(err, queries.ErrNoAnalysis) || errors.Is(err, queries.ErrAnalysisAmbiguous) {
+		return nil, fmt.Errorf("%w: %w", ErrUsage, err)
+	}
+	if err != nil {
+		return nil, err
 	}
 	err = db.QueryRowContext(ctx, `SELECT analysis_id, name, n_states, n_regions, coalesce(parameters->>'fisher_z' = 'true', false)
-		FROM analyses WHERE name = ?`, name).Scan(&d.AnalysisID, &d.Name, &d.States, &d.Regions, &d.FisherZ)
-	if errors.Is(err, sql.ErrNoRows) {
-		names, _ := analysisNames(ctx, db)
-		return nil, fmt.Errorf("%w: no analysis named %q; the warehouse has: %s", ErrUsage, name, strings.Join(names, ", "))
-	}
+		FROM analyses WHERE analysis_id = ?`, a.ID).Scan(&d.AnalysisID, &d.Name, &d.States, &d.Regions, &d.FisherZ)
 	if err != nil {
 		return nil, fmt.Errorf("figures: %w", err)
 	}
@@ -136,23 +130,6 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 	return d, nil
 }
 
-func analysisNames(ctx context.Context, db *sql.DB) ([]string, error) {
-	rows, err := db.QueryContext(ctx, `SELECT name FROM analyses ORDER BY analysis_id`)
-	if err != nil {
-		return nil, fmt.Errorf("figures: %w", err)
-	}
-	defer rows.Close()
-	var out []string
-	for rows.Next() {
-		var n string
-		if err := rows.Scan(&n); err != nil {
-			return nil, fmt.Errorf("figures: %w", err)
-		}
-		out = append(out, n)
-	}
-	return out, rows.Err()
-}
-
 func subjectColumns(ctx context.Context, db *sql.DB) ([]string, error) {
 	rows, err := db.QueryContext(ctx, `SELECT column_name FROM information_schema.columns
 		WHERE table_name = 'subjects' AND column_name NOT IN ('analysis_id', 'subject_id') ORDER BY ordinal_position`)
@@ -172,7 +149,7 @@ func subjectColumns(ctx context.Context, db *sql.DB) ([]string, error) {
 }
 
 func (d *Data) loadGroups(ctx context.Context, db *sql.DB, groupExpr, from string) error {
-	rows, err := db.QueryContext(ctx, `SELECT `+groupExpr+` AS g, count(*) `+from+` GROUP BY g ORDER BY g`)
+	rows, err := db.QueryContext(ctx, `SELECT `+groupExpr+` AS g, count(*), count(DISTINCT x.subject_id) `+from+` GROUP BY g ORDER BY g`)
 	if err != nil {
 		return fmt.Errorf("figures: %w", err)
 	}
@@ -180,7 +157,7 @@ func (d *Data) loadGroups(ctx context.Context, db *sql.DB, groupExpr, from strin
 	d.groupIndex = map[string]int{}
 	for rows.Next() {
 		var g Group
-		if err := rows.Scan(&g.Name, &g.Series); err != nil {
+		if err := rows.Scan(&g.Name, &g.Series, &g.Subjects); err != nil {
 			return fmt.Errorf("figures: %w", err)
 		}
 		d.groupIndex[g.Name] = len(d.Groups)

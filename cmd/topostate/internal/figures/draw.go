@@ -231,8 +231,19 @@ func WriteAll(d *Data, dir string, formats []string, dpi int) ([]string, error) 
 	return files, nil
 }
 
-func (d *Data) groupLabel(g, n int) string {
-	return fmt.Sprintf("%s (n=%d)", d.Groups[g].Name, n)
+// groupLabel names group g in a legend or panel title with its n. n counts
+// subjects, the unit of the group tests; when a subject has several
+// sessions the series are given too, and a curve drawn from fewer series
+// than the group has (states some series never visited) says so.
+func (d *Data) groupLabel(g, series int) string {
+	gr := d.Groups[g]
+	switch {
+	case series != gr.Series:
+		return fmt.Sprintf("%s (%d of %d series)", gr.Name, series, gr.Series)
+	case gr.Subjects != gr.Series:
+		return fmt.Sprintf("%s (n=%d subjects, %d series)", gr.Name, gr.Subjects, gr.Series)
+	}
+	return fmt.Sprintf("%s (n=%d)", gr.Name, gr.Subjects)
 }
 
 // bettiFigure: one panel per state, a line per group (the mean curve) in a

@@ -139,7 +139,7 @@ func TestLoadMatchesRawTables(t *testing.T) {
 	for next := rowsOf(t, db, `SELECT subject_id, "group" FROM subjects`, &sub, &grp); next(); {
 		groupOf[sub] = grp
 	}
-	if len(d.Groups) != 2 || d.Groups[0] != (Group{"A", 5}) || d.Groups[1] != (Group{"B", 5}) {
+	if len(d.Groups) != 2 || d.Groups[0] != (Group{"A", 5, 5}) || d.Groups[1] != (Group{"B", 5, 5}) {
 		t.Fatalf("groups %+v", d.Groups)
 	}
 	if d.States != 3 || d.Regions != 10 {
@@ -412,7 +412,7 @@ func TestLoadChoices(t *testing.T) {
 		groups                int
 	}{
 		{"only analysis by default", "", "group", false, false, "", 2},
-		{"unknown analysis", "nope", "group", false, true, `no analysis named "nope"; the warehouse has: figs`, 0},
+		{"unknown analysis", "nope", "group", false, true, `no such analysis "nope"; the warehouse holds: 1 ("figs")`, 0},
 		{"unknown column", "figs", "shift", false, true, `no column "shift"; its covariates are: group, age`, 0},
 		{"missing default column", "figs", "cohort", true, false, "", 1},
 		{"no grouping", "figs", "", false, false, "", 1},
