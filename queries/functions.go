@@ -107,10 +107,10 @@ func Functions() []*Function {
 			Signature: "ks_pvalue_exact(m BIGINT, n BIGINT, d DOUBLE) -> DOUBLE",
 			Doc: "Exact P(D >= d) for the two-sample Kolmogorov-Smirnov statistic D of samples of sizes m and n " +
 				"(no ties), by counting lattice paths (every ordering of the pooled values equally likely). D only takes values k/L, L = lcm(m, n): " +
-				"a d within float rounding of such a value is snapped to it; any other d is raised to the next " +
+				"a d within float rounding of such a value (8 ulps relative to D = 1, i.e. |d*L - k| <= 8*2^-52*L) is snapped to it; any other d is raised to the next " +
 				"attainable value, because for D on that grid P(D >= d) = P(D >= ceil(d*L)/L) exactly (rounding to " +
 				"the nearest value could move a d just above a grid point down and report a larger tail than the true " +
-				"one). d = 0 gives 1. Refused when (m+1)(n+1) > 2e9; use ks_pvalue_asymptotic there.",
+				"one): ks_pvalue_exact(10, 10, 0.50000005) is P(D >= 0.6) = 0.0524. d = 0 gives 1; a d above 1 within the same rounding is D = 1. Refused when (m+1)(n+1) > 2e9; use ks_pvalue_asymptotic there.",
 			in: []duckdb.TypeInfo{tBigint, tBigint, tDouble}, out: tDouble,
 			fn: func(a []driver.Value) (any, error) {
 				m, n, d := a[0].(int64), a[1].(int64), a[2].(float64)

@@ -163,6 +163,26 @@ func TestKSPValueExactBruteForce(t *testing.T) {
 	}
 }
 
+// Issue 11 item 8: ks_pvalue_exact(10, 10, 0.50000005) is P(D >= 0.6), by
+// brute-force enumeration of all C(20, 10) = 184,756 orderings (bruteKS,
+// the definition in docs/methods.md §6): 0.0524, not P(D >= 0.5) = 0.168.
+// A d one ulp above 1 gives the tail of D = 1 (same enumeration).
+func TestKSPValueExactSnapsOnlyRounding(t *testing.T) {
+	conn := memConn(t)
+	_, tail, total := bruteKS(10, 10)
+	p06, _ := new(big.Rat).SetFrac(tail[60], total).Float64()
+	p10, _ := new(big.Rat).SetFrac(tail[100], total).Float64()
+	if math.Abs(p06-0.0524) > 5e-5 {
+		t.Fatalf("enumeration P(D >= 0.6) = %v, want about 0.0524", p06)
+	}
+	if got := queryFloat(t, conn, `SELECT ks_pvalue_exact(10, 10, 0.50000005)`); math.Abs(got-p06) > 1e-13 {
+		t.Errorf("ks_pvalue_exact(10, 10, 0.50000005) = %.15g, enumeration P(D >= 0.6) = %.15g", got, p06)
+	}
+	if got := queryFloat(t, conn, `SELECT ks_pvalue_exact(10, 10, ?)`, math.Nextafter(1, 2)); math.Abs(got-p10) > 1e-13 {
+		t.Errorf("ks_pvalue_exact(10, 10, 1 + 1 ulp) = %.15g, enumeration P(D = 1) = %.15g", got, p10)
+	}
+}
+
 // Unequal sizes, a published table: as n grows with m fixed, the
 // two-sample D tends to the one-sample Kolmogorov statistic of m values, so
 // P(D_{m,n} >= d) tends to the one-sample tail. The standard table of
