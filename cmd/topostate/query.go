@@ -267,6 +267,8 @@ func listQueries(out io.Writer) error {
 	}
 	fmt.Fprintln(out, "\nSQL macros (print them with --macros to use them in another DuckDB client):")
 	fmt.Fprintln(out, "  bh_adjust(p, family)  Benjamini-Hochberg adjusted p; e.g. bh_adjust(p, list(p) OVER (PARTITION BY measure))")
+	fmt.Fprintln(out, "  by_adjust(p, family)  Benjamini-Yekutieli adjusted p (any dependence), called like bh_adjust")
+	fmt.Fprintln(out, "      both sort the family once per row: for thousands of tests use adjust_pvalues on a list aggregate")
 	fmt.Fprintln(out, "  subject_covariate(analysis, column_name)  table of (subject_id, value) for one subjects column")
 	fmt.Fprintln(out, "  subject_groups(analysis, column_name, group_a, group_b)  table of (subject_id, side 'a'/'b', group_value)")
 	return nil
