@@ -357,7 +357,6 @@ func TestStatePairsKS(t *testing.T) {
 	if len(got) != 6 {
 		t.Fatalf("%d rows, want 3 pairs x 2 dimensions", len(got))
 	}
-	ps := map[int][]float64{}
 	for _, r := range got {
 		sa, sb, dim := int(num(r["state_a"])), int(num(r["state_b"])), int(num(r["dimension"]))
 		ta, ra := kruskal(nRegions, upper[sa])
@@ -370,21 +369,34 @@ func TestStatePairsKS(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		if int(num(r["n_events"])) != len(x) || !close(num(r["ks_statistic"]), ks.Statistic, 1e-12) ||
-			!close(num(r["ks_p"]), ks.PValue, 1e-12) || r["ks_method"] != "exact" {
-			t.Errorf("states %d-%d dim %d: %v %v %v, Go %+v", sa, sb, dim, r["n_events"], r["ks_statistic"], r["ks_p"], ks)
-		}
-		ps[dim] = append(ps[dim], ks.PValue)
-	}
-	for dim, p := range ps {
-		q := compute.BenjaminiHochberg(p)
-		i := 0
-		for _, r := range got {
-			if int(num(r["dimension"])) == dim {
-				if !close(num(r["ks_p_bh"]), q[i], 1e-12) {
-					t.Errorf("dim %d row %d: BH %v, Go %v", dim, i, r["ks_p_bh"], q[i])
+		// The Betti-curve distance from its definition: the largest
+		// difference of the counts of events below a threshold, over
+		// thresholds at and just above every event (docs/methods.md §6).
+		gap := 0
+		for _, e := range append(slices.Clone(x), y...) {
+			for _, th := range []float64{e, math.Nextafter(e, math.Inf(1))} {
+				na, nb := 0, 0
+				for _, v := range x {
+					if v < th {
+						na++
+					}
 				}
-				i++
+				for _, v := range y {
+					if v < th {
+						nb++
+					}
+				}
+				gap = max(gap, na-nb, nb-na)
+			}
+		}
+		if int(num(r["n_events"])) != len(x) || !close(num(r["ks_distance"]), ks.Statistic, 1e-12) ||
+			int(num(r["betti_distance"])) != gap {
+			t.Errorf("states %d-%d dim %d: n %v D %v betti %v; Go n %d D %v betti %d", sa, sb, dim, r["n_events"], r["ks_distance"], r["betti_distance"], len(x), ks.Statistic, gap)
+		}
+		// Issue 11 item 3: descriptive, so no p-value column at all.
+		for col := range r {
+			if col == "p" || strings.HasSuffix(col, "_p") || strings.Contains(col, "_bh") || strings.Contains(col, "_by") {
+				t.Errorf("state_pairs_ks has a p-value-like column %q", col)
 			}
 		}
 	}

@@ -216,9 +216,9 @@ func dwellTable(id, a, b string, res *result) *Table {
 		{"difference", a + " − " + b},
 		{"Welch t (df)", "Welch's t statistic with Welch-Satterthwaite degrees of freedom"},
 		{"p", "Welch t-test, two-sided"},
-		{"p, BH", "Benjamini-Hochberg adjusted across the states of this measure"},
-		{"p perm.", "group labels of whole subjects relabelled; p = (1 + count) / (1 + relabellings)"},
-		{"p perm., BH", "Benjamini-Hochberg adjusted across the states of this measure"},
+		{"p, BH", "Benjamini-Hochberg adjusted across the k states of this measure (Welch p-values only)"},
+		{"p perm.", "studentised permutation test: group labels of whole subjects relabelled; p = (1 + count) / (1 + relabellings)"},
+		{"p perm., BH", "Benjamini-Hochberg adjusted across the k states of this measure (permutation p-values only)"},
 	}}
 	for _, row := range res.rows {
 		m := full(row["measure"])
@@ -245,12 +245,9 @@ func filtrationTable(id string, res *result) *Table {
 		{"state", ""},
 		{"Betti curve", "β0: spanning-tree edges, where components merge; β1: the other edges, where cycles close"},
 		{"subjects", "subjects of each group with a network in this state"},
-		{"KS D", "largest gap between the two groups' pooled event distributions"},
-		{"KS p", "Kolmogorov-Smirnov test on the pooled events (a description: events of one subject are not independent)"},
-		{"KS p, BH", "Benjamini-Hochberg adjusted across all rows"},
 		{"curve gap", "largest distance between the two group-mean Betti curves"},
 		{"p perm.", "group labels of whole subjects relabelled: the group test"},
-		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows"},
+		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows of this table (every state and both Betti curves of this contrast)"},
 	}}
 	for _, row := range res.rows {
 		dim := full(row["dimension"])
@@ -258,20 +255,11 @@ func filtrationTable(id string, res *result) *Table {
 			valCell("state", row["state"], integer),
 			cell(Part{Col: "dimension", V: dim, Text: dimensionText[dim]}),
 			cell(value("n_subjects_a", row["n_subjects_a"], integer), text(" / "), value("n_subjects_b", row["n_subjects_b"], integer)),
-			cell(value("ks_statistic", row["ks_statistic"], fixed(3)), Part{Text: " " + abbrevMethod(full(row["ks_method"])), Class: "n"}),
-			pCell("ks_p", row["ks_p"], false), pCell("ks_p_bh", row["ks_p_bh"], true),
 			valCell("curve_distance", row["curve_distance"], sig),
 			pCell("curve_perm_p", row["curve_perm_p"], false), pCell("curve_perm_p_bh", row["curve_perm_p_bh"], true),
 		}})
 	}
 	return t
-}
-
-func abbrevMethod(m string) string {
-	if m == "" {
-		return ""
-	}
-	return "(" + m + ")"
 }
 
 // transitionTable shows transitions_by_group as one k x k matrix whose
@@ -333,15 +321,15 @@ func fmtOr(v any, f func(float64) string) string {
 	return "–"
 }
 
-// statePairsTable shows state_pairs_ks.
+// statePairsTable shows state_pairs_ks: distances between the fitted
+// states, descriptive, so no p-value is shown or adjusted (issue 11).
 func statePairsTable(res *result) *Table {
 	t := &Table{ID: "t-state-pairs", Left: 2, Head: []Head{
 		{"Betti curve", "β0: spanning-tree edges; β1: the other edges"},
 		{"states", ""},
 		{"events", "filtration events of each centroid network"},
-		{"KS D", "largest gap between the two states' event distributions"},
-		{"KS p", "exact Kolmogorov-Smirnov test when affordable"},
-		{"KS p, BH", "Benjamini-Hochberg adjusted across the pairs of one Betti curve"},
+		{"KS distance D", "largest gap between the two states' event distributions (0-1); a description, not a test"},
+		{"Betti distance", "largest difference of the two centroid networks' Betti curves over all thresholds (components or cycles); a description, not a test"},
 	}}
 	for _, row := range res.rows {
 		dim := full(row["dimension"])
@@ -349,8 +337,8 @@ func statePairsTable(res *result) *Table {
 			cell(Part{Col: "dimension", V: dim, Text: dimensionText[dim]}),
 			cell(value("state_a", row["state_a"], integer), text(" vs "), value("state_b", row["state_b"], integer)),
 			valCell("n_events", row["n_events"], integer),
-			cell(value("ks_statistic", row["ks_statistic"], fixed(3)), Part{Text: " " + abbrevMethod(full(row["ks_method"])), Class: "n"}),
-			pCell("ks_p", row["ks_p"], false), pCell("ks_p_bh", row["ks_p_bh"], true),
+			valCell("ks_distance", row["ks_distance"], fixed(3)),
+			valCell("betti_distance", row["betti_distance"], integer),
 		}})
 	}
 	return t
@@ -366,7 +354,7 @@ func covariateTable(id, name string, res *result) *Table {
 		{"slope", "least-squares change of the measure per unit of " + name},
 		{"t (df)", ""},
 		{"p", "test of r = 0, two-sided"},
-		{"p, BH", "Benjamini-Hochberg adjusted across the states of this measure"},
+		{"p, BH", "Benjamini-Hochberg adjusted across the k states of this measure, for this covariate"},
 	}}
 	for _, row := range res.rows {
 		m := full(row["measure"])
