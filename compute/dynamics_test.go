@@ -40,7 +40,7 @@ func TestDynamicsWorkedExample(t *testing.T) {
 
 		CompleteDwells:    []int{1, 1, 1, 0},
 		CompleteMeanDwell: []float64{1, 3, 2, 0},
-		Counts:      [][]int{{2, 1, 1, 0}, {1, 2, 0, 0}, {1, 0, 1, 0}, {0, 0, 0, 0}},
+		Counts:            [][]int{{2, 1, 1, 0}, {1, 2, 0, 0}, {1, 0, 1, 0}, {0, 0, 0, 0}},
 	}
 	if !reflect.DeepEqual(d, want) {
 		t.Fatalf("got %+v\nwant %+v", d, want)
