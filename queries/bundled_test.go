@@ -111,7 +111,11 @@ func TestStateDwellByGroup(t *testing.T) {
 		measure string
 	}
 	samples := map[key][2][]float64{}
-	metrics := raw(t, d, `SELECT subject_id, state, occupancy, mean_dwell_seconds FROM state_metrics WHERE analysis_id = ? ORDER BY subject_id`, firstID)
+	// Dwell time: complete runs only (docs/methods.md §4); subjects with no
+	// visit, or only runs cut by the scan's edges, are left out and counted.
+	noVisit := map[int][2]int{}
+	censoredOnly := map[int][2]int{}
+	metrics := raw(t, d, `SELECT subject_id, state, occupancy, complete_dwell_seconds FROM state_metrics WHERE analysis_id = ? ORDER BY subject_id`, firstID)
 	for _, r := range metrics {
 		side := map[string]int{"night": 0, "day": 1}
 		s, ok := side[groups[r["subject_id"].(string)]]
@@ -123,12 +127,21 @@ func TestStateDwellByGroup(t *testing.T) {
 		v := samples[k]
 		v[s] = append(v[s], num(r["occupancy"]))
 		samples[k] = v
-		if r["mean_dwell_seconds"] != nil {
-			k = key{st, "dwell_seconds"}
-			v = samples[k]
-			v[s] = append(v[s], num(r["mean_dwell_seconds"]))
-			samples[k] = v
+		k = key{st, "dwell_seconds"}
+		v = samples[k]
+		switch {
+		case r["complete_dwell_seconds"] != nil:
+			v[s] = append(v[s], num(r["complete_dwell_seconds"]))
+		case num(r["occupancy"]) == 0:
+			c := noVisit[st]
+			c[s]++
+			noVisit[st] = c
+		default:
+			c := censoredOnly[st]
+			c[s]++
+			censoredOnly[st] = c
 		}
+		samples[k] = v
 	}
 	if len(got) != len(samples) || len(got) != 6 {
 		t.Fatalf("%d rows, want %d (3 states x 2 measures)", len(got), len(samples))
@@ -145,6 +158,14 @@ func TestStateDwellByGroup(t *testing.T) {
 		}
 		if k.measure == "occupancy" && len(a)+len(b) != nSubjects-1 {
 			t.Errorf("%s: %d subjects, want %d (pilot left out)", name, len(a)+len(b), nSubjects-1)
+		}
+		if int(num(r["n_without_visit_a"])) != noVisit[k.state][0] || int(num(r["n_without_visit_b"])) != noVisit[k.state][1] ||
+			int(num(r["n_censored_only_a"])) != censoredOnly[k.state][0] || int(num(r["n_censored_only_b"])) != censoredOnly[k.state][1] {
+			t.Errorf("%s: without visit %v/%v censored only %v/%v, want %v %v", name, r["n_without_visit_a"], r["n_without_visit_b"],
+				r["n_censored_only_a"], r["n_censored_only_b"], noVisit[k.state], censoredOnly[k.state])
+		}
+		if k.measure == "dwell_seconds" && r["dwell_runs"] != "complete" {
+			t.Errorf("%s: dwell_runs %v, want complete", name, r["dwell_runs"])
 		}
 		for _, c := range []struct {
 			col  string
@@ -414,14 +435,14 @@ func TestCovariateAssociation(t *testing.T) {
 		measure string
 	}
 	xs, ys := map[key][]float64{}, map[key][]float64{}
-	for _, r := range raw(t, d, `SELECT subject_id, state, occupancy, mean_dwell_seconds FROM state_metrics WHERE analysis_id = ?`, firstID) {
+	for _, r := range raw(t, d, `SELECT subject_id, state, occupancy, complete_dwell_seconds FROM state_metrics WHERE analysis_id = ?`, firstID) {
 		x := cov[r["subject_id"].(string)]
 		st := int(num(r["state"]))
 		k := key{st, "occupancy"}
 		xs[k], ys[k] = append(xs[k], x), append(ys[k], num(r["occupancy"]))
-		if r["mean_dwell_seconds"] != nil {
+		if r["complete_dwell_seconds"] != nil {
 			k = key{st, "dwell_seconds"}
-			xs[k], ys[k] = append(xs[k], x), append(ys[k], num(r["mean_dwell_seconds"]))
+			xs[k], ys[k] = append(xs[k], x), append(ys[k], num(r["complete_dwell_seconds"]))
 		}
 	}
 	if len(got) != 6 {

@@ -210,10 +210,12 @@ var dimensionText = map[string]string{
 func dwellTable(id, a, b string, res *result) *Table {
 	t := &Table{ID: "t-dwell-" + id, Left: 2, Head: []Head{
 		{"state", ""},
-		{"measure", "occupancy: share of a subject's windows in the state (0-1); dwell time: mean length of an uninterrupted stay, seconds"},
+		{"measure", "occupancy: share of a subject's windows in the state (0-1); dwell time: mean length of the complete uninterrupted stays (not cut by the scan's start or end), seconds"},
 		{a, "group mean ± standard deviation over subjects (n subjects)"},
 		{b, "group mean ± standard deviation over subjects (n subjects)"},
 		{"difference", a + " − " + b},
+		{"no visit", "subjects of " + a + " / " + b + " who never visited the state: in occupancy with 0, left out of dwell time (undefined)"},
+		{"cut runs only", "subjects of " + a + " / " + b + " whose every run of the state touches the scan's first or last window: left out of dwell time (those runs' lengths are only lower bounds)"},
 		{"Welch t (df)", "Welch's t statistic with Welch-Satterthwaite degrees of freedom"},
 		{"p", "Welch t-test, two-sided"},
 		{"p, BH", "Benjamini-Hochberg adjusted across the k states of this measure (Welch p-values only)"},
@@ -231,6 +233,8 @@ func dwellTable(id, a, b string, res *result) *Table {
 			cell(Part{Col: "measure", V: m, Text: label}),
 			meanCell("a", row), meanCell("b", row),
 			valCell("difference", row["difference"], signed),
+			cell(value("n_without_visit_a", row["n_without_visit_a"], integer), text(" / "), value("n_without_visit_b", row["n_without_visit_b"], integer)),
+			cell(value("n_censored_only_a", row["n_censored_only_a"], integer), text(" / "), value("n_censored_only_b", row["n_censored_only_b"], integer)),
 			cell(value("welch_t", row["welch_t"], fixed(2)), text(" ("), value("welch_df", row["welch_df"], fixed(1)), text(")")),
 			pCell("welch_p", row["welch_p"], false), pCell("welch_p_bh", row["welch_p_bh"], true),
 			pCell("perm_p", row["perm_p"], false), pCell("perm_p_bh", row["perm_p_bh"], true),
