@@ -126,7 +126,7 @@ func BenchmarkAdjustBH10000(b *testing.B) {
 		p[i] = rng.Float64()
 	}
 	for b.Loop() {
-		if _, err := AdjustPValues(p, AdjustBY); err != nil {
+		if _, err := AdjustPValues(p, AdjustBH); err != nil {
 			b.Fatal(err)
 		}
 	}
