@@ -6,7 +6,7 @@
 -- with a covariate value are used; a subject's sessions are averaged first.
 -- dwell_seconds is the mean length of complete runs (not cut by the scan's
 -- start or end, docs/methods.md §4; all runs for an analysis written before
--- layout 3): it leaves out subjects who never visited the state (no dwell
+-- layout 4): it leaves out subjects who never visited the state (no dwell
 -- time is defined) and those whose runs were all cut by the scan's edges;
 -- n counts the subjects used. slope is
 -- the least-squares change of the measure per unit of the covariate. BH

@@ -16,7 +16,7 @@
 -- run is cut by the scan and its length is only a lower bound
 -- (docs/methods.md §4). Leaving them out selects subjects, which the two
 -- counts let a reader judge. dwell_runs says which runs the dwell time
--- averages: 'complete', or 'all' for an analysis written before layout 3
+-- averages: 'complete', or 'all' for an analysis written before layout 4
 -- (no complete-run columns; re-ingest for the complete-run dwell).
 -- difference = mean_a - mean_b. BH adjustment is across the states of one
 -- measure.

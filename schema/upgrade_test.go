@@ -142,20 +142,23 @@ func TestOpenRefusesOptionPaths(t *testing.T) {
 	}
 }
 
-// TestUpgradeLayout2: a layout-2 file (the current DDL without layout 3's
-// complete-run dwell columns of state_metrics) upgrades in place to layout
-// 3: the four columns appear, NULL for the old rows, and the old values
-// are kept. DuckDB's information_schema is the referee.
+// TestUpgradeLayout2 upgrades a layout-2 file (the current DDL without the
+// core networks of layout 3) in place: core_betti_curves appears,
+// state_networks gains core_timepoints, NULL for the old rows, and the old
+// rows are kept. DuckDB's information_schema is the referee.
 func TestUpgradeLayout2(t *testing.T) {
 	ctx := context.Background()
-	ddl := ddlV1
-	for _, c := range []string{"n_complete_dwells", "n_censored_dwells", "complete_dwell_windows", "complete_dwell_seconds"} {
-		i := strings.Index(ddl, "    "+c+" ")
-		j := i + strings.Index(ddl[i:], "\n") + 1
-		ddl = ddl[:i] + ddl[j:]
+	ddl := DDL()
+	i := strings.Index(ddl, "CREATE TABLE IF NOT EXISTS core_betti_curves (")
+	j := i + strings.Index(ddl[i:], "\n);") + 3
+	ddl = ddl[:i] + ddl[j:]
+	col := "    tree_weight DOUBLE NOT NULL,   -- total weight of the maximum spanning tree\n"
+	k := strings.Index(ddl, col)
+	end := k + len(col) + strings.Index(ddl[k+len(col):], "\n") + 1
+	if i < 0 || k < 0 {
+		t.Fatal("the DDL no longer has the layout-3 additions this test removes")
 	}
-	// The last column left now ends with a comma before ");".
-	ddl = strings.Replace(ddl, "mean_dwell_seconds DOUBLE,", "mean_dwell_seconds DOUBLE ", 1)
+	ddl = ddl[:k] + "    tree_weight DOUBLE NOT NULL\n" + ddl[end:]
 	path := tempPath(t)
 	c, err := duckdb.NewConnector(path, nil)
 	if err != nil {
@@ -163,8 +166,9 @@ func TestUpgradeLayout2(t *testing.T) {
 	}
 	raw := sql.OpenDB(c)
 	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (2, now())`,
-		`INSERT INTO state_metrics VALUES (1, 's1', '', 1, 0.5, 3, 4.0, 8.0)`} {
+		`INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5)`} {
 		if _, err := raw.Exec(q); err != nil {
+			raw.Close()
 			t.Fatalf("%v\n%s", err, q)
 		}
 	}
@@ -177,9 +181,62 @@ func TestUpgradeLayout2(t *testing.T) {
 	if from, err := Upgrade(ctx, db); err != nil || from != 2 {
 		t.Fatalf("Upgrade: from %d, %v", from, err)
 	}
+	for _, tc := range []struct{ table, column string }{{"core_betti_curves", "betti"}, {"state_networks", "core_timepoints"}} {
+		var n int
+		db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = ? AND column_name = ?`, tc.table, tc.column).Scan(&n)
+		if n != 1 {
+			t.Errorf("%s.%s missing after the upgrade", tc.table, tc.column)
+		}
+	}
+	var core sql.NullInt64
+	var windows int
+	if err := db.QueryRow(`SELECT n_windows, core_timepoints FROM state_networks`).Scan(&windows, &core); err != nil || windows != 10 || core.Valid {
+		t.Errorf("the old state_networks row after the upgrade: %d windows, core %v, %v", windows, core, err)
+	}
+}
+
+// TestUpgradeLayout3: a layout-3 file (the current DDL without layout 4's
+// complete-run dwell columns of state_metrics) upgrades in place to layout
+// 4: the four columns appear, NULL for the old rows, and the old values
+// are kept.
+func TestUpgradeLayout3(t *testing.T) {
+	ctx := context.Background()
+	ddl := ddlV1
+	for _, c := range []string{"n_complete_dwells", "n_censored_dwells", "complete_dwell_windows", "complete_dwell_seconds"} {
+		i := strings.Index(ddl, "    "+c+" ")
+		if i < 0 {
+			t.Fatalf("the DDL no longer has %s", c)
+		}
+		j := i + strings.Index(ddl[i:], "\n") + 1
+		ddl = ddl[:i] + ddl[j:]
+	}
+	// The last column left now ends with a comma before ");".
+	ddl = strings.Replace(ddl, "mean_dwell_seconds DOUBLE,", "mean_dwell_seconds DOUBLE ", 1)
+	path := tempPath(t)
+	c, err := duckdb.NewConnector(path, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw := sql.OpenDB(c)
+	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (3, now())`,
+		`INSERT INTO state_metrics VALUES (1, 's1', '', 1, 0.5, 3, 4.0, 8.0)`} {
+		if _, err := raw.Exec(q); err != nil {
+			raw.Close()
+			t.Fatalf("%v\n%s", err, q)
+		}
+	}
+	raw.Close()
+	db, err := Open(path, false, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if from, err := Upgrade(ctx, db); err != nil || from != 3 {
+		t.Fatalf("Upgrade: from %d, %v", from, err)
+	}
 	var v int
-	if err := db.QueryRow(`SELECT max(version) FROM schema_version`).Scan(&v); err != nil || v != 3 || Version != 3 {
-		t.Errorf("version %d after the upgrade (%v), want 3", v, err)
+	if err := db.QueryRow(`SELECT max(version) FROM schema_version`).Scan(&v); err != nil || v != 4 || Version != 4 {
+		t.Errorf("version %d after the upgrade (%v), want 4", v, err)
 	}
 	var n, nc sql.NullInt64
 	var dw, cs sql.NullFloat64

@@ -13,12 +13,15 @@ import (
 // report-wide family of Options.AdjustAll, one per hypothesis: the
 // studentised permutation p of each occupancy and dwell contrast (its Welch
 // p tests the same hypothesis and is left out so no hypothesis counts
-// twice), the curve permutation p of each Betti-curve contrast, and the
-// Pearson p of each covariate association. Descriptive statistics
-// (distances, the state-pair table) never enter it.
+// twice), the curve permutation p of each Betti-curve contrast, the
+// Freedman-Lane p of each covariate-adjusted contrast (report --adjust;
+// descriptive rows there have no p and stay out) and the Pearson p of each
+// covariate association. Descriptive statistics (distances, the
+// state-pair table) never enter it.
 var familyColumns = map[string]string{
 	"dwell":      "perm_p",
 	"filtration": "curve_perm_p",
+	"adjusted":   "perm_p",
 	"covariate":  "p",
 }
 
@@ -48,6 +51,10 @@ func (r *Report) adjustAcrossTables(method string) error {
 	for _, c := range r.Contrasts {
 		tables = append(tables, c.Dwell, c.Filtration)
 		cols = append(cols, familyColumns["dwell"], familyColumns["filtration"])
+	}
+	for _, c := range r.Adjusted {
+		tables = append(tables, c.Table)
+		cols = append(cols, familyColumns["adjusted"])
 	}
 	for _, t := range r.Covariates {
 		tables = append(tables, t)

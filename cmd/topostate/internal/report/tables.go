@@ -243,13 +243,16 @@ func dwellTable(id, a, b string, res *result) *Table {
 	return t
 }
 
-// filtrationTable shows filtration_tests_by_group.
+// filtrationTable shows the group test of filtration_tests_by_group: the
+// permutation test of the core Betti curves (docs/methods.md §7). The
+// query's pooled-event KS distance is descriptive and is left out here, so
+// it is never read beside the test.
 func filtrationTable(id string, res *result) *Table {
 	t := &Table{ID: "t-filtration-" + id, Left: 2, Head: []Head{
 		{"state", ""},
 		{"Betti curve", "β0: spanning-tree edges, where components merge; β1: the other edges, where cycles close"},
-		{"subjects", "subjects of each group with a network in this state"},
-		{"curve gap", "largest distance between the two group-mean Betti curves"},
+		{"subjects", "subjects of each group with a core network in this state (enough time points covered only by windows of the state)"},
+		{"curve gap", "largest distance between the two group-mean core Betti curves"},
 		{"p perm.", "group labels of whole subjects relabelled: the group test"},
 		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows of this table (every state and both Betti curves of this contrast)"},
 	}}
