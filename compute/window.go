@@ -1,8 +1,10 @@
 package compute
 
 import (
+	"errors"
 	"fmt"
 	"math"
+	"slices"
 )
 
 // Taper selects the weights of the points inside a correlation window.
@@ -231,26 +233,8 @@ func newWindowSlider(y Series, opt WindowOptions) (*windowSlider, error) {
 		sum: make([]float64, p), have: -1, mean: make([]float64, p), q: make([]float64, p),
 		d: make([]float64, opt.Width*p)}
 	for j := 0; j < p; j++ {
-		var m float64
-		for t := 0; t < T; t++ {
-			m += y.Data[t*p+j]
-		}
-		m /= float64(T)
-		var mx float64
-		for t := 0; t < T; t++ {
-			mx = math.Max(mx, math.Abs(y.Data[t*p+j]-m))
-		}
-		if math.IsInf(m, 0) || math.IsInf(mx, 0) || math.IsNaN(mx) {
-			return nil, &RegionError{Region: j, Time: -1, Window: -1,
-				Err: fmt.Errorf("%w: values too large to average", ErrNonFinite)}
-		}
-		if mx == 0 {
-			return nil, &RegionError{Region: j, Time: -1, Window: 0, Start: 0, Width: opt.Width,
-				Err: fmt.Errorf("%w (constant over the whole series)", ErrZeroVariance)}
-		}
-		inv := 1 / mx
-		for t := 0; t < T; t++ {
-			sl.x[t*p+j] = (y.Data[t*p+j] - m) * inv
+		if err := scaleRegion(y, j, opt.Width, func(t int, v float64) { sl.x[t*p+j] = v }); err != nil {
+			return nil, err
 		}
 	}
 	for j := 0; j < p; j++ {
@@ -272,6 +256,116 @@ func newWindowSlider(y Series, opt WindowOptions) (*windowSlider, error) {
 	}
 	sl.c = make([]float64, sl.rowStart[p])
 	return sl, nil
+}
+
+// scaleRegion centres region j of y on its mean and divides it by its
+// largest deviation, handing each value to set (the window slider's
+// working copy, and RegionWindowProblems, which must see exactly the same
+// values to agree with it on which windows are constant).
+func scaleRegion(y Series, j, width int, set func(t int, v float64)) error {
+	T, p := y.T, y.P
+	var m float64
+	for t := 0; t < T; t++ {
+		m += y.Data[t*p+j]
+	}
+	m /= float64(T)
+	var mx float64
+	for t := 0; t < T; t++ {
+		mx = math.Max(mx, math.Abs(y.Data[t*p+j]-m))
+	}
+	if math.IsInf(m, 0) || math.IsInf(mx, 0) || math.IsNaN(mx) {
+		return &RegionError{Region: j, Time: -1, Window: -1,
+			Err: fmt.Errorf("%w: values too large to average", ErrNonFinite)}
+	}
+	if mx == 0 {
+		return &RegionError{Region: j, Time: -1, Window: 0, Start: 0, Width: width,
+			Err: fmt.Errorf("%w (constant over the whole series)", ErrZeroVariance)}
+	}
+	inv := 1 / mx
+	for t := 0; t < T; t++ {
+		set(t, (y.Data[t*p+j]-m)*inv)
+	}
+	return nil
+}
+
+// RegionWindowProblems finds every region of y whose correlations would be
+// undefined in SlidingCorrelations after Preprocess with pre: a region
+// with no variance left after preprocessing (Preprocess's error), or one
+// whose preprocessed values are all equal within some window (the first
+// such window is reported). Regions constant over the whole raw series are
+// skipped (ConstantRegions; callers apply their own policy to them). Each
+// problem is a *RegionError wrapping ErrZeroVariance with Region indexing
+// y's columns. Validation calls it so that a series refused here is the
+// series the computation would stop at, and no other.
+func RegionWindowProblems(y Series, pre PreprocessOptions, win WindowOptions) []*RegionError {
+	if y.T < 2 || len(y.Data) != y.T*y.P || win.Width < 2 || win.Step < 1 {
+		return nil
+	}
+	whole := map[int]bool{}
+	for _, j := range ConstantRegions(y) {
+		whole[j] = true
+	}
+	var keep []int
+	for j := 0; j < y.P; j++ {
+		if !whole[j] {
+			keep = append(keep, j)
+		}
+	}
+	var out []*RegionError
+	var z Series
+	for {
+		if len(keep) < 2 {
+			return out
+		}
+		sub := NewSeries(y.T, len(keep))
+		for t := 0; t < y.T; t++ {
+			for c, j := range keep {
+				sub.Data[t*len(keep)+c] = y.Data[t*y.P+j]
+			}
+		}
+		var err error
+		z, err = Preprocess(sub, pre)
+		if err == nil {
+			break
+		}
+		var re *RegionError
+		if !errors.As(err, &re) || !errors.Is(err, ErrZeroVariance) || re.Region < 0 || re.Region >= len(keep) {
+			return out // not a window problem (non-finite values, options): reported elsewhere
+		}
+		re.Region = keep[re.Region]
+		out = append(out, re)
+		keep = append(keep[:slices.Index(keep, re.Region)], keep[slices.Index(keep, re.Region)+1:]...)
+	}
+	nw := NumWindows(y.T, win.Width, win.Step)
+	col := make([]float64, y.T)
+	for c, j := range keep {
+		if err := scaleRegion(z, c, win.Width, func(t int, v float64) { col[t] = v }); err != nil {
+			var re *RegionError
+			if errors.As(err, &re) && errors.Is(err, ErrZeroVariance) {
+				re.Region = j
+				out = append(out, re)
+			}
+			continue
+		}
+		// Runs of equal values; a window lies inside a run of length >= width.
+		for s := 0; s < y.T; {
+			e := s + 1
+			for e < y.T && col[e] == col[s] {
+				e++
+			}
+			if e-s >= win.Width {
+				i := (s + win.Step - 1) / win.Step // first window starting at or after s
+				if a := i * win.Step; i < nw && a+win.Width <= e {
+					out = append(out, &RegionError{Region: j, Time: -1, Window: i, Start: a, Width: win.Width,
+						Err: fmt.Errorf("%w: all %d values in the window are equal", ErrZeroVariance, win.Width)})
+					break
+				}
+			}
+			s = e
+		}
+	}
+	slices.SortFunc(out, func(a, b *RegionError) int { return a.Region - b.Region })
+	return out
 }
 
 // checkWindow reports the first region that is constant in window i.

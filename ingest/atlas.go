@@ -11,6 +11,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 
 	"github.com/topostate/topostate/compute"
 )
@@ -185,6 +186,10 @@ func ReadLabelTable(path string) ([]LabelRow, error) {
 			break
 		}
 		if len(bytes.TrimSpace(line)) == 0 {
+			continue
+		}
+		if !utf8.Valid(line) {
+			problems = append(problems, notUTF8(path, lr.line, line, '\t', ""))
 			continue
 		}
 		cells := strings.Split(string(line), "\t")

@@ -25,6 +25,23 @@ type Cohort struct {
 	Excluded     []Exclusion
 	Warnings     []string
 	Source       *Source // reads each input's series (tables, .npy, NIfTI with the atlas)
+	// Window is the window width used: Options.Window, or when that is 0
+	// the rule's width at the cohort's shortest TR (WindowFor); TaperSD
+	// likewise (TaperSigmaFor). Apply puts them into the options.
+	Window  int
+	TaperSD float64
+}
+
+// Apply returns o with the window width and taper sigma the cohort
+// resolved (when o left them to the rules).
+func (c *Cohort) Apply(o Options) Options {
+	if o.Window == 0 {
+		o.Window = c.Window
+	}
+	if o.TaperSD == 0 {
+		o.TaperSD = c.TaperSD
+	}
+	return o
 }
 
 // SubjectInput is one series that passed validation.
@@ -49,6 +66,7 @@ type fileCheck struct {
 	T        int
 	sha      string
 	constant []int
+	windows  []*compute.RegionError // regions whose window correlations are undefined (RegionWindowProblems)
 	tr       float64
 	trSource string
 	err      error
@@ -80,7 +98,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 			ppath = alt
 		}
 	}
-	part, err := ReadParticipants(ppath)
+	part, err := ReadParticipantsEncoding(ppath, o.Encoding)
 	if err != nil {
 		var ps Problems
 		if errors.As(err, &ps) {
@@ -176,6 +194,66 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if ref >= 0 && len(c.Keep) < 3 {
 		problems = append(problems, fmt.Errorf("ingest: only %d region(s) left after dropping constant ones; a network needs at least 3", len(c.Keep)))
 	}
+	// The window: given, or from the rule at the shortest TR of the
+	// series that were read (every series then spans at least 1/f_min
+	// seconds per window). A series shorter than the window is refused.
+	c.Window = o.Window
+	if c.Window == 0 {
+		for i, ch := range checks {
+			if bad[i] == nil && ch.tr > 0 {
+				c.Window = max(c.Window, WindowFor(ch.tr, o.MinFreq))
+			}
+		}
+	}
+	c.TaperSD = o.TaperSD
+	if c.TaperSD == 0 {
+		c.TaperSD = TaperSigmaFor(c.Window)
+	}
+	for i, ch := range checks {
+		if bad[i] == nil && c.Window > 0 && ch.T < c.Window {
+			why := "--window is %d; use a shorter window"
+			if o.Window == 0 {
+				why = fmt.Sprintf("the window is %%d (1/--min-freq = %g s at the cohort's shortest TR); pass a shorter --window or a higher --min-freq,", 1/o.MinFreq)
+			}
+			bad[i] = &ParseError{Path: inputs[i].Path, Err: fmt.Errorf("%w: %d time points, "+why+" or leave this series out", ErrTooShort, ch.T, c.Window)}
+		}
+	}
+	// Windows whose correlations are undefined (a region that does not
+	// vary for a window's length) in a region that is analysed: the series
+	// is refused like any bad series (skipped under --on-bad-subject skip),
+	// here and in stage plan, so the computation never meets one.
+	if ref >= 0 && c.Window > 0 {
+		if o.Window == 0 { // the window was derived from the cohort: the files are read again
+			ow := o
+			ow.Window = c.Window
+			pre, win := computeOptions(ow)
+			for i := range checks {
+				if bad[i] != nil || checks[i].T < c.Window {
+					continue
+				}
+				sf, err := src.Read(inputs[i])
+				if err != nil {
+					bad[i] = err
+					continue
+				}
+				checks[i].windows = compute.RegionWindowProblems(sf.Series, pre, win)
+			}
+		}
+		kept := map[int]bool{}
+		for _, j := range c.Keep {
+			kept[j] = true
+		}
+		for i, ch := range checks {
+			if bad[i] != nil {
+				continue
+			}
+			for _, re := range ch.windows {
+				if kept[re.Region] {
+					bad[i] = errors.Join(bad[i], windowProblem(inputs[i].Path, ch.regions, re))
+				}
+			}
+		}
+	}
 	for i, in := range inputs {
 		if bad[i] != nil {
 			if o.OnBadSubject == "skip" {
@@ -187,7 +265,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		}
 		ch := checks[i]
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, o.Window, o.Step)})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, c.Window, o.Step)})
 	}
 	if part != nil {
 		have := map[string]bool{}
@@ -217,7 +295,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		k, flag = o.StatesMax, "--states-max"
 	}
 	if k > windows {
-		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), o.Window, o.Step)}
+		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), c.Window, o.Step)}
 	}
 	return c, nil
 }
@@ -231,9 +309,9 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 	}
 	ch.regions, ch.T, ch.sha = sf.Regions, sf.Series.T, sf.SHA256
 	ch.constant = compute.ConstantRegions(sf.Series)
-	if sf.Series.T < o.Window {
-		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.Window)}
-		return ch
+	if o.Window > 0 && sf.Series.T >= o.Window { // a derived window is checked in LoadCohort
+		pre, win := computeOptions(o)
+		ch.windows = compute.RegionWindowProblems(sf.Series, pre, win)
 	}
 	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
 	// the file itself states (a NIfTI header's pixdim[4] with its unit).
@@ -245,15 +323,54 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		ch.trSource = in.Sidecar
 		if errors.Is(ch.err, ErrNoTR) && sf.TR > 0 {
 			ch.tr, ch.trSource, ch.err = sf.TR, in.Path+" (header pixdim[4])", nil
+			if err := CheckTR(sf.TR); err != nil {
+				ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; put RepetitionTime in %s or pass --tr SECONDS", err, in.Sidecar)
+			}
 		}
 	case sf.TR > 0:
 		ch.tr, ch.trSource = sf.TR, in.Path+" (header pixdim[4])"
+		if err := CheckTR(sf.TR); err != nil {
+			ch.err = perr(in.Path, 0, 0, "the header's pixdim[4] as a repetition time: %v; pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", err)
+		}
 	case FileKind(in.Path) == KindNifti:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: the header's pixdim[4] has no time unit (xyzt_units); pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	default:
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: pass --tr SECONDS or put a JSON sidecar with RepetitionTime beside the file", ErrNoTR)}
 	}
 	return ch
+}
+
+// computeOptions are the preprocessing and window options of o, as the
+// computation uses them.
+func computeOptions(o Options) (compute.PreprocessOptions, compute.WindowOptions) {
+	pre := compute.PreprocessOptions{Detrend: o.Detrend, SmoothK: o.SmoothK, SmoothSigma: o.SmoothSD}
+	win := compute.WindowOptions{Width: o.Window, Step: o.Step, FisherZ: o.FisherZ, GaussSigma: o.TaperSD}
+	if o.Taper == "gauss" {
+		win.Taper = compute.TaperGauss
+	}
+	return pre, win
+}
+
+// windowProblem words a region whose window correlations are undefined
+// (the policy: such a series is refused, or left out
+// under --on-bad-subject skip): the region's name, its column, and the
+// window's time points counted from 1 (and its lines, for a table with a
+// header line).
+func windowProblem(path string, regions []string, re *compute.RegionError) error {
+	name := fmt.Sprint(re.Region + 1)
+	if re.Region < len(regions) {
+		name = regions[re.Region]
+	}
+	if re.Window < 0 {
+		return &ParseError{Path: path, Column: re.Region + 1, Err: fmt.Errorf("%w: region %q has no variance left after detrending or smoothing (is it a straight line?); fix the series, or pass --on-bad-subject skip to leave this series out", ErrUndefinedWindow, name)}
+	}
+	first, last := re.Start+1, re.Start+re.Width
+	lines := ""
+	if FileKind(path) == KindTable {
+		lines = fmt.Sprintf(", lines %d..%d", first+1, last+1)
+	}
+	return &ParseError{Path: path, Column: re.Region + 1, Err: fmt.Errorf("%w: region %q does not vary over time points %d..%d%s (window %d of %d time points), so its correlations there are undefined; "+
+		"fix the series (a stretch filled with one value?), or pass --on-bad-subject skip to leave this series out", ErrUndefinedWindow, name, first, last, lines, re.Window+1, re.Width)}
 }
 
 func regionDiff(want, got []string) string {

@@ -120,8 +120,8 @@ func SidecarTR(path string) (float64, error) {
 	if side.RepetitionTime == nil {
 		return 0, &ParseError{Path: path, Err: fmt.Errorf("%w: the sidecar has no RepetitionTime", ErrNoTR)}
 	}
-	if !(*side.RepetitionTime > 0) {
-		return 0, perr(path, 0, 0, "RepetitionTime %v is not a positive number of seconds", *side.RepetitionTime)
+	if err := CheckTR(*side.RepetitionTime); err != nil {
+		return 0, perr(path, 0, 0, "RepetitionTime: %v", err)
 	}
 	return *side.RepetitionTime, nil
 }

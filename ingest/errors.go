@@ -63,6 +63,7 @@ var (
 	ErrEncoding          = errors.New("file is not UTF-8 text")
 	ErrLineTooLong       = errors.New("line is too long")
 	ErrConstantRegion    = errors.New("region has a constant series")
+	ErrUndefinedWindow   = errors.New("a window's correlations are undefined")
 	ErrRegionMismatch    = errors.New("regions differ from the first series")
 	ErrTooShort          = errors.New("fewer time points than the window")
 	ErrDuplicate         = errors.New("listed twice")

@@ -53,7 +53,7 @@ func refLines(data []byte) [][]byte {
 
 func refCellOK(cell []byte) bool {
 	v, err := strconv.ParseFloat(string(bytes.TrimSpace(cell)), 64)
-	return err == nil && !math.IsNaN(v) && !math.IsInf(v, 0)
+	return err == nil && !math.IsNaN(v) && !math.IsInf(v, 0) && math.Abs(v) <= MaxValue // MaxValue: see checkValue
 }
 
 // checkPositioned fails unless every leaf of err is a *ParseError naming

@@ -91,7 +91,13 @@ func ReadNpyFile(path string) (sf *SeriesFile, err error) {
 	if T < 1 || p < 2 {
 		return nil, bad("shape %v; want at least one time point and two regions (rows are time points, columns regions)", d.Shape)
 	}
+	// The data size is checked by division, so no product of the header's
+	// numbers can overflow (a crafted shape of 2^62 x 4 wraps to a small
+	// size in int64): the array must fit in the bytes the file has.
 	have := int64(len(b) - start - hlen)
+	if int64(p) > math.MaxInt64/int64(size) || int64(T) > math.MaxInt64/int64(size)/int64(p) {
+		return nil, bad("shape %v of %s is larger than any file can hold (this one has %d data bytes); the header is damaged", d.Shape, dtype, have)
+	}
 	want := int64(T) * int64(p) * int64(size)
 	if have < want {
 		return nil, &ParseError{Path: path, Err: fmt.Errorf("%w: shape %v of %s needs %d data bytes, the file has %d", ErrTruncated, d.Shape, dtype, want, have)}
@@ -127,13 +133,13 @@ func ReadNpyFile(path string) (sf *SeriesFile, err error) {
 	}
 	var problems Problems
 	for i, v := range y.Data {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
+		if err := checkValue(v); err != nil {
 			if len(problems) == maxProblemsPerFile {
 				problems = append(problems, perr(path, 0, 0, "and more values like these"))
 				break
 			}
 			t, j := i/p, i%p
-			problems = append(problems, &ParseError{Path: path, Err: fmt.Errorf("%w: row %d, column %d (both from 0) is %v; interpolate or drop the time point before ingest", ErrNonNumeric, t, j, v)})
+			problems = append(problems, &ParseError{Path: path, Err: fmt.Errorf("row %d, column %d (both from 0): %w", t, j, err)})
 		}
 	}
 	if len(problems) > 0 {

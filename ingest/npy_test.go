@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"errors"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -94,7 +95,16 @@ func TestNpyErrors(t *testing.T) {
 		{"int64 values", npyBytes(t, []int64{1, 2, 3, 4}), ErrNpy, "dtype <i8"},
 		{"one dimension", npyBytes(t, []float64{1, 2, 3}), ErrNpy, "shape [3]"},
 		{"one column", npyBytes(t, mat.NewDense(4, 1, []float64{1, 2, 3, 4})), ErrNpy, "two regions"},
-		{"NaN", npyBytes(t, nan), ErrNonNumeric, "row 1, column 1 (both from 0) is NaN"},
+		{"NaN", npyBytes(t, nan), ErrNonNumeric, "row 1, column 1 (both from 0): cell is not a finite number: NaN"},
+		{"1e308", npyBytes(t, mat.NewDense(2, 2, []float64{1, 2, 1e308, 4})), ErrNonNumeric, "row 1, column 0 (both from 0): cell is not a finite number: 1e+308 is larger in magnitude than 1e+100"},
+		// Crafted shapes (issue 13, class 5): products that overflow int64
+		// (2^62 x 4 x 8 wraps to 0), negative and huge dimensions.
+		{"shape overflows", npyHeader("<f8", "(4611686018427387904, 4)", 168), ErrNpy, "larger than any file can hold (this one has 168 data bytes)"},
+		{"shape overflows to the file size", npyHeader("<f8", "(2305843009213693954, 2)", 32), ErrNpy, "larger than any file can hold"},
+		{"shape wraps negative", npyHeader("<f4", "(3074457345618258603, 3)", 36), ErrNpy, "larger than any file can hold"},
+		{"shape negative", npyHeader("<f8", "(-3, 2)", 48), ErrNpy, ""},
+		{"shape huge", npyHeader("<f8", "(9223372036854775807, 9223372036854775807)", 64), ErrNpy, ""},
+		{"shape beyond int64", npyHeader("<f8", "(99999999999999999999999, 2)", 64), ErrNpy, ""},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -113,6 +123,19 @@ func TestNpyErrors(t *testing.T) {
 	}
 }
 
+// npyHeader writes a version 1.0 .npy file with the header fields given
+// as text (as a crafted file would hold them) and n zero data bytes.
+func npyHeader(descr, shape string, n int) []byte {
+	h := fmt.Sprintf("{'descr': '%s', 'fortran_order': False, 'shape': %s, }", descr, shape)
+	for (10+len(h)+1)%64 != 0 {
+		h += " "
+	}
+	h += "\n"
+	b := append([]byte("\x93NUMPY\x01\x00"), byte(len(h)), byte(len(h)>>8))
+	b = append(b, h...)
+	return append(b, make([]byte, n)...)
+}
+
 // FuzzReadNpy: any bytes give a series or an error, never a crash, and a
 // series has T x p finite values.
 func FuzzReadNpy(f *testing.F) {
@@ -123,6 +146,11 @@ func FuzzReadNpy(f *testing.F) {
 		}
 		f.Add(b)
 	}
+	// Crafted shapes whose sizes overflow (issue 13, class 5).
+	f.Add(npyHeader("<f8", "(2305843009213693954, 2)", 32))
+	f.Add(npyHeader("<f4", "(3074457345618258603, 3)", 36))
+	f.Add(npyHeader("<f8", "(-3, 2)", 48))
+	f.Add(npyHeader(">f8", "(9223372036854775807, 9223372036854775807)", 64))
 	dir := f.TempDir()
 	f.Fuzz(func(t *testing.T, b []byte) {
 		p := filepath.Join(dir, "x.npy")

@@ -12,6 +12,7 @@ import (
 	"runtime"
 	"slices"
 	"sort"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -101,6 +102,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	if err := o.Check(); err != nil {
 		return nil, err
 	}
+	o = c.Apply(o)
 	sum.Warnings = c.Warnings
 	workers := o.Workers
 	if workers <= 0 {
@@ -108,6 +110,9 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	}
 	st := &stages{o: o, c: c, workers: workers, prog: prog}
 	if err := st.setup(); err != nil {
+		return nil, err
+	}
+	if err := preflight(ctx, db, c, o); err != nil {
 		return nil, err
 	}
 
@@ -187,7 +192,55 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.Occupancies = occ
 	sum.WorkerTimes = st.work.list()
 	sum.Fits = st.fits
+	sum.Warnings = c.Warnings // fit may have added one
 	return sum, nil
+}
+
+// preflight refuses, before anything is computed, what the write would
+// refuse after the whole computation: a name already taken, and a
+// covariate whose type differs from the warehouse's column of that name
+// (schema.Writer checks both again inside the transaction). This run holds
+// the file's lock, so nothing changes between the two checks.
+func preflight(ctx context.Context, db *sql.DB, c *Cohort, o Options) error {
+	var n int
+	err := db.QueryRowContext(ctx, `SELECT count(*) FROM information_schema.tables
+		WHERE table_catalog = current_database() AND table_schema = 'main' AND table_name IN ('analyses', 'subjects')`).Scan(&n)
+	if err != nil || n < 2 {
+		return nil // a new file, or one Begin will refuse with its own message
+	}
+	if o.Analysis != "" {
+		if err := db.QueryRowContext(ctx, `SELECT count(*) FROM analyses WHERE name = ?`, o.Analysis).Scan(&n); err == nil && n > 0 {
+			return fmt.Errorf("ingest: %q: %w; choose another --analysis name or remove the old one with 'topostate drop'", o.Analysis, schema.ErrAnalysisExists)
+		}
+	}
+	p := c.Participants
+	if p == nil {
+		return nil
+	}
+	rows, err := db.QueryContext(ctx, `SELECT column_name, data_type FROM information_schema.columns
+		WHERE table_catalog = current_database() AND table_schema = 'main' AND table_name = 'subjects'`)
+	if err != nil {
+		return nil
+	}
+	have := map[string]string{}
+	for rows.Next() {
+		var name, typ string
+		if rows.Scan(&name, &typ) == nil {
+			have[strings.ToLower(name)] = typ
+		}
+	}
+	rows.Close()
+	var problems Problems
+	for i, cv := range p.Covariates {
+		if t, ok := have[strings.ToLower(cv.Name)]; ok && !strings.EqualFold(t, cv.Type) {
+			problems = append(problems, perr(p.Path, 1, i+2, "column %q is %s in this cohort but %s in the warehouse, where earlier analyses stored it; "+
+				"rename the column, or write its values as that type, or use another database file", cv.Name, cv.Type, t))
+		}
+	}
+	if len(problems) > 0 {
+		return problems
+	}
+	return nil
 }
 
 // recordAnalysis inserts the analyses row, with every option as JSON.
@@ -230,11 +283,7 @@ type stages struct {
 }
 
 func (s *stages) setup() error {
-	s.pre = compute.PreprocessOptions{Detrend: s.o.Detrend, SmoothK: s.o.SmoothK, SmoothSigma: s.o.SmoothSD}
-	s.win = compute.WindowOptions{Width: s.o.Window, Step: s.o.Step, FisherZ: s.o.FisherZ, GaussSigma: s.o.TaperSD}
-	if s.o.Taper == "gauss" {
-		s.win.Taper = compute.TaperGauss
-	}
+	s.pre, s.win = computeOptions(s.o)
 	if s.o.Distance == "manhattan" {
 		s.dist = compute.Manhattan
 	}
@@ -278,7 +327,7 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	}
 	y, err = compute.Preprocess(y, s.pre)
 	if err != nil {
-		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
 	}
 	var buf []float32
 	if b, ok := s.bufs.Get().(*[]float32); ok {
@@ -286,10 +335,23 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	}
 	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
 	if err != nil {
-		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
 	}
 	s.work.since(stage+": windows", t)
 	return m, y, nil
+}
+
+// regionError names the region of a compute.RegionError (an index into
+// the analysed columns) by its name and column in the file; validation
+// refuses such series first, so this is a safety net.
+func (s *stages) regionError(path string, err error) error {
+	var re *compute.RegionError
+	if errors.As(err, &re) && errors.Is(err, compute.ErrZeroVariance) && re.Region >= 0 && re.Region < len(s.c.Keep) {
+		cp := *re
+		cp.Region = s.c.Keep[re.Region]
+		return windowProblem(path, s.c.Regions, &cp)
+	}
+	return fmt.Errorf("ingest: %s: %w", path, err)
 }
 
 // release hands a window matrix's storage back for the next series; m must
@@ -543,7 +605,11 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			s.k = e.ChordK
 		case "second-diff":
 			s.k = e.SecondDiffK
-		case "gap":
+		case "gap", "strength":
+		default:
+			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+		}
+		if e.Rule == "gap" || s.o.AllRules {
 			gopt := compute.GapOptions{References: s.o.GapReferences, Sample: s.o.GapWindows, MaxIter: s.o.MaxIter,
 				Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
 			s.prog.Stage(fmt.Sprintf("gap statistic, %d reference sets", s.o.GapReferences), s.o.GapReferences+1)
@@ -554,9 +620,24 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			}
 			t = s.work.since("fit: gap statistic", tg)
 			e.Gap = &g
-			s.k = g.K
-		default:
-			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+			if e.Rule == "gap" {
+				s.k = g.K
+			}
+		}
+		if e.Rule == "strength" || s.o.AllRules {
+			sopt := compute.StrengthOptions{Splits: s.o.StrengthSplits, Sample: s.o.StrengthWindows, Threshold: s.o.StrengthThreshold,
+				Restarts: scan.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
+			s.prog.Stage(fmt.Sprintf("prediction strength, %d random halvings", s.o.StrengthSplits), s.o.StrengthSplits)
+			ts := time.Now()
+			ps, err := compute.PredictionStrength(x, s.o.StatesMin, s.o.StatesMax, sopt, s.o.Seed)
+			if err != nil {
+				return fmt.Errorf("ingest: prediction strength: %w", stopped(ctx, err))
+			}
+			t = s.work.since("fit: prediction strength", ts)
+			e.Strength = &ps
+			if e.Rule == "strength" {
+				s.k = ps.K
+			}
 		}
 		res = fits[s.k-s.o.StatesMin]
 		if scan.Restarts < opt.Restarts {
@@ -572,6 +653,9 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 				res = r
 			}
 		}
+	}
+	if !res.Converged {
+		s.c.Warnings = append(s.c.Warnings, fmt.Sprintf("the k-means fit at k = %d stopped at --max-iter %d before converging (relative change of W above 1e-6); its states may move with more iterations: raise --max-iter", s.k, s.o.MaxIter))
 	}
 	// Relabel: most frequent state first, ties by old label.
 	count := make([]int, s.k)
@@ -608,13 +692,16 @@ func (s *stages) writeStates(ctx context.Context, w *schema.Writer) error {
 	defer eb.Release()
 	if s.elbow != nil {
 		for i, pt := range s.elbow.Points {
-			var logW, refLogW, gap, se, pick any
+			var logW, refLogW, gap, se, pick, ps, psSE, psPick any
 			if g := s.elbow.Gap; g != nil && i < len(g.Points) && g.Points[i].K == pt.K {
 				gp := g.Points[i]
 				logW, refLogW, gap, se, pick = gp.LogW, gp.RefLogW, gp.Gap, gp.SE, pt.K == g.K
 			}
+			if st := s.elbow.Strength; st != nil && i < len(st.Points) && st.Points[i].K == pt.K {
+				ps, psSE, psPick = st.Points[i].Strength, st.Points[i].SE, pt.K == st.K
+			}
 			eb.Row(id, pt.K, pt.WCSS, pt.K == s.k, pt.K == s.elbow.ChordK, pt.K == s.elbow.SecondDiffK,
-				logW, refLogW, gap, se, pick)
+				logW, refLogW, gap, se, pick, ps, psSE, psPick)
 		}
 	}
 	cb := schema.NewBatch(schema.StateCentroids)

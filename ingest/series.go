@@ -9,6 +9,7 @@ import (
 	"math"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 	"unsafe"
 
 	"github.com/topostate/topostate/compute"
@@ -112,6 +113,8 @@ func ParseSeries(path string, r io.Reader, delim byte) (*SeriesFile, error) {
 				v, ok := parseCell(cell)
 				if !ok {
 					note(&ParseError{Path: path, Line: lr.line, Column: col, Err: fmt.Errorf("%w: %q in region %q; series cells must be finite numbers (no n/a, NaN or Inf: interpolate or drop the time point before ingest)", ErrNonNumeric, truncate(string(cell), 40), regions[col-1])})
+				} else if v > MaxValue || v < -MaxValue {
+					note(&ParseError{Path: path, Line: lr.line, Column: col, Err: fmt.Errorf("region %q: %w", regions[col-1], checkValue(v))})
 				}
 				data[row+col-1] = v
 			}
@@ -139,6 +142,9 @@ func ParseSeries(path string, r io.Reader, delim byte) (*SeriesFile, error) {
 }
 
 func parseHeader(path string, header []byte, delim byte) ([]string, error) {
+	if !utf8.Valid(header) {
+		return nil, notUTF8(path, 1, header, delim, "")
+	}
 	names := strings.Split(string(header), string(delim))
 	seen := map[string]int{}
 	for i, n := range names {

@@ -3,15 +3,19 @@ package ingest
 import (
 	"context"
 	"crypto/rand"
+	"crypto/sha256"
 	"database/sql"
 	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
+	"maps"
 	"os"
 	"path/filepath"
 	"runtime"
+	"slices"
 	"strconv"
 	"strings"
 	"time"
@@ -118,6 +122,7 @@ type Work struct {
 	Dir      string
 	Manifest *Manifest
 	cohort   *Cohort
+	sum      string // SHA-256 of manifest.json as read
 }
 
 // Stage results, for printing.
@@ -154,6 +159,13 @@ type stageMark struct {
 	FitWindows int              `json:"fit_windows,omitempty"`
 	Elbow      *compute.Elbow   `json:"elbow,omitempty"`
 	StatesFrom *StatesFrom      `json:"states_from,omitempty"`
+	// Manifest is the SHA-256 of manifest.json when the stage ran: a
+	// manifest edited since is refused (OpenWork, readMark).
+	Manifest string `json:"manifest_sha256"`
+	// Files are the SHA-256 of every file the stage wrote, by path
+	// relative to the work folder; later stages verify them before reading
+	// (a file changed, missing, or copied from another shard is refused).
+	Files map[string]string `json:"files"`
 }
 
 const (
@@ -202,9 +214,101 @@ func writeJSON(path string, v any) error {
 	return nil
 }
 
-func (w *Work) writeMark(m stageMark) error {
-	m.Shards, m.PlanID = w.Manifest.Shards, w.Manifest.PlanID
+// writeMark writes the done mark of a stage last, with the checksums of
+// the files it wrote.
+func (w *Work) writeMark(m stageMark, files []string) error {
+	m.Shards, m.PlanID, m.Manifest = w.Manifest.Shards, w.Manifest.PlanID, w.sum
+	m.Files = map[string]string{}
+	for _, f := range files {
+		rel, err := filepath.Rel(w.Dir, f)
+		if err != nil {
+			return fmt.Errorf("ingest: %w", err)
+		}
+		if m.Files[filepath.ToSlash(rel)], err = fileSHA256(f); err != nil {
+			return err
+		}
+	}
 	return writeJSON(filepath.Join(w.Dir, "done", markName(m.Stage, m.Shard)), m)
+}
+
+// fileSHA256 is the hex SHA-256 of a file's bytes.
+func fileSHA256(path string) (string, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return "", fmt.Errorf("ingest: %w", err)
+	}
+	defer f.Close()
+	h := sha256.New()
+	if _, err := io.Copy(h, f); err != nil {
+		return "", fmt.Errorf("ingest: %s: %w", path, err)
+	}
+	return hex.EncodeToString(h.Sum(nil)), nil
+}
+
+// stageName is how a mark's stage is run, for messages.
+func (w *Work) stageName(m *stageMark) string {
+	if m.Shard > 0 {
+		return fmt.Sprintf("stage %s --shard %d/%d", m.Stage, m.Shard, w.Manifest.Shards)
+	}
+	return "stage " + m.Stage
+}
+
+// verify checks every file the marks vouch for against its recorded
+// checksum, before a stage reads them. A file that matches another
+// file's checksum is named as a copy of it (one shard's file copied over
+// another's).
+func (w *Work) verify(marks ...*stageMark) error {
+	bySum := map[string]string{}
+	for _, m := range marks {
+		for rel, sum := range m.Files {
+			bySum[sum] = rel
+		}
+	}
+	for _, m := range marks {
+		if len(m.Files) == 0 {
+			return fmt.Errorf("ingest: the done mark of %s in %s lists no files; run it again", w.stageName(m), w.Dir)
+		}
+		for _, rel := range slices.Sorted(maps.Keys(m.Files)) {
+			p := filepath.Join(w.Dir, filepath.FromSlash(rel))
+			got, err := fileSHA256(p)
+			if errors.Is(err, fs.ErrNotExist) {
+				return fmt.Errorf("ingest: %s is missing, though %s finished; run %s again", p, w.stageName(m), w.stageName(m))
+			}
+			if err != nil {
+				return err
+			}
+			if got == m.Files[rel] {
+				continue
+			}
+			if other, ok := bySum[got]; ok && other != rel {
+				return fmt.Errorf("ingest: %s is not the file %s wrote: it is a copy of %s; run %s again", p, w.stageName(m), other, w.stageName(m))
+			}
+			return fmt.Errorf("ingest: %s was changed after %s wrote it (its checksum differs from the one in its done mark); run %s again", p, w.stageName(m), w.stageName(m))
+		}
+	}
+	return nil
+}
+
+// startStage takes the stage's lock for this shard (see lockStage) and
+// removes its earlier done mark, so that while it runs, and after it fails,
+// no mark vouches for files being replaced.
+func (w *Work) startStage(stage string, shard int) (unlock func(), err error) {
+	what := "stage " + stage
+	if shard > 0 {
+		what = fmt.Sprintf("stage %s --shard %d/%d", stage, shard, w.Manifest.Shards)
+	}
+	if err := os.MkdirAll(filepath.Join(w.Dir, "done"), 0o755); err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	unlock, err = lockStage(filepath.Join(w.Dir, "done", "."+strings.TrimSuffix(markName(stage, shard), ".json")+".lock"), what)
+	if err != nil {
+		return nil, err
+	}
+	if err := os.Remove(filepath.Join(w.Dir, "done", markName(stage, shard))); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		unlock()
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	return unlock, nil
 }
 
 // readMark reads the mark of a stage (shard 0: a stage run once) and checks
@@ -226,8 +330,11 @@ func (w *Work) readMark(stage string, shard int) (*stageMark, error) {
 	if err := json.Unmarshal(b, &m); err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", path, err)
 	}
-	if m.PlanID != w.Manifest.PlanID || m.Shards != w.Manifest.Shards {
-		return nil, fmt.Errorf("ingest: %s belongs to another plan than %s; run the stage again", path, filepath.Join(w.Dir, "manifest.json"))
+	if m.PlanID != w.Manifest.PlanID || m.Shards != w.Manifest.Shards || m.Stage != stage || m.Shard != shard {
+		return nil, fmt.Errorf("ingest: %s belongs to another plan or shard than %s; run the stage again", path, filepath.Join(w.Dir, "manifest.json"))
+	}
+	if m.Manifest != w.sum {
+		return nil, fmt.Errorf("ingest: %s was written under another manifest.json than the one in %s (changed since); plan again into a new folder", path, w.Dir)
 	}
 	return &m, nil
 }
@@ -270,6 +377,7 @@ func Plan(ctx context.Context, o Options, dir string, shards int) (w *Work, err 
 	if err != nil {
 		return nil, err
 	}
+	o = c.Apply(o)
 	if shards > len(c.Inputs) {
 		return nil, &UsageError{Err: fmt.Errorf("--shards %d is more than the %d series of the cohort", shards, len(c.Inputs))}
 	}
@@ -298,8 +406,17 @@ func Plan(ctx context.Context, o Options, dir string, shards int) (w *Work, err 
 		return nil, err
 	}
 	m.Counts = pw.Rows()
-	// The manifest comes last: a folder without one holds no plan.
-	if err := writeJSON(filepath.Join(dir, "manifest.json"), m); err != nil {
+	// The manifest, then its checksum with the plan's files in the done
+	// mark of the plan: a folder without both holds no plan, and an edit
+	// of the manifest afterwards is refused by every later stage.
+	mpath := filepath.Join(dir, "manifest.json")
+	if err := writeJSON(mpath, m); err != nil {
+		return nil, err
+	}
+	if w.sum, err = fileSHA256(mpath); err != nil {
+		return nil, err
+	}
+	if err := w.writeMark(stageMark{Stage: "plan", Rows: m.Counts}, pw.Files()); err != nil {
 		return nil, err
 	}
 	return w, nil
@@ -341,6 +458,7 @@ func OpenWork(dir string) (*Work, error) {
 	if err := json.Unmarshal(b, &m); err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", path, err)
 	}
+	sum := sha256.Sum256(b)
 	if m.Format != ManifestFormat {
 		return nil, fmt.Errorf("ingest: %s has format %d; this topostate reads format %d", path, m.Format, ManifestFormat)
 	}
@@ -362,7 +480,18 @@ func OpenWork(dir string) (*Work, error) {
 	for _, x := range m.Excluded {
 		c.Excluded = append(c.Excluded, Exclusion{Input: Input{Subject: x.Subject, Session: x.Session, Path: x.Path, Rel: x.Rel}, Reason: x.Reason})
 	}
-	return &Work{Dir: dir, Manifest: &m, cohort: c}, nil
+	w := &Work{Dir: dir, Manifest: &m, cohort: c, sum: hex.EncodeToString(sum[:])}
+	// The plan's done mark holds the manifest's checksum at plan time.
+	pm, err := os.ReadFile(filepath.Join(dir, "done", markName("plan", 0)))
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %s has no done/plan.json: the plan did not finish; plan again into a new folder", dir)
+	}
+	var plan stageMark
+	if err := json.Unmarshal(pm, &plan); err != nil || plan.Manifest != w.sum || plan.PlanID != m.PlanID {
+		return nil, fmt.Errorf("ingest: %s was changed after it was planned (its checksum differs from the one recorded in done/plan.json); "+
+			"the recorded parameters must not change under finished shards: plan again into a new folder", path)
+	}
+	return w, nil
 }
 
 // stages sets up the stages of the whole cohort with this run's workers.
@@ -399,6 +528,11 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 	if err != nil {
 		return nil, err
 	}
+	unlock, err := w.startStage("sample", sh.I)
+	if err != nil {
+		return nil, err
+	}
+	defer unlock()
 	lo, hi := sh.Range(len(w.cohort.Inputs))
 	st.prog.Stage(fmt.Sprintf("sampling windows, shard %s", sh), hi-lo)
 	pw := schema.BeginParquet(0, w.tablePath(sh.I))
@@ -445,7 +579,7 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 	}
 	st.prog.Finish()
 	sum := &ShardSummary{Shard: sh, Series: hi - lo, Rows: pw.Rows(), Seconds: time.Since(start).Seconds()}
-	return sum, w.writeMark(stageMark{Stage: "sample", Shard: sh.I, Series: sum.Series, Rows: sum.Rows, Seconds: sum.Seconds})
+	return sum, w.writeMark(stageMark{Stage: "sample", Shard: sh.I, Series: sum.Series, Rows: sum.Rows, Seconds: sum.Seconds}, pw.Files())
 }
 
 // readSample pools the fitting-sample windows of every shard in shard order, that is in
@@ -460,6 +594,9 @@ func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) 
 		}
 		marks[i] = mk
 		total += mk.Rows[sampleTable]
+	}
+	if err := w.verify(marks...); err != nil {
+		return compute.Matrix32{}, err
 	}
 	pool := make([]float32, 0, total*int64(D))
 	rows := 0
@@ -514,6 +651,11 @@ func (w *Work) Fit(ctx context.Context, workers int, from *StatesFrom, prog Prog
 	if err != nil {
 		return nil, err
 	}
+	unlock, err := w.startStage("fit", 0)
+	if err != nil {
+		return nil, err
+	}
+	defer unlock()
 	if from != nil {
 		if err := st.useStates(from); err != nil {
 			return nil, err
@@ -540,7 +682,7 @@ func (w *Work) Fit(ctx context.Context, workers int, from *StatesFrom, prog Prog
 	rand.Read(idb)
 	sum := &FitSummary{States: st.k, FitWindows: st.fitRows, Elbow: st.elbow, StatesFrom: from, Seconds: time.Since(start).Seconds()}
 	return sum, w.writeMark(stageMark{Stage: "fit", FitID: hex.EncodeToString(idb), Rows: pw.Rows(), Seconds: sum.Seconds,
-		States: st.k, FitWindows: st.fitRows, Elbow: st.elbow, StatesFrom: from})
+		States: st.k, FitWindows: st.fitRows, Elbow: st.elbow, StatesFrom: from}, pw.Files())
 }
 
 // readStates reads the centroids the fit stage wrote.
@@ -585,8 +727,16 @@ func (w *Work) Compute(ctx context.Context, sh Shard, workers int, prog Progress
 	if err := w.checkShard(sh); err != nil {
 		return nil, err
 	}
+	unlock, err := w.startStage("compute", sh.I)
+	if err != nil {
+		return nil, err
+	}
+	defer unlock()
 	fit, err := w.readMark("fit", 0)
 	if err != nil {
+		return nil, err
+	}
+	if err := w.verify(fit); err != nil {
 		return nil, err
 	}
 	lo, hi := sh.Range(len(w.cohort.Inputs))
@@ -612,7 +762,7 @@ func (w *Work) Compute(ctx context.Context, sh Shard, workers int, prog Progress
 	}
 	st.prog.Finish()
 	sum := &ShardSummary{Shard: sh, Series: hi - lo, Rows: pw.Rows(), Seconds: time.Since(start).Seconds()}
-	return sum, w.writeMark(stageMark{Stage: "compute", Shard: sh.I, FitID: fit.FitID, Series: sum.Series, Rows: sum.Rows, Seconds: sum.Seconds})
+	return sum, w.writeMark(stageMark{Stage: "compute", Shard: sh.I, FitID: fit.FitID, Series: sum.Series, Rows: sum.Rows, Seconds: sum.Seconds}, pw.Files())
 }
 
 // Merge is stage 4, once: every table of the work folder into db as one
@@ -634,6 +784,16 @@ func (w *Work) Merge(ctx context.Context, db *sql.DB, name string, prog Progress
 			return nil, fmt.Errorf("ingest: shard %d/%d was computed with another fit than the last one in %s; run stage compute --shard %d/%d again",
 				i+1, w.Manifest.Shards, w.Dir, i+1, w.Manifest.Shards)
 		}
+	}
+	plan, err := w.readMark("plan", 0)
+	if err != nil {
+		return nil, err
+	}
+	// Every file is checked against its stage's mark before anything is
+	// written: a shard's file copied over another's, or any file changed,
+	// is refused with the stage to run again.
+	if err := w.verify(append([]*stageMark{plan, fit}, marks...)...); err != nil {
+		return nil, err
 	}
 	st, err := w.stages(1, prog)
 	if err != nil {

@@ -201,7 +201,7 @@ func ResolveAnalysis(ctx context.Context, conn *sql.Conn, v string) (int64, erro
 	if id.Valid {
 		return id.Int64, nil
 	}
-	rows, err := conn.QueryContext(ctx, `SELECT analysis_id || ' (' || name || ')' FROM analyses ORDER BY analysis_id`)
+	rows, err := conn.QueryContext(ctx, `SELECT analysis_id || ' (' || name || ')' FROM analyses ORDER BY analysis_id`) // names escaped below
 	if err != nil {
 		return 0, fmt.Errorf("queries: %w", err)
 	}
@@ -212,7 +212,7 @@ func ResolveAnalysis(ctx context.Context, conn *sql.Conn, v string) (int64, erro
 		if err := rows.Scan(&s); err != nil {
 			return 0, fmt.Errorf("queries: %w", err)
 		}
-		have = append(have, s)
+		have = append(have, schema.Printable(s))
 	}
 	if len(have) == 0 {
 		return 0, fmt.Errorf("%w: the warehouse holds no analyses yet", ErrNoAnalysis)

@@ -163,7 +163,7 @@ func layoutVersion(ctx context.Context, q queryer) (int64, error) {
 	err := q.QueryRowContext(ctx,
 		`SELECT count(*) FROM information_schema.tables WHERE table_schema = 'main' AND table_name = 'schema_version'`).Scan(&n)
 	if err != nil {
-		return 0, fmt.Errorf("schema: %w", err)
+		return 0, fmt.Errorf("schema: %w", withNameHint(err))
 	}
 	if n == 0 {
 		return 0, nil
@@ -269,7 +269,11 @@ var ErrOldLayout = errors.New("older warehouse layout")
 // (wrapping ErrOldLayout): read-only commands never change a file.
 func CheckLayout(ctx context.Context, db *sql.DB) error {
 	var tables int
-	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM information_schema.tables WHERE table_schema = 'main'`).Scan(&tables); err == nil && tables == 0 {
+	err := db.QueryRowContext(ctx, `SELECT count(*) FROM information_schema.tables WHERE table_schema = 'main'`).Scan(&tables)
+	if err != nil && strings.Contains(err.Error(), "Invalid unicode") {
+		return fmt.Errorf("schema: %w", withNameHint(err))
+	}
+	if err == nil && tables == 0 {
 		return errors.New("schema: the file holds no tables yet (it is new, or its first ingest stopped before committing); 'topostate ingest' fills it")
 	}
 	v, err := layoutVersion(ctx, db)

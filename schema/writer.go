@@ -10,8 +10,11 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
+	"unicode"
+	"unicode/utf8"
 
 	"github.com/apache/arrow-go/v18/arrow"
 	"github.com/apache/arrow-go/v18/arrow/array"
@@ -36,23 +39,63 @@ type Writer struct {
 	rows       map[string]int64
 	plain      map[string]bool // tables written without dictionary or compression
 	views      int
+	written    []string // Parquet files renamed into place by Commit
 }
+
+// Files returns the Parquet files a committed writer put in place, in
+// table order.
+func (w *Writer) Files() []string { return slices.Clone(w.written) }
 
 type parquetFile struct {
 	f       *os.File
 	w       *pqarrow.FileWriter
-	path    string // final name; the file is written to path + ".partial" until Commit
+	path    string // final name
+	tmp     string // the file as written, a new name beside path, renamed to path by Commit
 	renamed bool
 }
 
 // ErrAnalysisExists is returned when the name is already taken.
 var ErrAnalysisExists = errors.New("an analysis with this name already exists")
 
+// CheckAnalysisName reports why name cannot name a new analysis, or nil.
+// Commands take an analysis as an id, a name or the keyword latest
+// (queries.ResolveAnalysis), so a name that reads as an id or a keyword
+// would be found differently by different commands; surrounding spaces are
+// trimmed when a name is looked up, and control characters would print as
+// terminal commands. An empty name means the default, analysis-<id>.
+func CheckAnalysisName(name string) error {
+	bad := func(why string) error {
+		return fmt.Errorf("analysis name %q %s; choose another --analysis name", name, why)
+	}
+	t := strings.TrimSpace(name)
+	switch {
+	case name == "":
+		return nil
+	case t == "":
+		return bad("is blank")
+	case t != name:
+		return bad("has leading or trailing spaces")
+	case !utf8.ValidString(name):
+		return bad("is not UTF-8 text")
+	case strings.IndexFunc(name, unicode.IsControl) >= 0:
+		return bad("holds a control character")
+	case strings.EqualFold(name, "latest"):
+		return bad("is reserved: latest names the newest analysis")
+	}
+	if _, err := strconv.ParseInt(name, 10, 64); err == nil {
+		return bad("reads as an analysis id; a name needs a character that is not a digit")
+	}
+	return nil
+}
+
 // Begin opens a transaction for a new analysis called name. The layout is
 // created or checked first. An empty name gets "analysis-<id>". When
 // parquetDir is not empty every appended batch is also written to
 // parquetDir/<table>.parquet.
 func Begin(ctx context.Context, db *sql.DB, name, parquetDir string) (*Writer, error) {
+	if err := CheckAnalysisName(name); err != nil {
+		return nil, fmt.Errorf("schema: %w", err)
+	}
 	conn, err := db.Conn(ctx)
 	if err != nil {
 		return nil, fmt.Errorf("schema: %w", classify(err))
@@ -236,8 +279,16 @@ func (w *Writer) writeParquet(table string, rec arrow.Record) error {
 		if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 			return fmt.Errorf("schema: parquet: %w", err)
 		}
-		f, err := os.Create(path + ".partial")
+		// A name of its own (exclusive creation), so that two runs writing
+		// the same table never write into one file, and an earlier file
+		// at path stays as it was until Commit succeeds.
+		f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".*.partial")
 		if err != nil {
+			return fmt.Errorf("schema: parquet: %w", err)
+		}
+		if err := f.Chmod(0o644); err != nil {
+			f.Close()
+			os.Remove(f.Name())
 			return fmt.Errorf("schema: parquet: %w", err)
 		}
 		props := parquet.NewWriterProperties(parquet.WithCompression(compress.Codecs.Zstd))
@@ -247,9 +298,10 @@ func (w *Writer) writeParquet(table string, rec arrow.Record) error {
 		fw, err := pqarrow.NewFileWriter(rec.Schema(), f, props, pqarrow.DefaultWriterProps())
 		if err != nil {
 			f.Close()
+			os.Remove(f.Name())
 			return fmt.Errorf("schema: parquet %s: %w", table, err)
 		}
-		pf = &parquetFile{f: f, w: fw, path: path}
+		pf = &parquetFile{f: f, w: fw, path: path, tmp: f.Name()}
 		w.pq[table] = pf
 	}
 	if err := pf.w.Write(rec); err != nil {
@@ -276,21 +328,15 @@ func (w *Writer) Commit(ctx context.Context) error {
 			errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
 		}
 	}
-	if len(errs) == 0 {
-		for _, t := range slices.Sorted(maps.Keys(w.pq)) {
-			pf := w.pq[t]
-			if err := os.Rename(pf.path+".partial", pf.path); err != nil {
-				errs = append(errs, fmt.Errorf("schema: parquet %s: %w", t, err))
-				break
-			}
-			pf.renamed = true
-		}
-	}
 	if err := errors.Join(errs...); err != nil {
-		w.Rollback() // removes this analysis's Parquet files too
+		w.Rollback() // removes the temporaries; earlier files are untouched
 		return err
 	}
-	if w.conn == nil { // Parquet only: the renames above were the commit
+	if w.conn == nil { // Parquet only: the renames are the commit
+		if err := w.renameParquet(); err != nil {
+			w.Rollback()
+			return err
+		}
 		w.pq = map[string]*parquetFile{}
 		w.done = true
 		return nil
@@ -304,13 +350,51 @@ func (w *Writer) Commit(ctx context.Context) error {
 		w.Rollback() // the connection goes back to the pool: no transaction left open on it
 		return fmt.Errorf("schema: commit: %w", err)
 	}
-	w.pq = map[string]*parquetFile{}
 	w.done = true
 	// Success means the analysis is in the file the user named, not only in
 	// its .wal: a full disk at the checkpoint is reported (ErrNotDurable).
 	err = Checkpoint(ctx, w.conn, fmt.Sprintf("analysis %q (id %d)", w.Name, w.ID))
 	w.conn.Close()
-	return err
+	// The Parquet copies replace earlier files only now, when the analysis
+	// is in the warehouse file: a run that fails at any point before leaves
+	// the files of an earlier run in the folder as they were.
+	if err != nil {
+		if len(w.pq) > 0 {
+			err = fmt.Errorf("%w; the Parquet files were not written (%s is as it was): once the analysis is complete, 'topostate export --analysis %s' writes them", err, w.parquetDir, w.Name)
+		}
+		w.removeParquet()
+		return err
+	}
+	if err := w.renameParquet(); err != nil {
+		w.removeParquet()
+		return fmt.Errorf("%w (the analysis is in the warehouse; 'topostate export --analysis %s' writes its tables)", err, w.Name)
+	}
+	w.pq = map[string]*parquetFile{}
+	return nil
+}
+
+// renameParquet moves every closed Parquet temporary to its final name.
+func (w *Writer) renameParquet() error {
+	for _, t := range slices.Sorted(maps.Keys(w.pq)) {
+		pf := w.pq[t]
+		if err := os.Rename(pf.tmp, pf.path); err != nil {
+			return fmt.Errorf("schema: parquet %s: %w", t, err)
+		}
+		pf.renamed = true
+		w.written = append(w.written, pf.path)
+	}
+	return nil
+}
+
+// removeParquet removes the temporaries not renamed yet.
+func (w *Writer) removeParquet() {
+	for _, pf := range w.pq {
+		pf.w.Close()
+		if !pf.renamed {
+			os.Remove(pf.tmp)
+		}
+	}
+	w.pq = map[string]*parquetFile{}
 }
 
 // pauseEnv is a test hook, not a user setting (undocumented on purpose):
@@ -339,13 +423,13 @@ func pauseBeforeCommit(ctx context.Context) {
 }
 
 // Rollback abandons the analysis; the file keeps its earlier contents and
-// any Parquet files of this analysis are removed. Safe to call twice.
+// the Parquet temporaries of this analysis are removed (files of an
+// earlier run at the final names are never touched). Safe to call twice.
 func (w *Writer) Rollback() {
 	for _, pf := range w.pq {
 		pf.w.Close()
-		os.Remove(pf.path + ".partial")
-		if pf.renamed {
-			os.Remove(pf.path)
+		if !pf.renamed {
+			os.Remove(pf.tmp)
 		}
 	}
 	w.pq = map[string]*parquetFile{}
@@ -358,4 +442,29 @@ func (w *Writer) Rollback() {
 	}
 	w.conn.ExecContext(context.Background(), "ROLLBACK")
 	w.conn.Close()
+}
+
+// Printable returns s with every control character (and any byte that is
+// not UTF-8) written as a Go escape (\n, \x1b, \u0085), so a name stored by
+// another client or an older version prints as text, never as a terminal
+// command or a line break.
+func Printable(s string) string {
+	if utf8.ValidString(s) && strings.IndexFunc(s, unicode.IsControl) < 0 {
+		return s
+	}
+	var b strings.Builder
+	for i := 0; i < len(s); {
+		r, size := utf8.DecodeRuneInString(s[i:])
+		switch {
+		case r == utf8.RuneError && size <= 1:
+			fmt.Fprintf(&b, `\x%02x`, s[i])
+		case unicode.IsControl(r):
+			q := strconv.QuoteRune(r)
+			b.WriteString(q[1 : len(q)-1])
+		default:
+			b.WriteRune(r)
+		}
+		i += size
+	}
+	return b.String()
 }

@@ -6,6 +6,8 @@ import (
 	"text/tabwriter"
 
 	"github.com/urfave/cli/v2"
+
+	"github.com/topostate/topostate/schema"
 )
 
 type sqlDB = sql.DB
@@ -45,7 +47,7 @@ func infoCommand() *cli.Command {
 					return fmt.Errorf("info: %w", err)
 				}
 				fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%d\t%d\t%d\t%d\t%d\t%s/%s\t%s\t%s\t%s\t%d\t%s\n",
-					id, name, created, ver, subj, reg, k, nwin, fit, win, step, taper, fz, seed, excl, input)
+					id, schema.Printable(name), created, ver, subj, reg, k, nwin, fit, win, step, taper, fz, seed, excl, schema.Printable(input))
 				n++
 			}
 			if err := rows.Err(); err != nil {

@@ -24,10 +24,11 @@ func ingestFlags() []cli.Flag {
 		&cli.Float64Flag{Name: "tr", Usage: "repetition time in `SECONDS`; default: RepetitionTime from each file's JSON sidecar, else a NIfTI header's pixdim[4]"},
 		&cli.StringFlag{Name: "atlas", Usage: "label image `FILE` (.nii or .nii.gz) on the grid of the sub-<label>_..._bold.nii[.gz] images; each label's voxels are averaged into one region"},
 		&cli.StringFlag{Name: "atlas-labels", Usage: "`TSV` of label<TAB>name naming the atlas's regions (default label_<n>); also names the columns of .npy arrays, in ascending label order"},
-		&cli.IntFlag{Name: "window", Value: d.Window, Usage: "sliding-window width in `N` time points"},
-		&cli.IntFlag{Name: "step", Value: d.Step, Usage: "window step in `N` time points"},
+		&cli.IntFlag{Name: "window", Value: d.Window, DefaultText: "from --min-freq", Usage: "sliding-window width in `N` time points; by default the fewest points spanning 1/--min-freq seconds at the cohort's shortest TR (a window shorter than the slowest period kept lets that frequency alone swing the correlations: Leonardi & Van De Ville 2015)"},
+		&cli.Float64Flag{Name: "min-freq", Value: d.MinFreq, Usage: "slowest frequency the series keep after high-pass filtering, in `HZ`; sets the default window (0.01 Hz, the usual cutoff: 100 s windows)"},
+		&cli.IntFlag{Name: "step", Value: d.Step, Usage: "window step in `N` time points (1: every window; the fitting sample thins the overlap)"},
 		&cli.StringFlag{Name: "taper", Value: d.Taper, Usage: "window weights `MODE`: none (rectangle) or gauss (rectangle convolved with a Gaussian)"},
-		&cli.Float64Flag{Name: "taper-sigma", Value: d.TaperSD, Usage: "Gaussian sigma of the taper, in `N` time points"},
+		&cli.Float64Flag{Name: "taper-sigma", Value: d.TaperSD, DefaultText: "window/10", Usage: "Gaussian sigma of the taper, in `N` time points; by default a tenth of the window, so the outer fifth at each end is tapered and the middle three fifths keep full weight"},
 		&cli.BoolFlag{Name: "detrend", Usage: "remove a linear trend from each region before windowing"},
 		&cli.IntFlag{Name: "smooth-k", Usage: "cosine-series smoothing with terms 0..`K` (0: none)"},
 		&cli.Float64Flag{Name: "smooth-sigma", Usage: "heat-kernel weight `SIGMA` of the cosine series"},
@@ -35,21 +36,25 @@ func ingestFlags() []cli.Flag {
 		&cli.IntFlag{Name: "states", Usage: "fixed number of states `K` (0: pick k by --k-rule; 1: one state, no dynamics)"},
 		&cli.IntFlag{Name: "states-min", Value: d.StatesMin, Usage: "smallest `K` of the scan (1 lets the rule conclude: no evidence of more than one state)"},
 		&cli.IntFlag{Name: "states-max", Value: d.StatesMax, Usage: "largest `K` of the scan"},
-		&cli.StringFlag{Name: "k-rule", Value: d.KRule, Usage: "`RULE` that picks k from the scan: gap (gap statistic), chord or second-diff (elbow of W(k))"},
+		&cli.StringFlag{Name: "k-rule", Value: d.KRule, Usage: "`RULE` that picks k from the scan: strength (prediction strength), gap (gap statistic), chord or second-diff (elbow of W(k)); the default had the best measured accuracy on simulated cohorts with 1, 2, 3 and 5 states (README \"Number of states\")"},
+		&cli.IntFlag{Name: "strength-splits", Value: d.StrengthSplits, Usage: "prediction strength: `N` random halvings of the fitting windows, each half predicting the other"},
+		&cli.IntFlag{Name: "strength-windows", Value: d.StrengthWindows, Usage: "prediction strength uses at most `N` of the fitting windows (a uniform subsample)"},
+		&cli.Float64Flag{Name: "strength-threshold", Value: d.StrengthThreshold, Usage: "prediction strength a k must reach to be picked (`PS`; 0.8-0.9 is the published range; 0.85 did best of 0.8, 0.85 and 0.9 in a first measurement)"},
 		&cli.IntFlag{Name: "gap-references", Value: d.GapReferences, Usage: "`B` uniform reference sets of the gap statistic"},
 		&cli.IntFlag{Name: "gap-windows", Value: d.GapWindows, Usage: "the gap statistic uses at most `N` of the fitting windows (a uniform subsample)"},
-		&cli.IntFlag{Name: "restarts", Value: d.Restarts, Usage: "k-means restarts: the best of `N` fits is kept"},
+		&cli.IntFlag{Name: "restarts", Value: d.Restarts, Usage: "k-means restarts: the best of `N` fits is kept (3: on simulated cohorts with 3 and 5 states, 3 restarts always reached the best W(k) found with up to 10; scripts/convergence)"},
 		&cli.IntFlag{Name: "scan-restarts", Value: d.ScanRestarts, Usage: "`N` restarts per k of the elbow scan (0: --restarts); the picked k gets the rest up to --restarts"},
-		&cli.IntFlag{Name: "max-iter", Value: d.MaxIter, Usage: "at most `N` k-means iterations per restart"},
+		&cli.IntFlag{Name: "max-iter", Value: d.MaxIter, Usage: "at most `N` k-means iterations per restart (50: the best restart converged within 25 on simulated cohorts, about 13 on average; a fit that reaches the cap is reported)"},
 		&cli.Uint64Flag{Name: "seed", Value: d.Seed, Usage: "`SEED` of every random choice; same seed, same results"},
-		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance `NAME`: euclidean (k-means proper: squared Euclidean distance, centroids are means) or manhattan (L1, centroids are medians)"},
-		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most `N` windows are used to fit the states"},
+		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance `NAME`: euclidean (k-means proper: squared Euclidean distance, centroids are means) or manhattan (L1, centroids are medians); euclidean is the default because the rules for the number of states are defined on its W(k)"},
+		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most `N` windows are used to fit the states (bounds the fit's time and memory whatever the cohort size)"},
 		&cli.StringFlag{Name: "fit-sample", Value: d.FitSample, Usage: "`WHICH` windows the states are fitted on (at most --fit-windows): peaks (windows at local maxima of each series' window variance) or all"},
 		replicationFlags()[0], replicationFlags()[1],
 		&cli.IntFlag{Name: "core-timepoints", Value: d.CoreTimepoints, Usage: "`N` core time points (under windows of one state only) per subject and state for the core networks of the group topology test (0: the window width)"},
 		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
 		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "`POLICY` fail, or skip a series with problems (recorded in excluded_inputs)"},
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},
+		&cli.StringFlag{Name: "encoding", Value: "utf-8", Usage: "text `ENCODING` of participants.tsv: utf-8, or latin1 (ISO-8859-1 / Windows-1252, as some spreadsheets save; converted to UTF-8)"},
 		&cli.StringFlag{Name: "parquet", Usage: "also write every table of this analysis as Parquet into `FOLDER`"},
 		&cli.IntFlag{Name: "workers", Value: 0, Usage: fmt.Sprintf("`N` parallel workers (0: all %d cores); results do not depend on it", runtime.GOMAXPROCS(0))},
 		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
@@ -63,16 +68,42 @@ func ingestFlags() []cli.Flag {
 func ingestOptions(c *cli.Context) ingest.Options {
 	return ingest.Options{
 		Input: c.String("input"), TR: c.Float64("tr"), Atlas: c.String("atlas"), AtlasLabels: c.String("atlas-labels"),
-		Window: c.Int("window"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
+		Window: c.Int("window"), MinFreq: c.Float64("min-freq"), Step: c.Int("step"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
 		States: c.Int("states"), StatesMin: c.Int("states-min"), StatesMax: c.Int("states-max"),
 		KRule: c.String("k-rule"), GapReferences: c.Int("gap-references"), GapWindows: c.Int("gap-windows"),
+		StrengthSplits: c.Int("strength-splits"), StrengthWindows: c.Int("strength-windows"), StrengthThreshold: c.Float64("strength-threshold"),
 		Restarts: c.Int("restarts"), ScanRestarts: c.Int("scan-restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
 		FitMax: c.Int("fit-windows"), FitSample: c.String("fit-sample"), Grid: c.String("grid"),
 		CoreTimepoints: c.Int("core-timepoints"),
-		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
+		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"), Encoding: strings.TrimPrefix(c.String("encoding"), "utf-8"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
 	}
+}
+
+// checkOptions is ingest.Options.Check plus what only the command line
+// knows: an explicit --tr 0 (Options.TR 0 means "read each file's TR").
+func checkOptions(c *cli.Context, o ingest.Options) error {
+	if c.IsSet("tr") && o.TR == 0 {
+		return usagef("--tr 0: %v; leave --tr out to read RepetitionTime from each file's sidecar", ingest.CheckTR(0))
+	}
+	if err := checkAnalysisFlag(c); err != nil {
+		return err
+	}
+	return o.Check()
+}
+
+// checkAnalysisFlag refuses --analysis NAME where NAME cannot name a new
+// analysis (schema.CheckAnalysisName), and an explicit empty name.
+func checkAnalysisFlag(c *cli.Context) error {
+	name := c.String("analysis")
+	if c.IsSet("analysis") && name == "" {
+		return usagef("--analysis \"\": an analysis name cannot be empty; leave --analysis out for the default name analysis-<id>")
+	}
+	if err := schema.CheckAnalysisName(name); err != nil {
+		return usageError{err}
+	}
+	return nil
 }
 
 func ingestCommand() *cli.Command {
@@ -86,7 +117,7 @@ func ingestCommand() *cli.Command {
 				return usagef("ingest takes no arguments (got %q); name the cohort with --input", c.Args().First())
 			}
 			o := ingestOptions(c)
-			if err := o.Check(); err != nil {
+			if err := checkOptions(c, o); err != nil {
 				return err
 			}
 			if err := checkReplicationFlags(c); err != nil {

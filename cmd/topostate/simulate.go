@@ -2,11 +2,15 @@ package main
 
 import (
 	"bufio"
+	"errors"
 	"fmt"
+	"io/fs"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"sort"
 	"strconv"
+	"strings"
 
 	"github.com/urfave/cli/v2"
 
@@ -23,7 +27,7 @@ func simulateCommand() *cli.Command {
 			"   only dwell times differ: --group-effect 0.02 (identical state networks in both groups)\n" +
 			"   no states at all:        --states 1 (one stationary process)",
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "`FOLDER` to write the cohort into"},
+			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "new or empty `FOLDER` to write the cohort into (a folder holding anything is refused: simulate never mixes into or replaces files)"},
 			&cli.IntFlag{Name: "subjects", Value: 20, Usage: "number of subjects (alternating groups A and B)"},
 			&cli.IntFlag{Name: "regions", Value: 30, Usage: "regions per series"},
 			&cli.IntFlag{Name: "timepoints", Value: 600, Usage: "time points per series"},
@@ -41,6 +45,12 @@ func simulateCommand() *cli.Command {
 		Action: func(c *cli.Context) error {
 			if c.String("out") == "" {
 				return usagef("simulate: --out FOLDER is required")
+			}
+			if err := refuseNonEmpty("simulate", "--out", c.String("out")); err != nil {
+				return err
+			}
+			if err := ingest.CheckTR(c.Float64("tr")); err != nil {
+				return usagef("simulate: --tr: %v", err)
 			}
 			spec := compute.CohortSpec{
 				Subjects: c.Int("subjects"), Regions: c.Int("regions"), Timepoints: c.Int("timepoints"),
@@ -64,6 +74,35 @@ func simulateCommand() *cli.Command {
 			return nil
 		},
 	}
+}
+
+// refuseNonEmpty refuses a folder that exists and holds anything (exit 2):
+// a command that writes a whole new cohort there would otherwise mix its
+// invented series into a real cohort, or replace some of its files. There
+// is no option to allow it; remove the folder or choose another.
+func refuseNonEmpty(cmd, flag, dir string) error {
+	f, err := os.Open(dir)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return usagef("%s: %s %s: %v", cmd, flag, dir, err)
+	}
+	defer f.Close()
+	if st, err := f.Stat(); err == nil && !st.IsDir() {
+		return usagef("%s: %s %s is a file, not a folder", cmd, flag, dir)
+	}
+	names, _ := f.Readdirnames(4)
+	if len(names) == 0 {
+		return nil
+	}
+	sort.Strings(names)
+	more := ""
+	if len(names) == 4 {
+		names, more = names[:3], ", ..."
+	}
+	return usagef("%s: %s %s is not empty (it holds %s%s); %s writes only into a new or empty folder, so nothing there is mixed or replaced: choose another folder",
+		cmd, flag, dir, strings.Join(names, ", "), more, cmd)
 }
 
 // writeSynthetic simulates a cohort and writes it with invented covariates:
@@ -105,7 +144,7 @@ func writeSynthetic(dir string, spec compute.CohortSpec, groups map[string]strin
 // writeTruth writes the generator's latent states: one row per subject and
 // time point (1-based, as in the series file), states numbered from 1.
 func writeTruth(path string, subs []compute.SimSubject) error {
-	f, err := os.Create(path)
+	f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o644) // never over another file
 	if err != nil {
 		return fmt.Errorf("topostate: %w", err)
 	}

@@ -45,7 +45,7 @@ func stageCommand() *cli.Command {
 						return err
 					}
 					o := ingestOptions(c)
-					if err := o.Check(); err != nil {
+					if err := checkOptions(c, o); err != nil {
 						return err
 					}
 					w, err := ingest.Plan(c.Context, o, c.String("work"), c.Int("shards"))
@@ -147,6 +147,9 @@ func stageCommand() *cli.Command {
 				},
 				Action: func(c *cli.Context) error {
 					if err := need(c, "work"); err != nil {
+						return err
+					}
+					if err := checkAnalysisFlag(c); err != nil {
 						return err
 					}
 					w, err := ingest.OpenWork(c.String("work"))
