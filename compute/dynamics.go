@@ -16,6 +16,16 @@ type StateDynamics struct {
 	// never visited has no dwell time, and the caller must store NULL
 	// there, not 0. Multiply by step * TR for seconds (MeanDwellSeconds).
 	MeanDwell []float64
+	// CompleteDwells[k] is the number of dwells of state k that are
+	// complete: the run has a window of another state both before and
+	// after it. A run that starts at the first window or ends at the last
+	// is censored by the scan's edges (its true length is unknown, only a
+	// lower bound); Dwells[k] - CompleteDwells[k] of them (docs/methods.md
+	// §4).
+	CompleteDwells []int
+	// CompleteMeanDwell[k] is the mean length of the complete dwells of
+	// state k in windows; 0 where CompleteDwells[k] == 0 (store NULL).
+	CompleteMeanDwell []float64
 	// Transitions is #{w : s_w != s_{w+1}}.
 	Transitions int
 	// Counts[i][j] = N_ij = #{w : s_w = i, s_{w+1} = j}; the entries sum
@@ -44,6 +54,9 @@ func Dynamics(labels []int, k int) (StateDynamics, error) {
 		Dwells:    make([]int, k),
 		MeanDwell: make([]float64, k),
 		Counts:    make([][]int, k),
+
+		CompleteDwells:    make([]int, k),
+		CompleteMeanDwell: make([]float64, k),
 	}
 	for i := range d.Counts {
 		d.Counts[i] = make([]int, k)
@@ -62,7 +75,23 @@ func Dynamics(labels []int, k int) (StateDynamics, error) {
 			}
 		}
 	}
+	// Complete runs: start after the first window, end before the last.
+	completeLen := make([]int, k)
+	for start := 0; start < len(labels); {
+		end := start
+		for end+1 < len(labels) && labels[end+1] == labels[start] {
+			end++
+		}
+		if start > 0 && end < len(labels)-1 {
+			d.CompleteDwells[labels[start]]++
+			completeLen[labels[start]] += end - start + 1
+		}
+		start = end + 1
+	}
 	for s := 0; s < k; s++ {
+		if d.CompleteDwells[s] > 0 {
+			d.CompleteMeanDwell[s] = float64(completeLen[s]) / float64(d.CompleteDwells[s])
+		}
 		d.Occupancy[s] = float64(visits[s]) / float64(len(labels))
 		if d.Dwells[s] > 0 {
 			d.MeanDwell[s] = float64(visits[s]) / float64(d.Dwells[s])

@@ -17,6 +17,10 @@ func TestDynamicsWorkedExample(t *testing.T) {
 	// dwells (maximal runs): state 0: [0 0] [0] [0 0] -> 3 runs, mean 5/3;
 	//   state 1: [1 1 1] -> 1 run of 3; state 2: [2 2] -> 1 run of 2;
 	//   state 3: none, MeanDwell 0 (NULL for the caller).
+	// complete runs (a window of another state on both sides): state 0's
+	//   [0 0] at w = 0-1 starts at the first window and [0 0] at 8-9 ends
+	//   at the last, both censored; [0] at w = 5 is complete -> 1 run of 1;
+	//   state 1 [1 1 1] at 2-4 -> 1 of 3; state 2 [2 2] at 6-7 -> 1 of 2.
 	// transitions s_w != s_{w+1}: at w = 1 (0->1), 4 (1->0), 5 (0->2),
 	//   7 (2->0) -> 4.
 	// counts N_ij over the 9 consecutive pairs: 0->0 at w = 0, 8 (2);
@@ -33,7 +37,10 @@ func TestDynamicsWorkedExample(t *testing.T) {
 		Dwells:      []int{3, 1, 1, 0},
 		MeanDwell:   []float64{5.0 / 3, 3, 2, 0},
 		Transitions: 4,
-		Counts:      [][]int{{2, 1, 1, 0}, {1, 2, 0, 0}, {1, 0, 1, 0}, {0, 0, 0, 0}},
+
+		CompleteDwells:    []int{1, 1, 1, 0},
+		CompleteMeanDwell: []float64{1, 3, 2, 0},
+		Counts:            [][]int{{2, 1, 1, 0}, {1, 2, 0, 0}, {1, 0, 1, 0}, {0, 0, 0, 0}},
 	}
 	if !reflect.DeepEqual(d, want) {
 		t.Fatalf("got %+v\nwant %+v", d, want)
@@ -114,5 +121,29 @@ func TestDynamicsErrors(t *testing.T) {
 				t.Fatalf("err = %v", err)
 			}
 		})
+	}
+}
+
+// Censoring by the scan's edges (docs/methods.md §4): a single run over the
+// whole series is censored at both ends, so no complete run; runs touching
+// only one edge are censored too. Worked by hand.
+func TestDynamicsCensoredRuns(t *testing.T) {
+	for _, c := range []struct {
+		s        []int
+		complete []int
+		mean     []float64
+	}{
+		{[]int{1, 1, 1, 1}, []int{0, 0}, []float64{0, 0}},
+		{[]int{0, 1, 1, 0}, []int{0, 1}, []float64{0, 2}},
+		{[]int{0, 1, 0, 1, 1, 0, 0}, []int{1, 2}, []float64{1, 1.5}},
+		{[]int{0}, []int{0, 0}, []float64{0, 0}},
+	} {
+		d, err := Dynamics(c.s, 2)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !reflect.DeepEqual(d.CompleteDwells, c.complete) || !reflect.DeepEqual(d.CompleteMeanDwell, c.mean) {
+			t.Errorf("%v: complete %v mean %v, want %v %v", c.s, d.CompleteDwells, d.CompleteMeanDwell, c.complete, c.mean)
+		}
 	}
 }

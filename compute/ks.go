@@ -76,11 +76,16 @@ func ksGap(a, b []float64) (int64, error) {
 //
 // Every attainable D is a multiple of 1/L, L = lcm(m, n), so d is first
 // put on that grid and all later comparisons are in integers,
-// |u*(L/m) - v*(L/n)| >= k: a d within float rounding of a multiple of 1/L
-// (|d*L - round(d*L)| <= 1e-6 + 1e-12*d*L) is snapped to the nearest one,
-// k = round(d*L), so a statistic computed in floating point is never moved
-// across the threshold; any other d gives k = ceil(d*L), which is what
-// P(D >= d) means when D lives on the grid. d = 0 gives 1.
+// |u*(L/m) - v*(L/n)| >= k. The snapping rule (docs/methods.md §6): a d
+// within float rounding of a multiple of 1/L, |d*L - round(d*L)| <=
+// ksSnapULPs * eps * L (eps = 2^-52; a few ulps relative to the top of the
+// grid, D = 1, which bounds the rounding of a D computed as g/(mn) or as a
+// difference of two empirical distribution values in [0, 1]), is snapped to
+// it, k = round(d*L), so a statistic computed in floating point is never
+// moved across the threshold; any other d gives k = ceil(d*L), which is
+// what P(D >= d) means when D lives on the grid (d = 0.50000005 with
+// m = n = 10 is P(D >= 0.6)). d = 0 gives 1; a d above 1 by no more than
+// the same rounding is D = 1.
 //
 // Overflow-free scheme: instead of counts, the recursion carries
 // C(u,v) = probability that a uniformly random path from (0,0) to (u,v)
@@ -105,18 +110,25 @@ func KSPValueExact(m, n int, d float64) (float64, error) {
 	if m < 1 || n < 1 {
 		return 0, fmt.Errorf("compute: exact KS p-value needs sample sizes >= 1, got m=%d n=%d", m, n)
 	}
-	if math.IsNaN(d) || d < 0 || d > 1 {
+	if math.IsNaN(d) || d < 0 || d > 1+ksSnapULPs*epsilon {
 		return 0, fmt.Errorf("compute: KS statistic d=%v is outside [0, 1]", d)
 	}
 	l := lcm(int64(m), int64(n))
-	return ksTailExact(int64(m), int64(n), snapToGrid(d*float64(l))), nil
+	return ksTailExact(int64(m), int64(n), snapToGrid(min(d, 1)*float64(l), float64(l))), nil
 }
 
-// snapToGrid returns the integer threshold k for x = d*L: round(x) when x is
-// within float rounding of an integer, else ceil(x).
-func snapToGrid(x float64) int64 {
+// ksSnapULPs is the snapping tolerance of KSPValueExact in ulps of 1.
+const ksSnapULPs = 8
+
+// epsilon is the float64 machine epsilon, 2^-52.
+const epsilon = 0x1p-52
+
+// snapToGrid returns the integer threshold k for x = d*L on a grid of top
+// L: round(x) when x is within ksSnapULPs ulps (relative to L) of an
+// integer, else ceil(x).
+func snapToGrid(x, l float64) int64 {
 	r := math.Round(x)
-	if math.Abs(x-r) <= 1e-6+1e-12*x {
+	if math.Abs(x-r) <= ksSnapULPs*epsilon*l {
 		return int64(r)
 	}
 	return int64(math.Ceil(x))

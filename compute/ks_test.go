@@ -196,7 +196,11 @@ func TestKSPValueExactSnapping(t *testing.T) {
 			// The statistic as KSStatistic computes it, g/(m*n), and its
 			// float neighbours.
 			g := k * float64(m) * float64(n) / l
-			for _, d := range []float64{g / (float64(m) * float64(n)), math.Nextafter(k/l, 0), math.Nextafter(k/l, 1), k/l + 1e-12, k/l - 1e-12} {
+			up, down := k/l, k/l
+			for range 3 { // three ulps either side
+				up, down = math.Nextafter(up, 2), math.Nextafter(down, -1)
+			}
+			for _, d := range []float64{g / (float64(m) * float64(n)), math.Nextafter(k/l, 0), math.Nextafter(k/l, 1), up, down} {
 				got, err := KSPValueExact(m, n, d)
 				if err != nil {
 					t.Fatal(err)
@@ -205,6 +209,47 @@ func TestKSPValueExactSnapping(t *testing.T) {
 					t.Errorf("m=%d n=%d d=%.17g: p=%v, want the p of %v/L = %v", m, n, d, got, k, want)
 				}
 			}
+		}
+	}
+}
+
+// Snapping is only for float rounding (issue 11 item 8): a d a relative
+// 1e-7 above a grid point is a different statistic and must get the tail of
+// the next grid point. m = n = 10, d = 0.50000005: D >= d means D >= 0.6,
+// whose probability is P(D >= 6/10) = 2 C(20, 4)/C(20, 10) = 9690/184756 =
+// 0.052447 by the Gnedenko-Korolyuk (1951) closed form (gnedenkoKorolyuk,
+// exact integers), not P(D >= 0.5) = 0.168. A d within a few ulps above 1
+// is D = 1 (its tail 2/C(20, 10), same source), not an error; a d clearly
+// above 1 still is.
+func TestKSPValueExactSnapOnlyRounding(t *testing.T) {
+	want := gnedenkoKorolyuk(10, 6)
+	if math.Abs(want-0.0524) > 5e-5 {
+		t.Fatalf("Gnedenko-Korolyuk P(D >= 0.6) = %v, the brief's 0.0524", want)
+	}
+	got, err := KSPValueExact(10, 10, 0.50000005)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !relClose(got, want, 1e-14) {
+		t.Errorf("KSPValueExact(10, 10, 0.50000005) = %v, want P(D >= 0.6) = %v", got, want)
+	}
+	// Just below a grid point by more than rounding: still the tail at
+	// that grid point (ceil), e.g. 0.49999995 gives P(D >= 0.5).
+	if got, _ := KSPValueExact(10, 10, 0.49999995); !relClose(got, gnedenkoKorolyuk(10, 5), 1e-14) {
+		t.Errorf("KSPValueExact(10, 10, 0.49999995) = %v, want P(D >= 0.5) = %v", got, gnedenkoKorolyuk(10, 5))
+	}
+	one := gnedenkoKorolyuk(10, 10)
+	d := 1.0
+	for i := range 4 {
+		got, err := KSPValueExact(10, 10, d)
+		if err != nil || !relClose(got, one, 1e-14) {
+			t.Errorf("d = 1 + %d ulps (%.17g): p = %v, err %v; want P(D = 1) = %v", i, d, got, err, one)
+		}
+		d = math.Nextafter(d, 2)
+	}
+	for _, d := range []float64{1 + 1e-9, 1.000001} {
+		if _, err := KSPValueExact(10, 10, d); err == nil {
+			t.Errorf("d = %.17g: no error, want one (outside [0, 1] by more than rounding)", d)
 		}
 	}
 }

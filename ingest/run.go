@@ -966,7 +966,13 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 			a, c := d.MeanDwell[st], d.MeanDwell[st]*float64(step)*in.TR
 			mw, ms = &a, &c
 		}
-		b.metrics.Row(id, sub, ses, st+1, d.Occupancy[st], d.Dwells[st], mw, ms)
+		var cw, cs *float64 // complete runs only (docs/methods.md §4)
+		if d.CompleteDwells[st] > 0 {
+			a, c := d.CompleteMeanDwell[st], d.CompleteMeanDwell[st]*float64(s.o.Step)*in.TR
+			cw, cs = &a, &c
+		}
+		b.metrics.Row(id, sub, ses, st+1, d.Occupancy[st], d.Dwells[st], mw, ms,
+			d.CompleteDwells[st], d.Dwells[st]-d.CompleteDwells[st], cw, cs)
 	}
 	rate := 0.0
 	if d.Windows > 1 {

@@ -112,7 +112,11 @@ func TestStateDwellByGroup(t *testing.T) {
 		measure string
 	}
 	samples := map[key][2][]float64{}
-	metrics := raw(t, d, `SELECT subject_id, state, occupancy, mean_dwell_seconds FROM state_metrics WHERE analysis_id = ? ORDER BY subject_id`, firstID)
+	// Dwell time: complete runs only (docs/methods.md §4); subjects with no
+	// visit, or only runs cut by the scan's edges, are left out and counted.
+	noVisit := map[int][2]int{}
+	censoredOnly := map[int][2]int{}
+	metrics := raw(t, d, `SELECT subject_id, state, occupancy, complete_dwell_seconds FROM state_metrics WHERE analysis_id = ? ORDER BY subject_id`, firstID)
 	for _, r := range metrics {
 		side := map[string]int{"night": 0, "day": 1}
 		s, ok := side[groups[r["subject_id"].(string)]]
@@ -124,12 +128,21 @@ func TestStateDwellByGroup(t *testing.T) {
 		v := samples[k]
 		v[s] = append(v[s], num(r["occupancy"]))
 		samples[k] = v
-		if r["mean_dwell_seconds"] != nil {
-			k = key{st, "dwell_seconds"}
-			v = samples[k]
-			v[s] = append(v[s], num(r["mean_dwell_seconds"]))
-			samples[k] = v
+		k = key{st, "dwell_seconds"}
+		v = samples[k]
+		switch {
+		case r["complete_dwell_seconds"] != nil:
+			v[s] = append(v[s], num(r["complete_dwell_seconds"]))
+		case num(r["occupancy"]) == 0:
+			c := noVisit[st]
+			c[s]++
+			noVisit[st] = c
+		default:
+			c := censoredOnly[st]
+			c[s]++
+			censoredOnly[st] = c
 		}
+		samples[k] = v
 	}
 	if len(got) != len(samples) || len(got) != 6 {
 		t.Fatalf("%d rows, want %d (3 states x 2 measures)", len(got), len(samples))
@@ -146,6 +159,14 @@ func TestStateDwellByGroup(t *testing.T) {
 		}
 		if k.measure == "occupancy" && len(a)+len(b) != nSubjects-1 {
 			t.Errorf("%s: %d subjects, want %d (pilot left out)", name, len(a)+len(b), nSubjects-1)
+		}
+		if int(num(r["n_without_visit_a"])) != noVisit[k.state][0] || int(num(r["n_without_visit_b"])) != noVisit[k.state][1] ||
+			int(num(r["n_censored_only_a"])) != censoredOnly[k.state][0] || int(num(r["n_censored_only_b"])) != censoredOnly[k.state][1] {
+			t.Errorf("%s: without visit %v/%v censored only %v/%v, want %v %v", name, r["n_without_visit_a"], r["n_without_visit_b"],
+				r["n_censored_only_a"], r["n_censored_only_b"], noVisit[k.state], censoredOnly[k.state])
+		}
+		if k.measure == "dwell_seconds" && r["dwell_runs"] != "complete" {
+			t.Errorf("%s: dwell_runs %v, want complete", name, r["dwell_runs"])
 		}
 		for _, c := range []struct {
 			col  string
@@ -394,7 +415,6 @@ func TestStatePairsKS(t *testing.T) {
 	if len(got) != 6 {
 		t.Fatalf("%d rows, want 3 pairs x 2 dimensions", len(got))
 	}
-	ps := map[int][]float64{}
 	for _, r := range got {
 		sa, sb, dim := int(num(r["state_a"])), int(num(r["state_b"])), int(num(r["dimension"]))
 		ta, ra := kruskal(nRegions, upper[sa])
@@ -407,21 +427,34 @@ func TestStatePairsKS(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		if int(num(r["n_events"])) != len(x) || !close(num(r["ks_statistic"]), ks.Statistic, 1e-12) ||
-			!close(num(r["ks_p"]), ks.PValue, 1e-12) || r["ks_method"] != "exact" {
-			t.Errorf("states %d-%d dim %d: %v %v %v, Go %+v", sa, sb, dim, r["n_events"], r["ks_statistic"], r["ks_p"], ks)
-		}
-		ps[dim] = append(ps[dim], ks.PValue)
-	}
-	for dim, p := range ps {
-		q := compute.BenjaminiHochberg(p)
-		i := 0
-		for _, r := range got {
-			if int(num(r["dimension"])) == dim {
-				if !close(num(r["ks_p_bh"]), q[i], 1e-12) {
-					t.Errorf("dim %d row %d: BH %v, Go %v", dim, i, r["ks_p_bh"], q[i])
+		// The Betti-curve distance from its definition: the largest
+		// difference of the counts of events below a threshold, over
+		// thresholds at and just above every event (docs/methods.md §6).
+		gap := 0
+		for _, e := range append(slices.Clone(x), y...) {
+			for _, th := range []float64{e, math.Nextafter(e, math.Inf(1))} {
+				na, nb := 0, 0
+				for _, v := range x {
+					if v < th {
+						na++
+					}
 				}
-				i++
+				for _, v := range y {
+					if v < th {
+						nb++
+					}
+				}
+				gap = max(gap, na-nb, nb-na)
+			}
+		}
+		if int(num(r["n_events"])) != len(x) || !close(num(r["ks_distance"]), ks.Statistic, 1e-12) ||
+			int(num(r["betti_distance"])) != gap {
+			t.Errorf("states %d-%d dim %d: n %v D %v betti %v; Go n %d D %v betti %d", sa, sb, dim, r["n_events"], r["ks_distance"], r["betti_distance"], len(x), ks.Statistic, gap)
+		}
+		// Issue 11 item 3: descriptive, so no p-value column at all.
+		for col := range r {
+			if col == "p" || strings.HasSuffix(col, "_p") || strings.Contains(col, "_bh") || strings.Contains(col, "_by") {
+				t.Errorf("state_pairs_ks has a p-value-like column %q", col)
 			}
 		}
 	}
@@ -439,14 +472,14 @@ func TestCovariateAssociation(t *testing.T) {
 		measure string
 	}
 	xs, ys := map[key][]float64{}, map[key][]float64{}
-	for _, r := range raw(t, d, `SELECT subject_id, state, occupancy, mean_dwell_seconds FROM state_metrics WHERE analysis_id = ?`, firstID) {
+	for _, r := range raw(t, d, `SELECT subject_id, state, occupancy, complete_dwell_seconds FROM state_metrics WHERE analysis_id = ?`, firstID) {
 		x := cov[r["subject_id"].(string)]
 		st := int(num(r["state"]))
 		k := key{st, "occupancy"}
 		xs[k], ys[k] = append(xs[k], x), append(ys[k], num(r["occupancy"]))
-		if r["mean_dwell_seconds"] != nil {
+		if r["complete_dwell_seconds"] != nil {
 			k = key{st, "dwell_seconds"}
-			xs[k], ys[k] = append(xs[k], x), append(ys[k], num(r["mean_dwell_seconds"]))
+			xs[k], ys[k] = append(xs[k], x), append(ys[k], num(r["complete_dwell_seconds"]))
 		}
 	}
 	if len(got) != 6 {

@@ -1,10 +1,14 @@
 -- name: covariate_association
--- description: Pearson correlation of a numeric covariate with occupancy and dwell time per state, BH-adjusted across states.
+-- description: Pearson correlation of a numeric covariate with occupancy and complete-run dwell time per state, BH-adjusted across states; dwell time leaves out subjects without a complete run of the state.
 -- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: covariate numeric_column -- numeric subjects column, e.g. a symptom score
 -- One row per state and measure (occupancy, 0-1; dwell_seconds). Subjects
--- with a covariate value are used; a subject's sessions are averaged first,
--- and dwell time leaves out subjects who never visited the state. slope is
+-- with a covariate value are used; a subject's sessions are averaged first.
+-- dwell_seconds is the mean length of complete runs (not cut by the scan's
+-- start or end, docs/methods.md §4; all runs for an analysis written before
+-- layout 4): it leaves out subjects who never visited the state (no dwell
+-- time is defined) and those whose runs were all cut by the scan's edges;
+-- n counts the subjects used. slope is
 -- the least-squares change of the measure per unit of the covariate. BH
 -- adjustment is across the states of one measure.
 WITH cov AS (
@@ -14,7 +18,8 @@ WITH cov AS (
 per_subject AS (
     SELECT m.subject_id, c.x, m.state,
            avg(m.occupancy) AS occupancy,
-           avg(m.mean_dwell_seconds) AS dwell_seconds
+           coalesce(avg(m.complete_dwell_seconds),
+                    CASE WHEN bool_and(m.n_complete_dwells IS NULL) THEN avg(m.mean_dwell_seconds) END) AS dwell_seconds
     FROM state_metrics m JOIN cov c USING (subject_id)
     WHERE m.analysis_id = getvariable('analysis')
     GROUP BY ALL

@@ -51,6 +51,8 @@ var units = map[string]string{
 	"state_sequence.center_seconds": "seconds", "state_sequence.distance": "k-means distance (as elbow.wcss, one window)",
 	"state_metrics.occupancy": "proportion (0-1)", "state_metrics.n_dwells": "count (dwells)",
 	"state_metrics.mean_dwell_windows": "windows", "state_metrics.mean_dwell_seconds": "seconds",
+	"state_metrics.n_complete_dwells": "count (dwells)", "state_metrics.n_censored_dwells": "count (dwells)",
+	"state_metrics.complete_dwell_windows": "windows", "state_metrics.complete_dwell_seconds": "seconds",
 	"subject_dynamics.n_windows": "count (windows)", "subject_dynamics.n_transitions": "count (switches)",
 	"subject_dynamics.switch_rate": "switches per window step (0-1)", "subject_dynamics.states_visited": "count (states)",
 	"transitions.from_state": "state number (from 1)", "transitions.to_state": "state number (from 1)",

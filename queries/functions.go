@@ -110,10 +110,10 @@ func Functions() []*Function {
 			Signature: "ks_pvalue_exact(m BIGINT, n BIGINT, d DOUBLE) -> DOUBLE",
 			Doc: "Exact P(D >= d) for the two-sample Kolmogorov-Smirnov statistic D of samples of sizes m and n " +
 				"(no ties), by counting lattice paths (every ordering of the pooled values equally likely). D only takes values k/L, L = lcm(m, n): " +
-				"a d within float rounding of such a value is snapped to it; any other d is raised to the next " +
+				"a d within float rounding of such a value (8 ulps relative to D = 1, i.e. |d*L - k| <= 8*2^-52*L) is snapped to it; any other d is raised to the next " +
 				"attainable value, because for D on that grid P(D >= d) = P(D >= ceil(d*L)/L) exactly (rounding to " +
 				"the nearest value could move a d just above a grid point down and report a larger tail than the true " +
-				"one). d = 0 gives 1. Refused when (m+1)(n+1) > 2e9; use ks_pvalue_asymptotic there.",
+				"one): ks_pvalue_exact(10, 10, 0.50000005) is P(D >= 0.6) = 0.0524. d = 0 gives 1; a d above 1 within the same rounding is D = 1. Refused when (m+1)(n+1) > 2e9; use ks_pvalue_asymptotic there.",
 			in: []duckdb.TypeInfo{tBigint, tBigint, tDouble}, out: tDouble,
 			fn: func(a []driver.Value) (any, error) {
 				m, n, d := a[0].(int64), a[1].(int64), a[2].(float64)
@@ -255,6 +255,50 @@ func Functions() []*Function {
 					return nil, err
 				}
 				return map[string]any{"r": r.R, "t": r.T, "df": r.DF, "pvalue": r.PValue}, nil
+			},
+		},
+		{
+			Name:      "adjust_pvalues",
+			Signature: "adjust_pvalues(p DOUBLE[], method VARCHAR) -> DOUBLE[]",
+			Doc: "Multiplicity-adjusted p-values of one family, in the order given: method 'bh' (Benjamini-Hochberg " +
+				"1995, FDR under independence or positive dependence) or 'by' (Benjamini-Yekutieli 2001, FDR under any " +
+				"dependence: the BH values times sum_{i<=m} 1/i, capped at 1). With the m non-NULL values sorted, " +
+				"q_(i) = min_{j>=i} c m p_(j)/j capped at 1; tied p-values get one q (that of their highest rank); a NULL " +
+				"element stays NULL and is not counted in m. O(m log m): adjust a whole family with one call, e.g. " +
+				"SELECT unnest(ids) AS id, unnest(adjust_pvalues(ps, 'bh')) AS p_bh FROM (SELECT list(id ORDER BY id) AS ids, " +
+				"list(p ORDER BY id) AS ps FROM tests). An error for a value outside [0, 1] or another method.",
+			in: []duckdb.TypeInfo{tList, tVarchar}, out: tList,
+			fn: func(a []driver.Value) (any, error) {
+				l, ok := a[0].([]any)
+				if !ok {
+					return nil, fmt.Errorf("argument p: want DOUBLE[], got %T", a[0])
+				}
+				p := make([]float64, len(l))
+				for i, x := range l {
+					switch v := x.(type) {
+					case nil:
+						p[i] = math.NaN()
+					case float64:
+						if math.IsNaN(v) {
+							return nil, fmt.Errorf("p-value %d is NaN, not in [0, 1] (use NULL for a test that was not run)", i+1)
+						}
+						p[i] = v
+					default:
+						return nil, fmt.Errorf("argument p: element %d is %T, want DOUBLE", i+1, x)
+					}
+				}
+				method := compute.AdjustMethod(strings.ToLower(a[1].(string)))
+				q, err := compute.AdjustPValues(p, method)
+				if err != nil {
+					return nil, err
+				}
+				out := make([]any, len(q))
+				for i, v := range q {
+					if !math.IsNaN(v) {
+						out[i] = v
+					}
+				}
+				return out, nil
 			},
 		},
 		{

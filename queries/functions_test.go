@@ -163,6 +163,26 @@ func TestKSPValueExactBruteForce(t *testing.T) {
 	}
 }
 
+// Issue 11 item 8: ks_pvalue_exact(10, 10, 0.50000005) is P(D >= 0.6), by
+// brute-force enumeration of all C(20, 10) = 184,756 orderings (bruteKS,
+// the definition in docs/methods.md §6): 0.0524, not P(D >= 0.5) = 0.168.
+// A d one ulp above 1 gives the tail of D = 1 (same enumeration).
+func TestKSPValueExactSnapsOnlyRounding(t *testing.T) {
+	conn := memConn(t)
+	_, tail, total := bruteKS(10, 10)
+	p06, _ := new(big.Rat).SetFrac(tail[60], total).Float64()
+	p10, _ := new(big.Rat).SetFrac(tail[100], total).Float64()
+	if math.Abs(p06-0.0524) > 5e-5 {
+		t.Fatalf("enumeration P(D >= 0.6) = %v, want about 0.0524", p06)
+	}
+	if got := queryFloat(t, conn, `SELECT ks_pvalue_exact(10, 10, 0.50000005)`); math.Abs(got-p06) > 1e-13 {
+		t.Errorf("ks_pvalue_exact(10, 10, 0.50000005) = %.15g, enumeration P(D >= 0.6) = %.15g", got, p06)
+	}
+	if got := queryFloat(t, conn, `SELECT ks_pvalue_exact(10, 10, ?)`, math.Nextafter(1, 2)); math.Abs(got-p10) > 1e-13 {
+		t.Errorf("ks_pvalue_exact(10, 10, 1 + 1 ulp) = %.15g, enumeration P(D = 1) = %.15g", got, p10)
+	}
+}
+
 // Unequal sizes, a published table: as n grows with m fixed, the
 // two-sample D tends to the one-sample Kolmogorov statistic of m values, so
 // P(D_{m,n} >= d) tends to the one-sample tail. The standard table of
@@ -473,6 +493,7 @@ func TestBHMacro(t *testing.T) {
 			}
 		}
 		want := compute.BenjaminiHochberg(p)
+		wantBY := compute.BenjaminiYekutieli(p)
 		vals := make([]string, m)
 		for i, v := range p {
 			if math.IsNaN(v) {
@@ -481,7 +502,28 @@ func TestBHMacro(t *testing.T) {
 				vals[i] = fmt.Sprintf("(%d, %.17g::DOUBLE)", i, v)
 			}
 		}
-		rows, err := conn.QueryContext(ctx, `SELECT i, bh_adjust(p, list(p) OVER ()) FROM (VALUES `+strings.Join(vals, ", ")+`) t(i, p) ORDER BY i`)
+		table := `(VALUES ` + strings.Join(vals, ", ") + `) t(i, p)`
+		rows, err := conn.QueryContext(ctx, `SELECT i, bh_adjust(p, list(p) OVER ()), by_adjust(p, list(p) OVER ()) FROM `+table+` ORDER BY i`)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for rows.Next() {
+			var i int
+			var q, qy sql.NullFloat64
+			if err := rows.Scan(&i, &q, &qy); err != nil {
+				t.Fatal(err)
+			}
+			if math.IsNaN(want[i]) != !q.Valid || (q.Valid && math.Abs(q.Float64-want[i]) > 1e-14) {
+				t.Errorf("trial %d p=%v: bh_adjust %v, BenjaminiHochberg %v", trial, p[i], q, want[i])
+			}
+			if math.IsNaN(wantBY[i]) != !qy.Valid || (qy.Valid && math.Abs(qy.Float64-wantBY[i]) > 1e-14) {
+				t.Errorf("trial %d p=%v: by_adjust %v, BenjaminiYekutieli %v", trial, p[i], qy, wantBY[i])
+			}
+		}
+		rows.Close()
+		// The whole family in one call, unnested in the order given.
+		rows, err = conn.QueryContext(ctx, `SELECT unnest(ids), unnest(adjust_pvalues(ps, 'BY'))
+			FROM (SELECT list(i ORDER BY i) AS ids, list(p ORDER BY i) AS ps FROM `+table+`)`)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -491,10 +533,42 @@ func TestBHMacro(t *testing.T) {
 			if err := rows.Scan(&i, &q); err != nil {
 				t.Fatal(err)
 			}
-			if math.IsNaN(want[i]) != !q.Valid || (q.Valid && math.Abs(q.Float64-want[i]) > 1e-14) {
-				t.Errorf("trial %d p=%v: bh_adjust %v, BenjaminiHochberg %v", trial, p[i], q, want[i])
+			if math.IsNaN(wantBY[i]) != !q.Valid || (q.Valid && math.Abs(q.Float64-wantBY[i]) > 1e-14) {
+				t.Errorf("trial %d p=%v: adjust_pvalues %v, BenjaminiYekutieli %v", trial, p[i], q, wantBY[i])
 			}
 		}
 		rows.Close()
+	}
+}
+
+// Issue 11 item 6: a family of 10,000 p-values adjusted in SQL in under a
+// second, the way README recommends for large families (one call of
+// adjust_pvalues on the list aggregate); BenchmarkBHMacroWindow measures
+// the per-row window form bh_adjust(p, list(p) OVER ()) at 1,000.
+func BenchmarkAdjustPValuesSQL10000(b *testing.B) {
+	benchAdjustSQL(b, 10_000, `SELECT count(*), max(q) FROM (
+		SELECT unnest(ids) AS i, unnest(adjust_pvalues(ps, 'bh')) AS q
+		FROM (SELECT list(i ORDER BY i) AS ids, list(p ORDER BY i) AS ps FROM bench_p))`)
+}
+
+func BenchmarkBHMacroWindow1000(b *testing.B) {
+	benchAdjustSQL(b, 1_000, `SELECT count(*), max(q) FROM (SELECT bh_adjust(p, list(p) OVER ()) AS q FROM bench_p)`)
+}
+
+func benchAdjustSQL(b *testing.B, m int, query string) {
+	conn := memConn(b)
+	ctx := context.Background()
+	if _, err := conn.ExecContext(ctx, `CREATE TEMP TABLE bench_p AS SELECT i, hash(i) / 18446744073709551615.0 AS p FROM range(?) t(i)`, m); err != nil {
+		b.Fatal(err)
+	}
+	for b.Loop() {
+		var n int
+		var q float64
+		if err := conn.QueryRowContext(ctx, query).Scan(&n, &q); err != nil {
+			b.Fatal(err)
+		}
+		if n != m || q > 1 {
+			b.Fatalf("%d rows, max q %v", n, q)
+		}
 	}
 }

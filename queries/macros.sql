@@ -4,22 +4,37 @@
 -- `topostate query --macros` and run the output in your session (drop the
 -- word TEMP to store them in a database of your own).
 
--- bh_adjust(p, family): the Benjamini-Hochberg (1995) adjusted p-value of p
--- within its family of tests, a list holding every p-value of the family
--- (p's own included). With the m non-NULL values of the family,
---   q(p) = min over family values x >= p of  m * x / #{family values <= x},
--- capped at 1: the step-up form q_(i) = min_{j>=i} (m/j) p_(j) written
--- without sorting, ties taking their highest rank. NULL p gives NULL; NULLs
--- in the family are not counted. Used as a window expression:
+-- bh_adjust(p, family), by_adjust(p, family): the Benjamini-Hochberg (1995)
+-- and Benjamini-Yekutieli (2001) adjusted p-value of p within its family of
+-- tests, a list holding every p-value of the family (p's own included).
+-- With the m non-NULL values of the family sorted, s_1 <= ... <= s_m,
+--   q(p) = min over j with s_j >= p of c m s_j / j, capped at 1,
+-- c = 1 (BH) or sum_{i<=m} 1/i (BY; valid under any dependence): the
+-- step-up form q_(i) = min_{j>=i} c (m/j) p_(j), in which tied p-values get
+-- one q (that of their highest rank). NULL p gives NULL; NULLs in the family
+-- are not counted in m. Used as a window expression:
 --   bh_adjust(pvalue, list(pvalue) OVER (PARTITION BY family_columns))
+-- Each row sorts the whole family, so a family of m tests costs
+-- O(m^2 log m) in all: fine for hundreds or a few thousand; for larger
+-- families adjust the family once with the topostate function
+-- adjust_pvalues over a list aggregate (O(m log m); see --list).
 CREATE OR REPLACE TEMP MACRO bh_adjust(p, family) AS (
     CASE
         WHEN p IS NULL THEN NULL
         WHEN p < 0 OR p > 1 OR isnan(p) THEN error('bh_adjust: p-value ' || p || ' is not in [0, 1]')
-        ELSE least(1.0, list_min(list_transform(
-            list_filter(family, x -> x >= p),
-            x -> len(list_filter(family, y -> y IS NOT NULL))::DOUBLE * x
-                 / len(list_filter(family, y -> y <= x)))))
+        ELSE least(1.0, len(list_filter(family, x -> x IS NOT NULL))::DOUBLE
+                        * list_min(list_transform(list_sort(list_filter(family, x -> x IS NOT NULL)),
+                                                  (x, j) -> CASE WHEN x >= p THEN x / j END)))
+    END
+);
+
+CREATE OR REPLACE TEMP MACRO by_adjust(p, family) AS (
+    CASE
+        WHEN p IS NULL THEN NULL
+        WHEN p < 0 OR p > 1 OR isnan(p) THEN error('by_adjust: p-value ' || p || ' is not in [0, 1]')
+        ELSE least(1.0, list_sum(list_transform(
+                 range(1, len(list_filter(family, y -> y IS NOT NULL)) + 1), i -> 1.0 / i))
+             * bh_adjust(p, family))
     END
 );
 

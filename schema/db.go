@@ -16,9 +16,12 @@ import (
 // Version is the warehouse layout this build writes and reads. Layout 2
 // is layout 1 with the tables and nullable columns added since (all in
 // v1.sql); Upgrade brings a layout-1 file to it in place. Layout 3 adds
-// core_betti_curves and state_networks.core_timepoints (docs/methods.md §7);
-// layout 4 adds inputs.window_points and inputs.step_points (the per-series
-// window of --window-seconds) and the covariates table (participants.json).
+// core_betti_curves and state_networks.core_timepoints (docs/methods.md §7).
+// Layout 4 adds inputs.window_points and inputs.step_points (the per-series
+// window of --window-seconds) and the covariates table (participants.json);
+// and state_metrics' complete-run dwell columns (n_complete_dwells,
+// n_censored_dwells, complete_dwell_windows, complete_dwell_seconds; NULL
+// for older analyses; docs/methods.md §4).
 // Upgrade brings a layout-1, -2 or -3 file to it the same way.
 const Version = 4
 

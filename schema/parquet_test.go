@@ -22,7 +22,7 @@ func TestParquetOnlyWriter(t *testing.T) {
 	// Rolled back: nothing left behind.
 	w := BeginParquet(0, path)
 	b := NewBatch(StateMetrics)
-	b.Row(0, "sub-01", "", 1, 0.25, 3, 4.5, 9.0)
+	b.Row(0, "sub-01", "", 1, 0.25, 3, 4.5, 9.0, 1, 2, 5.0, 10.0)
 	if err := w.Append(ctx, b); err != nil {
 		t.Fatal(err)
 	}
@@ -35,12 +35,12 @@ func TestParquetOnlyWriter(t *testing.T) {
 	}
 
 	w = BeginParquet(0, path)
-	b.Row(0, "sub-01", "", 1, 0.25, 3, 4.5, 9.0)
-	b.Row(0, "sub-01", "", 2, 0.0, 0, nil, nil)
+	b.Row(0, "sub-01", "", 1, 0.25, 3, 4.5, 9.0, 1, 2, 5.0, 10.0)
+	b.Row(0, "sub-01", "", 2, 0.0, 0, nil, nil, 0, 0, nil, nil)
 	if err := w.Append(ctx, b); err != nil {
 		t.Fatal(err)
 	}
-	b.Row(0, "sub-02", "ses-1", 1, 1.0, 1, 10.0, 20.0)
+	b.Row(0, "sub-02", "ses-1", 1, 1.0, 1, 10.0, 20.0, 0, 1, nil, nil)
 	if err := w.Append(ctx, b); err != nil {
 		t.Fatal(err)
 	}

@@ -65,7 +65,9 @@ func init() {
 	def(StateSequence, append(id[:3:3], f("window_index", i32), f("window_start", i32),
 		f("center_seconds", f64), f("state", i16), f("distance", f64))...)
 	def(StateMetrics, append(id[:3:3], f("state", i16), f("occupancy", f64), f("n_dwells", i32),
-		nullable("mean_dwell_windows", f64), nullable("mean_dwell_seconds", f64))...)
+		nullable("mean_dwell_windows", f64), nullable("mean_dwell_seconds", f64),
+		nullable("n_complete_dwells", i32), nullable("n_censored_dwells", i32),
+		nullable("complete_dwell_windows", f64), nullable("complete_dwell_seconds", f64))...)
 	def(SubjectDynamics, append(id[:3:3], f("n_windows", i32), f("n_transitions", i32),
 		f("switch_rate", f64), f("states_visited", i32))...)
 	def(Transitions, append(id[:3:3], f("from_state", i16), f("to_state", i16), f("count", i32),

@@ -194,3 +194,56 @@ func TestUpgradeLayout2(t *testing.T) {
 		t.Errorf("the old state_networks row after the upgrade: %d windows, core %v, %v", windows, core, err)
 	}
 }
+
+// TestUpgradeLayout3: a layout-3 file (the current DDL without layout 4's
+// complete-run dwell columns of state_metrics) upgrades in place to layout
+// 4: the four columns appear, NULL for the old rows, and the old values
+// are kept.
+func TestUpgradeLayout3(t *testing.T) {
+	ctx := context.Background()
+	ddl := ddlV1
+	for _, c := range []string{"n_complete_dwells", "n_censored_dwells", "complete_dwell_windows", "complete_dwell_seconds"} {
+		i := strings.Index(ddl, "    "+c+" ")
+		if i < 0 {
+			t.Fatalf("the DDL no longer has %s", c)
+		}
+		j := i + strings.Index(ddl[i:], "\n") + 1
+		ddl = ddl[:i] + ddl[j:]
+	}
+	// The last column left now ends with a comma before ");".
+	ddl = strings.Replace(ddl, "mean_dwell_seconds DOUBLE,", "mean_dwell_seconds DOUBLE ", 1)
+	path := tempPath(t)
+	c, err := duckdb.NewConnector(path, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw := sql.OpenDB(c)
+	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (3, now())`,
+		`INSERT INTO state_metrics VALUES (1, 's1', '', 1, 0.5, 3, 4.0, 8.0)`} {
+		if _, err := raw.Exec(q); err != nil {
+			raw.Close()
+			t.Fatalf("%v\n%s", err, q)
+		}
+	}
+	raw.Close()
+	db, err := Open(path, false, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if from, err := Upgrade(ctx, db); err != nil || from != 3 {
+		t.Fatalf("Upgrade: from %d, %v", from, err)
+	}
+	var v int
+	if err := db.QueryRow(`SELECT max(version) FROM schema_version`).Scan(&v); err != nil || v != 4 || Version != 4 {
+		t.Errorf("version %d after the upgrade (%v), want 4", v, err)
+	}
+	var n, nc sql.NullInt64
+	var dw, cs sql.NullFloat64
+	if err := db.QueryRow(`SELECT n_dwells, n_complete_dwells, mean_dwell_seconds, complete_dwell_seconds FROM state_metrics`).Scan(&n, &nc, &dw, &cs); err != nil {
+		t.Fatal(err)
+	}
+	if n.Int64 != 3 || dw.Float64 != 8 || nc.Valid || cs.Valid {
+		t.Errorf("old row after the upgrade: n_dwells %v mean %v complete %v %v; want 3, 8, NULL, NULL", n, dw, nc, cs)
+	}
+}

@@ -117,8 +117,12 @@ CREATE TABLE IF NOT EXISTS state_metrics (
     state              SMALLINT NOT NULL, -- state, from 1
     occupancy          DOUBLE NOT NULL,   -- fractional occupancy: share of windows in the state
     n_dwells           INTEGER NOT NULL,  -- number of maximal runs in the state
-    mean_dwell_windows DOUBLE,            -- mean run length, windows; NULL when never visited
-    mean_dwell_seconds DOUBLE             -- mean run length * step * TR, seconds; NULL when never visited
+    mean_dwell_windows DOUBLE,            -- mean run length over all runs (censored ones included), windows; NULL when never visited
+    mean_dwell_seconds DOUBLE,            -- mean run length over all runs * step * TR, seconds; NULL when never visited
+    n_complete_dwells  INTEGER,           -- runs with a window of another state before and after (not cut by the scan's start or end); NULL in analyses written before layout 4
+    n_censored_dwells  INTEGER,           -- runs that start at the first window or end at the last (length only a lower bound); n_dwells - n_complete_dwells; NULL before layout 4
+    complete_dwell_windows DOUBLE,        -- mean length of the complete runs, windows; NULL when there is none (or before layout 4)
+    complete_dwell_seconds DOUBLE         -- mean length of the complete runs * step * TR, seconds; NULL when there is none (or before layout 4)
 );
 
 CREATE TABLE IF NOT EXISTS subject_dynamics (

@@ -1,12 +1,15 @@
 package main
 
 import (
+	"context"
 	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"os"
 	"strings"
+	"sync/atomic"
+	"time"
 
 	"github.com/urfave/cli/v2"
 
@@ -210,6 +213,10 @@ func queryAction(c *cli.Context, o queryOptions) error {
 		return err
 	}
 	defer db.Close()
+	var partial atomic.Pointer[string] // the temporary of --out, while it is written
+	finished := make(chan struct{})
+	defer close(finished)
+	context.AfterFunc(c.Context, func() { stopQuery(c.App.ErrWriter, finished, &partial, queryStopGrace) })
 
 	if outPath == "" {
 		_, err = runQuery(c, db, q, params, format, out)
@@ -219,6 +226,11 @@ func queryAction(c *cli.Context, o queryOptions) error {
 	// when the query succeeded: a failed query leaves an existing file.
 	var n int64
 	if err := writeAtomic("query", outPath, func(w io.Writer) error {
+		if f, ok := w.(*os.File); ok {
+			name := f.Name()
+			partial.Store(&name)
+			defer partial.Store(nil)
+		}
 		var err error
 		n, err = runQuery(c, db, q, params, format, w)
 		return err
@@ -227,6 +239,31 @@ func queryAction(c *cli.Context, o queryOptions) error {
 	}
 	fmt.Fprintf(c.App.ErrWriter, "wrote %d rows to %s\n", n, outPath)
 	return nil
+}
+
+// queryStopGrace is how long a stop request (Ctrl-C, SIGTERM) waits for
+// DuckDB to honour its interrupt before the query process ends itself.
+const queryStopGrace = 2 * time.Second
+
+// stopQuery runs when a stop is requested during a query. The context
+// already interrupts DuckDB (go-duckdb calls duckdb_interrupt when the
+// QueryContext context ends), but DuckDB checks that flag only between
+// pieces of work: one expression over a large chunk (a list lambda, a SQL
+// function written in Go, a wide cross product) can run for minutes, and a
+// SIGTERM from a scheduler would seem ignored. A query opens the warehouse
+// read-only, so when the query has not returned within grace the process
+// removes the partial --out temporary and exits: nothing else is lost.
+func stopQuery(stderr io.Writer, finished <-chan struct{}, partial *atomic.Pointer[string], grace time.Duration) {
+	select {
+	case <-finished:
+		return
+	case <-time.After(grace):
+	}
+	if p := partial.Load(); p != nil {
+		os.Remove(*p)
+	}
+	fmt.Fprintf(stderr, "topostate: the query did not stop within %v of the request; ended it (the warehouse was open read-only: nothing in it changed)\n", grace)
+	os.Exit(exitFailure)
 }
 
 func runQuery(c *cli.Context, db *queries.DB, q *queries.Query, params map[string]string, format queries.Format, w io.Writer) (int64, error) {
@@ -322,6 +359,8 @@ func listQueries(out io.Writer) error {
 	}
 	fmt.Fprintln(out, "\nSQL macros (print them with --macros to use them in another DuckDB client):")
 	fmt.Fprintln(out, "  bh_adjust(p, family)  Benjamini-Hochberg adjusted p; e.g. bh_adjust(p, list(p) OVER (PARTITION BY measure))")
+	fmt.Fprintln(out, "  by_adjust(p, family)  Benjamini-Yekutieli adjusted p (any dependence), called like bh_adjust")
+	fmt.Fprintln(out, "      both sort the family once per row: for thousands of tests use adjust_pvalues on a list aggregate")
 	fmt.Fprintln(out, "  subject_covariate(analysis, column_name)  table of (subject_id, value) for one subjects column")
 	fmt.Fprintln(out, "  subject_groups(analysis, column_name, group_a, group_b)  table of (subject_id, side 'a'/'b', group_value)")
 	return nil

@@ -32,6 +32,7 @@ func reportCommand() *cli.Command {
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
 			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "`N` relabellings of every permutation test"},
 			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation `SEED`"},
+			&cli.StringFlag{Name: "adjust-all", Usage: "also adjust all inferential p-values of the report as one family: `METHOD` bh (Benjamini-Hochberg) or by (Benjamini-Yekutieli, any dependence)"},
 			&cli.StringFlag{Name: "adjust", Usage: "comma-separated subjects `COLUMNS` (e.g. age,sex,site): add group contrasts adjusted for them (bundled query adjusted_group_contrast)"},
 		},
 		Action: func(c *cli.Context) error {
@@ -44,6 +45,9 @@ func reportCommand() *cli.Command {
 			}
 			if n := c.Int("n-perm"); n < 1 || n > 10_000_000 {
 				return usagef("report: --n-perm %d: want 1 to 10000000", n)
+			}
+			if a := c.String("adjust-all"); a != "" && a != "bh" && a != "by" {
+				return usagef("report: --adjust-all %q: want bh or by", a)
 			}
 			if err := refuseClobber("report", "--out", out, c.String("db")); err != nil {
 				return err
@@ -64,7 +68,7 @@ func reportCommand() *cli.Command {
 			r, err := report.Build(c.Context, db, conn, report.Options{
 				Analysis: c.String("analysis"), Group: c.String("group"), DefaultGroup: !c.IsSet("group"),
 				NPerm: c.Int("n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"), Adjust: adjustList(c.String("adjust")),
-				Caution: caution, Generator: "topostate " + ingest.Version,
+				Caution: caution, Generator: "topostate " + ingest.Version, AdjustAll: c.String("adjust-all"),
 			})
 			var perr *queries.ParamError
 			if errors.Is(err, figures.ErrUsage) || errors.As(err, &perr) {

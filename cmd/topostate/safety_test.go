@@ -360,4 +360,24 @@ func TestLayout1(t *testing.T) {
 	if r := runCmd(t, cmdOpts{args: []string{"info", "--db", db2}}); r.code != 0 {
 		t.Errorf("info after upgrade: exit %d: %s", r.code, r.stderr)
 	}
+	// Layout 3 (without layout 4's complete-run dwell columns): upgrade
+	// adds them, NULL for the old rows, and drop still works after it.
+	db3 := filepath.Join(tmp, "third.duckdb")
+	copyFile(t, baselineDB, db3)
+	execSQL(t, db3, `ALTER TABLE state_metrics DROP COLUMN n_complete_dwells`, `ALTER TABLE state_metrics DROP COLUMN n_censored_dwells`,
+		`ALTER TABLE state_metrics DROP COLUMN complete_dwell_windows`, `ALTER TABLE state_metrics DROP COLUMN complete_dwell_seconds`,
+		`UPDATE schema_version SET version = 3`, `CHECKPOINT`)
+	r = runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db3}})
+	if r.code != 0 || !strings.Contains(r.stdout, fmt.Sprintf("from layout version 3 to %d", schema.Version)) {
+		t.Errorf("upgrade from layout 3: exit %d: %s%s", r.code, r.stdout, r.stderr)
+	}
+	if got := querySQL(t, db3, `SELECT count(*) FILTER (WHERE complete_dwell_seconds IS NOT NULL OR n_complete_dwells IS NOT NULL) FROM state_metrics`); got != "0" {
+		t.Errorf("%s old rows have complete-run values after the upgrade, want NULL", got)
+	}
+	if r := runCmd(t, cmdOpts{args: []string{"drop", "--db", db3, "--analysis", "baseline", "--yes"}}); r.code != 0 {
+		t.Errorf("drop after the upgrade from layout 3: exit %d: %s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db3, `SELECT count(*) FROM state_metrics`); got != "0" {
+		t.Errorf("%s state_metrics rows after dropping the only analysis", got)
+	}
 }

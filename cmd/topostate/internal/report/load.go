@@ -40,6 +40,10 @@ type Options struct {
 	// MaxCovariates bounds the numeric covariates whose associations are
 	// tested; 0 means 12.
 	MaxCovariates int
+	// AdjustAll, "bh" or "by", adds to every inferential table a column
+	// adjusted across all of the report's inferential p-values at once
+	// (familyColumns); "" adds none (each table keeps its own BH family).
+	AdjustAll string
 	// Adjust lists subjects columns to adjust the group contrasts for
 	// (adjusted_group_contrast); nil: no adjusted table.
 	Adjust []string
@@ -61,6 +65,7 @@ type Report struct {
 	StatePairs    *Table
 	Covariates    []*Table
 	CovariateNote string
+	AllTables     *AllTables // the report-wide adjustment, when asked for
 	NPerm         int
 	Seed          int64
 	Commands      []Command
@@ -186,6 +191,12 @@ func Build(ctx context.Context, db *sql.DB, conn *sql.Conn, o Options) (*Report,
 		func() error { return r.loadAdjusted(ctx, conn, d, o) },
 		func() error { return r.loadStatePairs(ctx, conn, o) },
 		func() error { return r.loadCovariates(ctx, conn, d, o) },
+		func() error {
+			if o.AdjustAll == "" {
+				return nil
+			}
+			return r.adjustAcrossTables(o.AdjustAll)
+		},
 	} {
 		if err := step(); err != nil {
 			return nil, fmt.Errorf("report: analysis %q: %w", d.Name, err)

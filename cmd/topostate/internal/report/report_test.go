@@ -128,7 +128,7 @@ func buildWarehouse(dir string) (string, error) {
 	return path, nil
 }
 
-func buildReport(path, group string) (*Report, []byte, error) {
+func buildReport(path, group string, adjustAll ...string) (*Report, []byte, error) {
 	ctx := context.Background()
 	db, err := schema.Open(path, true, nil)
 	if err != nil {
@@ -144,7 +144,7 @@ func buildReport(path, group string) (*Report, []byte, error) {
 		return nil, nil, err
 	}
 	r, err := Build(ctx, db, conn, Options{Analysis: analysisName, Group: group, NPerm: testNPerm, Seed: 3,
-		DBPath: "my cohort.duckdb", Caution: cautionText, Generator: "topostate test"})
+		DBPath: "my cohort.duckdb", Caution: cautionText, Generator: "topostate test", AdjustAll: strings.Join(adjustAll, "")})
 	if err != nil {
 		return nil, nil, err
 	}
@@ -700,8 +700,9 @@ func TestDwellContrastAgainstGonum(t *testing.T) {
 		measure string
 	}
 	samples := map[key][2][]float64{}
-	// One value per subject: its sessions averaged (the bundled query's unit).
-	rows, err := db.Query(`SELECT m.state, s."group", avg(m.occupancy), avg(m.mean_dwell_seconds)
+	// One value per subject: its sessions averaged (the bundled query's unit);
+	// dwell time of complete runs only (docs/methods.md §4).
+	rows, err := db.Query(`SELECT m.state, s."group", avg(m.occupancy), avg(m.complete_dwell_seconds)
 		FROM state_metrics m JOIN subjects s USING (analysis_id, subject_id)
 		WHERE s."group" IN ('day', 'night') GROUP BY m.subject_id, m.state, s."group" ORDER BY m.subject_id, m.state`)
 	if err != nil {
@@ -736,12 +737,21 @@ func TestDwellContrastAgainstGonum(t *testing.T) {
 		for _, m := range []string{"occupancy", "dwell_seconds"} {
 			s := samples[key{st, m}]
 			tr := trs[fmt.Sprintf("state=%d/measure=%s", st, m)]
-			if tr == nil || len(s[0]) < 2 || len(s[1]) < 2 {
-				t.Fatalf("state %d %s: row %v, samples %d/%d", st, m, tr != nil, len(s[0]), len(s[1]))
+			if tr == nil {
+				t.Fatalf("state %d %s: no row", st, m)
 			}
 			got := map[string]float64{}
 			for col, sv := range spans(tr) {
 				got[col], _ = strconv.ParseFloat(sv[0], 64)
+			}
+			if len(s[0]) < 2 || len(s[1]) < 2 {
+				// Too few subjects with a complete run: shown, not tested.
+				if got["n_a"] != float64(len(s[0])) || got["n_b"] != float64(len(s[1])) || spans(tr)["welch_p"][0] != "" {
+					t.Errorf("state %d %s: n %v/%v welch_p %q, want %d/%d and no test", st, m, got["n_a"], got["n_b"], spans(tr)["welch_p"][0], len(s[0]), len(s[1]))
+				}
+				pvals[m] = append(pvals[m], math.NaN())
+				shownBH[m] = append(shownBH[m], math.NaN())
+				continue
 			}
 			ma, va := stat.MeanVariance(s[0], nil)
 			mb, vb := stat.MeanVariance(s[1], nil)
@@ -763,11 +773,19 @@ func TestDwellContrastAgainstGonum(t *testing.T) {
 			shownBH[m] = append(shownBH[m], got["welch_p_bh"])
 		}
 	}
-	for m, ps := range pvals {
+	for m, all := range pvals {
+		// States without a test are not in the family.
+		var ps []float64
+		var at []int
+		for i, p := range all {
+			if !math.IsNaN(p) {
+				ps, at = append(ps, p), append(at, i)
+			}
+		}
 		want := bhStepUp(ps)
-		for i := range ps {
-			if math.Abs(shownBH[m][i]-want[i]) > 1e-12 {
-				t.Errorf("%s state %d: BH %v, step-up %v", m, i+1, shownBH[m][i], want[i])
+		for j, i := range at {
+			if math.Abs(shownBH[m][i]-want[j]) > 1e-12 {
+				t.Errorf("%s state %d: BH %v, step-up %v", m, i+1, shownBH[m][i], want[j])
 			}
 		}
 	}
@@ -851,5 +869,99 @@ func TestFormats(t *testing.T) {
 	}
 	if rounded("0.45", 0.45678) || rounded("1.2e-04", 0.000234) || rounded("x", 1) {
 		t.Error("rounded accepts a wrong rounding")
+	}
+}
+
+// Issue 11 item 3: the page never puts a descriptive statistic beside
+// p-values nor adjusts one. The state-pair distances carry no p-like
+// column; the Betti-curve tables no pooled-event KS column; the
+// report-wide adjustment (--adjust-all) takes only the inferential
+// p-values (familyColumns), and its values are compute.AdjustPValues over
+// exactly that family (itself checked against the definitions of
+// Benjamini-Hochberg 1995 and Benjamini-Yekutieli 2001 in compute).
+func TestDescriptiveApartAndAdjustAll(t *testing.T) {
+	_, b := fixture(t)
+	doc := parse(t, b)
+	pLike := func(col string) bool {
+		return col == "p" || strings.HasSuffix(col, "_p") || strings.Contains(col, "_p_")
+	}
+	for _, tr := range tableRows(t, doc, "t-state-pairs") {
+		for col := range spans(tr) {
+			if pLike(col) {
+				t.Errorf("state pairs: p-like column %s", col)
+			}
+		}
+	}
+	r0, _ := fixture(t)
+	for _, c := range r0.Contrasts {
+		for _, tr := range tableRows(t, doc, "t-filtration-"+c.ID) {
+			for col := range spans(tr) {
+				if strings.HasPrefix(col, "ks_") {
+					t.Errorf("filtration %s: descriptive column %s beside the tests", c.ID, col)
+				}
+			}
+		}
+	}
+	if r0.AllTables != nil || strings.Contains(string(b), " all</th>") {
+		t.Errorf("no --adjust-all, yet a report-wide column")
+	}
+	for _, method := range []string{"bh", "by"} {
+		r, page, err := buildReport(whPath, "group", method)
+		if err != nil {
+			t.Fatal(err)
+		}
+		doc := parse(t, page)
+		var ids []string
+		var cols []string
+		for _, c := range r.Contrasts {
+			ids = append(ids, "t-dwell-"+c.ID, "t-filtration-"+c.ID)
+			cols = append(cols, "perm_p", "curve_perm_p")
+		}
+		for _, ct := range r.Covariates {
+			ids = append(ids, ct.ID)
+			cols = append(cols, "p")
+		}
+		var ps []float64
+		var shown []string
+		for i, id := range ids {
+			trs := tableRows(t, doc, id)
+			keys := make([]string, 0, len(trs))
+			for k := range trs {
+				keys = append(keys, k)
+			}
+			slices.Sort(keys)
+			for _, k := range keys {
+				sp := spans(trs[k])
+				v, err := strconv.ParseFloat(sp[cols[i]][0], 64)
+				if err != nil {
+					v = math.NaN()
+				}
+				ps = append(ps, v)
+				shown = append(shown, sp["report_p_"+method][0])
+			}
+		}
+		want, err := compute.AdjustPValues(ps, compute.AdjustMethod(method))
+		if err != nil {
+			t.Fatal(err)
+		}
+		m := 0
+		for i, q := range want {
+			if math.IsNaN(q) {
+				if shown[i] != "" {
+					t.Errorf("%s member %d: NULL p, adjusted %q", method, i, shown[i])
+				}
+				continue
+			}
+			m++
+			if !sameValue(shown[i], q) {
+				t.Errorf("%s member %d: p %v, shown %q, want %v", method, i, ps[i], shown[i], q)
+			}
+		}
+		if r.AllTables == nil || r.AllTables.M != m || m < 10 {
+			t.Errorf("%s: family %+v, want m = %d (and at least 10)", method, r.AllTables, m)
+		}
+		if !strings.Contains(string(page), fmt.Sprintf("across all %d inferential p-values of this report", m)) {
+			t.Errorf("%s: the page does not name the family of %d", method, m)
+		}
 	}
 }

@@ -210,15 +210,17 @@ var dimensionText = map[string]string{
 func dwellTable(id, a, b string, res *result) *Table {
 	t := &Table{ID: "t-dwell-" + id, Left: 2, Head: []Head{
 		{"state", ""},
-		{"measure", "occupancy: share of a subject's windows in the state (0-1); dwell time: mean length of an uninterrupted stay, seconds"},
+		{"measure", "occupancy: share of a subject's windows in the state (0-1); dwell time: mean length of the complete uninterrupted stays (not cut by the scan's start or end), seconds"},
 		{a, "group mean ± standard deviation over subjects (n subjects)"},
 		{b, "group mean ± standard deviation over subjects (n subjects)"},
 		{"difference", a + " − " + b},
+		{"no visit", "subjects of " + a + " / " + b + " who never visited the state: in occupancy with 0, left out of dwell time (undefined)"},
+		{"cut runs only", "subjects of " + a + " / " + b + " whose every run of the state touches the scan's first or last window: left out of dwell time (those runs' lengths are only lower bounds)"},
 		{"Welch t (df)", "Welch's t statistic with Welch-Satterthwaite degrees of freedom"},
 		{"p", "Welch t-test, two-sided"},
-		{"p, BH", "Benjamini-Hochberg adjusted across the states of this measure"},
-		{"p perm.", "group labels of whole subjects relabelled; p = (1 + count) / (1 + relabellings)"},
-		{"p perm., BH", "Benjamini-Hochberg adjusted across the states of this measure"},
+		{"p, BH", "Benjamini-Hochberg adjusted across the k states of this measure (Welch p-values only)"},
+		{"p perm.", "studentised permutation test: group labels of whole subjects relabelled; p = (1 + count) / (1 + relabellings)"},
+		{"p perm., BH", "Benjamini-Hochberg adjusted across the k states of this measure (permutation p-values only)"},
 	}}
 	for _, row := range res.rows {
 		m := full(row["measure"])
@@ -231,6 +233,8 @@ func dwellTable(id, a, b string, res *result) *Table {
 			cell(Part{Col: "measure", V: m, Text: label}),
 			meanCell("a", row), meanCell("b", row),
 			valCell("difference", row["difference"], signed),
+			cell(value("n_without_visit_a", row["n_without_visit_a"], integer), text(" / "), value("n_without_visit_b", row["n_without_visit_b"], integer)),
+			cell(value("n_censored_only_a", row["n_censored_only_a"], integer), text(" / "), value("n_censored_only_b", row["n_censored_only_b"], integer)),
 			cell(value("welch_t", row["welch_t"], fixed(2)), text(" ("), value("welch_df", row["welch_df"], fixed(1)), text(")")),
 			pCell("welch_p", row["welch_p"], false), pCell("welch_p_bh", row["welch_p_bh"], true),
 			pCell("perm_p", row["perm_p"], false), pCell("perm_p_bh", row["perm_p_bh"], true),
@@ -250,7 +254,7 @@ func filtrationTable(id string, res *result) *Table {
 		{"subjects", "subjects of each group with a core network in this state (enough time points covered only by windows of the state)"},
 		{"curve gap", "largest distance between the two group-mean core Betti curves"},
 		{"p perm.", "group labels of whole subjects relabelled: the group test"},
-		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows"},
+		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows of this table (every state and both Betti curves of this contrast)"},
 	}}
 	for _, row := range res.rows {
 		dim := full(row["dimension"])
@@ -263,13 +267,6 @@ func filtrationTable(id string, res *result) *Table {
 		}})
 	}
 	return t
-}
-
-func abbrevMethod(m string) string {
-	if m == "" {
-		return ""
-	}
-	return "(" + m + ")"
 }
 
 // transitionTable shows transitions_by_group as one k x k matrix whose
@@ -331,15 +328,15 @@ func fmtOr(v any, f func(float64) string) string {
 	return "–"
 }
 
-// statePairsTable shows state_pairs_ks.
+// statePairsTable shows state_pairs_ks: distances between the fitted
+// states, descriptive, so no p-value is shown or adjusted (issue 11).
 func statePairsTable(res *result) *Table {
 	t := &Table{ID: "t-state-pairs", Left: 2, Head: []Head{
 		{"Betti curve", "β0: spanning-tree edges; β1: the other edges"},
 		{"states", ""},
 		{"events", "filtration events of each centroid network"},
-		{"KS D", "largest gap between the two states' event distributions"},
-		{"KS p", "exact Kolmogorov-Smirnov test when affordable"},
-		{"KS p, BH", "Benjamini-Hochberg adjusted across the pairs of one Betti curve"},
+		{"KS distance D", "largest gap between the two states' event distributions (0-1); a description, not a test"},
+		{"Betti distance", "largest difference of the two centroid networks' Betti curves over all thresholds (components or cycles); a description, not a test"},
 	}}
 	for _, row := range res.rows {
 		dim := full(row["dimension"])
@@ -347,8 +344,8 @@ func statePairsTable(res *result) *Table {
 			cell(Part{Col: "dimension", V: dim, Text: dimensionText[dim]}),
 			cell(value("state_a", row["state_a"], integer), text(" vs "), value("state_b", row["state_b"], integer)),
 			valCell("n_events", row["n_events"], integer),
-			cell(value("ks_statistic", row["ks_statistic"], fixed(3)), Part{Text: " " + abbrevMethod(full(row["ks_method"])), Class: "n"}),
-			pCell("ks_p", row["ks_p"], false), pCell("ks_p_bh", row["ks_p_bh"], true),
+			valCell("ks_distance", row["ks_distance"], fixed(3)),
+			valCell("betti_distance", row["betti_distance"], integer),
 		}})
 	}
 	return t
@@ -364,7 +361,7 @@ func covariateTable(id, name string, res *result) *Table {
 		{"slope", "least-squares change of the measure per unit of " + name},
 		{"t (df)", ""},
 		{"p", "test of r = 0, two-sided"},
-		{"p, BH", "Benjamini-Hochberg adjusted across the states of this measure"},
+		{"p, BH", "Benjamini-Hochberg adjusted across the k states of this measure, for this covariate"},
 	}}
 	for _, row := range res.rows {
 		m := full(row["measure"])
