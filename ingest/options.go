@@ -49,6 +49,15 @@ type Options struct {
 
 	Grid string `json:"grid"` // lo:hi:n thresholds of the Betti curves
 
+	// Surrogates is N, the phase-randomised surrogates of the surrogate-data
+	// test run with the ingest (docs/methods.md §10); 0: no test.
+	// SurrogateFitWindows and SurrogateRestarts are its fitting-sample cap
+	// and k-means restarts per run (0: DefaultSurrogateFitWindows,
+	// DefaultSurrogateRestarts).
+	Surrogates          int `json:"surrogates,omitempty"`
+	SurrogateFitWindows int `json:"surrogate_fit_windows,omitempty"`
+	SurrogateRestarts   int `json:"surrogate_restarts,omitempty"`
+
 	OnBadSubject   string `json:"on_bad_subject"`  // fail | skip
 	ConstantRegion string `json:"constant_region"` // fail | drop
 
@@ -205,6 +214,9 @@ func (o Options) Check() error {
 	if o.ConstantRegion != "fail" && o.ConstantRegion != "drop" {
 		bad("--constant-region %q: want fail or drop", o.ConstantRegion)
 	}
+	if err := o.SurrogateSettings().Check(); err != nil {
+		bad("%v", errors.Unwrap(err))
+	}
 	if o.Workers < 0 {
 		bad("--workers %d: must not be negative (0 uses every core)", o.Workers)
 	}
@@ -212,6 +224,11 @@ func (o Options) Check() error {
 		return &UsageError{Err: errors.Join(errs...)}
 	}
 	return nil
+}
+
+// SurrogateSettings returns the surrogate-test settings of o, as given.
+func (o Options) SurrogateSettings() SurrogateSettings {
+	return SurrogateSettings{N: o.Surrogates, FitWindows: o.SurrogateFitWindows, Restarts: o.SurrogateRestarts}
 }
 
 // UsageError marks a problem with how the command was called (exit code 2).

@@ -15,8 +15,9 @@ import (
 
 // Version is the warehouse layout this build writes and reads. Layout 2
 // is layout 1 with the tables and nullable columns added since (all in
-// v1.sql); Upgrade brings a layout-1 file to it in place.
-const Version = 2
+// v1.sql); layout 3 adds the surrogate_tests table. Upgrade brings a file
+// of any older layout to it in place.
+const Version = 3
 
 //go:embed v1.sql
 var ddlV1 string
