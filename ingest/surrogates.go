@@ -2,11 +2,17 @@ package ingest
 
 import (
 	"context"
+	"database/sql"
+	"encoding/json"
+	"errors"
 	"fmt"
+	"maps"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"slices"
 	"sync"
+	"time"
 
 	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/schema"
@@ -448,4 +454,170 @@ func (s *stages) surrogates(ctx context.Context, set SurrogateSettings) ([]Surro
 		return nil, err
 	}
 	return surrogateRows(s.k, runs), nil
+}
+
+// AddSurrogatesResult is what AddSurrogates did.
+type AddSurrogatesResult struct {
+	AnalysisID int
+	Name       string
+	States     int
+	Settings   SurrogateSettings
+	Rows       []SurrogateRow
+	Replaced   int // rows of an earlier test removed (--replace)
+	Seconds    float64
+}
+
+// AddSurrogates runs the surrogate-data test for the stored analysis called
+// name and writes its surrogate_tests rows in one transaction, touching no
+// other row. The cohort and every setting are those recorded with the
+// analysis (input, when not empty, names the cohort folder instead of the
+// recorded one, for a cohort that moved); the series must be the ones
+// analysed, byte for byte (SHA-256), or nothing is computed. An analysis
+// that already has surrogate rows is refused unless replace is set, which
+// deletes them in the same transaction.
+func AddSurrogates(ctx context.Context, db *sql.DB, name, input string, set SurrogateSettings, replace bool, workers int, prog Progress) (*AddSurrogatesResult, error) {
+	start := time.Now()
+	if prog == nil {
+		prog = noProgress{}
+	}
+	if set.N == 0 {
+		return nil, &UsageError{Err: errors.New("--n: the number of surrogates is required (99 gives p-values down to 0.01)")}
+	}
+	if err := set.Check(); err != nil {
+		return nil, err
+	}
+	var id, k int
+	var params string
+	err := db.QueryRowContext(ctx, `SELECT analysis_id, CAST(parameters AS VARCHAR), n_states FROM analyses WHERE name = ?`, name).Scan(&id, &params, &k)
+	if errors.Is(err, sql.ErrNoRows) {
+		return nil, &UsageError{Err: fmt.Errorf("--analysis %q: no such analysis ('topostate info' lists them)", name)}
+	}
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	var o Options
+	if err := json.Unmarshal([]byte(params), &o); err != nil {
+		return nil, fmt.Errorf("ingest: analysis %q: parameters: %w", name, err)
+	}
+	o.StatesFrom = nil // k is the stored one; the cohort is read as recorded
+	if input != "" {
+		o.Input = input
+	}
+	var have int
+	if err := db.QueryRowContext(ctx, `SELECT count(*) FROM surrogate_tests WHERE analysis_id = ?`, id).Scan(&have); err != nil {
+		return nil, fmt.Errorf("ingest: %w", err)
+	}
+	if have > 0 && !replace {
+		return nil, &UsageError{Err: fmt.Errorf("analysis %q already has a surrogate test (%d rows); pass --replace to compute it again and replace those rows", name, have)}
+	}
+	c, err := LoadCohort(o)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: the cohort of analysis %q (%s) cannot be read as it was: %w", name, o.Input, err)
+	}
+	if err := sameCohort(ctx, db, id, c); err != nil {
+		return nil, err
+	}
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	st := &stages{o: o, c: c, workers: workers, prog: prog, k: k}
+	if err := st.setup(); err != nil {
+		return nil, err
+	}
+	set = set.withDefaults(o)
+	rows, err := st.surrogates(ctx, set)
+	if err != nil {
+		return nil, err
+	}
+	w, err := schema.BeginExisting(ctx, db, id)
+	if err != nil {
+		return nil, err
+	}
+	ok := false
+	defer func() {
+		if !ok {
+			w.Rollback()
+		}
+	}()
+	res := &AddSurrogatesResult{AnalysisID: id, Name: name, States: k, Settings: set, Rows: rows}
+	if replace {
+		var n int
+		if err := w.QueryRow(ctx, `SELECT count(*) FROM surrogate_tests WHERE analysis_id = ?`, []any{id}, &n); err != nil {
+			return nil, err
+		}
+		if err := w.Exec(ctx, `DELETE FROM surrogate_tests WHERE analysis_id = ?`, id); err != nil {
+			return nil, fmt.Errorf("ingest: %w", err)
+		}
+		res.Replaced = n
+	}
+	if err := writeSurrogates(ctx, w, rows, set); err != nil {
+		return nil, err
+	}
+	if err := w.Commit(ctx); err != nil {
+		return nil, err
+	}
+	ok = true
+	prog.Finish()
+	res.Seconds = time.Since(start).Seconds()
+	return res, nil
+}
+
+// sameCohort checks that the validated cohort c is the one analysis id
+// analysed: the same series files with the same SHA-256 and the same
+// analysed regions.
+func sameCohort(ctx context.Context, db *sql.DB, id int, c *Cohort) error {
+	rows, err := db.QueryContext(ctx, `SELECT path, sha256 FROM inputs WHERE analysis_id = ? ORDER BY path`, id)
+	if err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	stored := map[string]string{}
+	for rows.Next() {
+		var p, h string
+		if err := rows.Scan(&p, &h); err != nil {
+			rows.Close()
+			return fmt.Errorf("ingest: %w", err)
+		}
+		stored[p] = h
+	}
+	rows.Close()
+	if err := rows.Err(); err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	for _, in := range c.Inputs {
+		h, ok := stored[in.Rel]
+		switch {
+		case !ok:
+			return fmt.Errorf("ingest: %s was not part of the analysis; the cohort folder changed since (refusing: the test must use the analysed series)", in.Path)
+		case h != in.SHA256:
+			return fmt.Errorf("ingest: %s changed since the analysis (SHA-256 %s, stored %s); refusing: the test must use the analysed series", in.Path, in.SHA256[:12], h[:min(12, len(h))])
+		}
+		delete(stored, in.Rel)
+	}
+	if len(stored) > 0 {
+		missing := slices.Sorted(maps.Keys(stored))
+		return fmt.Errorf("ingest: %d analysed series are missing from the cohort folder now (first: %s); refusing: the test must use the analysed series", len(missing), missing[0])
+	}
+	var names []string
+	rr, err := db.QueryContext(ctx, `SELECT region_name FROM regions WHERE analysis_id = ? AND region_index IS NOT NULL ORDER BY region_index`, id)
+	if err != nil {
+		return fmt.Errorf("ingest: %w", err)
+	}
+	for rr.Next() {
+		var n string
+		if err := rr.Scan(&n); err != nil {
+			rr.Close()
+			return fmt.Errorf("ingest: %w", err)
+		}
+		names = append(names, n)
+	}
+	rr.Close()
+	if len(names) != len(c.Keep) {
+		return fmt.Errorf("ingest: the analysis has %d regions, the cohort now %d; refusing", len(names), len(c.Keep))
+	}
+	for n, j := range c.Keep {
+		if c.Regions[j] != names[n] {
+			return fmt.Errorf("ingest: region %d is %q in the analysis and %q now; refusing", n+1, names[n], c.Regions[j])
+		}
+	}
+	return nil
 }
