@@ -94,11 +94,10 @@ type surrStat struct {
 // surrogateStats lists the statistics for k states, in the order of a run's
 // values. With one state only the window variability is defined.
 func surrogateStats(k int) []surrStat {
-	out := []surrStat{{StatWindowVariability, 0}}
 	if k < 2 {
-		return out
+		return []surrStat{{StatWindowVariability, 0}}
 	}
-	out = append(out, surrStat{StatClusterQuality, 0}, surrStat{StatBettiDistance, 0}, surrStat{StatMeanDwell, 0})
+	out := []surrStat{{StatClusterQuality, 0}, {StatWindowVariability, 0}, {StatBettiDistance, 0}, {StatMeanDwell, 0}}
 	for st := 1; st <= k; st++ {
 		out = append(out, surrStat{StatMeanDwell, st})
 	}
@@ -243,9 +242,8 @@ func (s *stages) surrogateRun(ctx context.Context, cache *seriesCache, set Surro
 			pool = append(pool, m.Row(r)...)
 		}
 	}
-	vals := []float64{tv}
 	if s.k < 2 {
-		return vals, nil
+		return []float64{tv}, nil
 	}
 	x := compute.Matrix32{Rows: len(pool) / D, Cols: D, Data: pool}
 	if x.Rows > set.FitWindows {
@@ -335,7 +333,7 @@ func (s *stages) surrogateRun(ctx context.Context, cache *seriesCache, set Surro
 		all += inState[st]
 		allRuns += runs[st]
 	}
-	vals = append(vals, quality, betti, all/allRuns)
+	vals := []float64{quality, tv, betti, all / allRuns}
 	for st := range s.k {
 		vals = append(vals, inState[st]/runs[st]) // NaN (0/0) when no window of the cohort is in the state
 	}

@@ -1,6 +1,8 @@
 package main
 
 import (
+	"context"
+	"database/sql"
 	"errors"
 	"fmt"
 	"io"
@@ -163,4 +165,54 @@ func surrogateHeadline(rows []shownSurrogate) string {
 		}
 	}
 	return ""
+}
+
+// readSurrogates returns the surrogate_tests rows of every analysis, by
+// analysis id, in stored order.
+func readSurrogates(ctx context.Context, db *sql.DB) (map[int][]shownSurrogate, error) {
+	rows, err := db.QueryContext(ctx, `SELECT analysis_id, statistic, coalesce(state, 0), observed,
+		coalesce(null_mean, 'NaN'::DOUBLE), coalesce(null_sd, 'NaN'::DOUBLE), n_surrogates, p FROM surrogate_tests`)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	out := map[int][]shownSurrogate{}
+	for rows.Next() {
+		var id int
+		var r shownSurrogate
+		if err := rows.Scan(&id, &r.Statistic, &r.State, &r.Observed, &r.NullMean, &r.NullSD, &r.N, &r.P); err != nil {
+			return nil, err
+		}
+		out[id] = append(out[id], r)
+	}
+	return out, rows.Err()
+}
+
+// writeSurrogateTests prints each analysis's surrogate test in plain words
+// (info).
+func writeSurrogateTests(ctx context.Context, db *sql.DB, dbPath string, w io.Writer) error {
+	tests, err := readSurrogates(ctx, db)
+	if err != nil {
+		return fmt.Errorf("info: %w", err)
+	}
+	rows, err := db.QueryContext(ctx, `SELECT analysis_id, name FROM analyses ORDER BY analysis_id`)
+	if err != nil {
+		return fmt.Errorf("info: %w", err)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		var id int
+		var name string
+		if err := rows.Scan(&id, &name); err != nil {
+			return fmt.Errorf("info: %w", err)
+		}
+		t := tests[id]
+		if len(t) == 0 {
+			fmt.Fprintf(w, "analysis %d (%s): no surrogate test; add one with 'topostate surrogates --db %s --analysis %s --n 99'\n", id, name, dbPath, name)
+			continue
+		}
+		fmt.Fprintf(w, "analysis %d (%s): %s\n", id, name, surrogateHeadline(t))
+		printSurrogates(w, "  ", t)
+	}
+	return rows.Err()
 }
