@@ -34,6 +34,7 @@ func demoCommand() *cli.Command {
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "dir", Usage: "`FOLDER` for the cohort and the warehouse (default: a new temporary folder)"},
 			&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
+			&cli.IntFlag{Name: "surrogates", Value: 19, Usage: "test the states against `N` stationary surrogates (0: skip the test)"},
 		},
 		Action: func(c *cli.Context) error {
 			dir := c.String("dir")
@@ -67,6 +68,9 @@ func demoCommand() *cli.Command {
 				return err
 			}
 			fmt.Fprintln(out)
+			if err := demoSurrogates(c, out, dbPath, o.Analysis, c.Int("surrogates")); err != nil {
+				return err
+			}
 			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID); err != nil {
 				return err
 			}

@@ -192,8 +192,7 @@ func printSummary(w io.Writer, dbPath string, s *ingest.Summary) {
 	}
 	fmt.Fprintf(w, "  mean occupancy   %s\n", strings.Join(occ, "  "))
 	if len(s.Surrogates) > 0 {
-		fmt.Fprintf(w, "  surrogate test   %s\n", surrogateHeadline(toShown(s.Surrogates)))
-		printSurrogates(w, "                   ", toShown(s.Surrogates))
+		printSurrogates(w, "  surrogate test   ", "                   ", toShown(s.Surrogates))
 	}
 	for _, msg := range s.Warnings {
 		fmt.Fprintf(w, "  warning          %s\n", msg)

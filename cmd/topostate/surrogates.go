@@ -88,7 +88,7 @@ func surrogatesCommand() *cli.Command {
 				fmt.Fprintf(w, " (replacing %d rows)", res.Replaced)
 			}
 			fmt.Fprintf(w, "\n  each run: at most %d fitting windows, %d k-means restarts; %.1fs\n", res.Settings.FitWindows, res.Settings.Restarts, res.Seconds)
-			printSurrogates(w, "  ", toShown(res.Rows))
+			printSurrogates(w, "  ", "  ", toShown(res.Rows))
 			return nil
 		},
 	}
@@ -142,15 +142,23 @@ func formatP(p float64) string {
 	return fmt.Sprintf("%.3f", p)
 }
 
-// printSurrogates prints one line per row, the whole-model statistics first.
-func printSurrogates(w io.Writer, indent string, rows []shownSurrogate) {
+// surrogateNote ends every printed surrogate test.
+const surrogateNote = "(one-sided Monte-Carlo p-values, each a separate question, not adjusted for multiplicity; docs/methods.md §10)"
+
+// printSurrogates prints one line per row and the note, the first line
+// after first (the rest after indent).
+func printSurrogates(w io.Writer, first, indent string, rows []shownSurrogate) {
 	if len(rows) == 0 {
 		return
 	}
-	for _, r := range rows {
-		fmt.Fprintf(w, "%s%s\n", indent, surrogateSentence(r))
+	for i, r := range rows {
+		lead := indent
+		if i == 0 {
+			lead = first
+		}
+		fmt.Fprintf(w, "%s%s\n", lead, surrogateSentence(r))
 	}
-	fmt.Fprintf(w, "%s(one-sided Monte-Carlo p-values, each a separate question, not adjusted for multiplicity; docs/methods.md §10)\n", indent)
+	fmt.Fprintf(w, "%s%s\n", indent, surrogateNote)
 }
 
 // surrogateHeadline is the one line of a summary: the clustering-quality
@@ -212,7 +220,34 @@ func writeSurrogateTests(ctx context.Context, db *sql.DB, dbPath string, w io.Wr
 			continue
 		}
 		fmt.Fprintf(w, "analysis %d (%s): %s\n", id, name, surrogateHeadline(t))
-		printSurrogates(w, "  ", t)
+		printSurrogates(w, "  ", "  ", t)
 	}
 	return rows.Err()
+}
+
+// demoSurrogates adds the surrogate test to the demo's analysis, as
+// 'topostate surrogates' would, and prints it in plain words (n = 0: skip).
+func demoSurrogates(c *cli.Context, out io.Writer, dbPath, name string, n int) error {
+	if n == 0 {
+		return nil
+	}
+	fmt.Fprintf(out, "2b. topostate surrogates --db %s --analysis %s --n %d\n", shellWord(dbPath), name, n)
+	fmt.Fprintln(out, "   Do the states exist? Every series is replaced by phase-randomised copies that keep its")
+	fmt.Fprintln(out, "   spectra and static correlations but have no states; the same fit is run on each.")
+	db, err := schema.Open(dbPath, false, nil)
+	if err != nil {
+		return err
+	}
+	defer db.Close()
+	var prog ingest.Progress
+	if p := newProgress(c.App.ErrWriter, c.Bool("quiet")); p != nil {
+		prog = p
+	}
+	res, err := ingest.AddSurrogates(c.Context, db, name, "", ingest.SurrogateSettings{N: n}, false, 0, prog)
+	if err != nil {
+		return err
+	}
+	printSurrogates(out, "   ", "   ", toShown(res.Rows))
+	fmt.Fprintln(out)
+	return nil
 }
