@@ -18,10 +18,12 @@ import (
 	"database/sql"
 	"flag"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"strconv"
 	"strings"
+	"syscall"
 	"time"
 
 	"github.com/topostate/topostate/compute"
@@ -53,6 +55,17 @@ func load() string {
 		return "unknown"
 	}
 	return strings.Join(strings.Fields(string(b))[:3], " ")
+}
+
+// cpuSeconds is this process's user + system CPU time so far (getrusage):
+// on a shared machine it measures the work where the wall time measures
+// the load.
+func cpuSeconds() float64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return math.NaN()
+	}
+	return float64(ru.Utime.Sec+ru.Stime.Sec) + float64(ru.Utime.Usec+ru.Stime.Usec)/1e6
 }
 
 // peakRSS is VmHWM of /proc/self/status, the peak resident memory so far.
@@ -107,11 +120,12 @@ func run(subjects, timepoints, regions, states int, nList string, workers int, c
 	o.Input, o.States, o.Workers, o.Analysis = cohort, states, workers, "bench"
 	fmt.Printf("ingest (k = %d fixed, no test): load before %s\n", states, load())
 	start = time.Now()
+	cpu := cpuSeconds()
 	sum, err := ingest.IntoFile(context.Background(), db, o, nil)
 	if err != nil {
 		return err
 	}
-	fmt.Printf("ingest: %.1f s, %d windows, %d fitting windows; load after %s\n", time.Since(start).Seconds(), sum.Windows, sum.FitWindows, load())
+	fmt.Printf("ingest: %.1f s wall, %.1f s CPU, %d windows, %d fitting windows; load after %s\n", time.Since(start).Seconds(), cpuSeconds()-cpu, sum.Windows, sum.FitWindows, load())
 	conn, err := schema.Open(db, false, nil)
 	if err != nil {
 		return err
@@ -144,12 +158,14 @@ func timed(db interface{}, what string, set ingest.SurrogateSettings, workers in
 	conn := db.(*sqlDB)
 	fmt.Printf("\nsurrogates, %s: load before %s\n", what, load())
 	start := time.Now()
+	cpu := cpuSeconds()
 	res, err := ingest.AddSurrogates(context.Background(), conn, "bench", "", set, true, workers, nil)
 	if err != nil {
 		return err
 	}
-	fmt.Printf("%.1f s (%.2f s per run of %d); load after %s; each run fitted on at most %d windows with %d restarts\n",
-		time.Since(start).Seconds(), time.Since(start).Seconds()/float64(set.N+1), set.N+1, load(), res.Settings.FitWindows, res.Settings.Restarts)
+	cpu = cpuSeconds() - cpu
+	fmt.Printf("%.1f s wall, %.1f s CPU (%.2f CPU s per run of %d; idle 2-core estimate CPU/2 = %.1f s); load after %s; each run fitted on at most %d windows with %d restarts\n",
+		time.Since(start).Seconds(), cpu, cpu/float64(set.N+1), set.N+1, cpu/2, load(), res.Settings.FitWindows, res.Settings.Restarts)
 	fmt.Println("| statistic | state | observed | null mean | null sd | p |")
 	fmt.Println("|---|---:|---:|---:|---:|---:|")
 	for _, r := range res.Rows {

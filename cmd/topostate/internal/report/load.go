@@ -56,6 +56,7 @@ type Report struct {
 	Contrasts     []Contrast
 	NoContrast    string // why there are no contrasts, when there are none
 	StatePairs    *Table
+	Surrogates    Surrogates
 	Covariates    []*Table
 	CovariateNote string
 	NPerm         int
@@ -177,6 +178,7 @@ func Build(ctx context.Context, db *sql.DB, conn *sql.Conn, o Options) (*Report,
 		func() error { r.loadElbow(d); return nil },
 		func() error { return r.loadContrasts(ctx, conn, d, o) },
 		func() error { return r.loadStatePairs(ctx, conn, o) },
+		func() error { return r.loadSurrogates(ctx, conn, o) },
 		func() error { return r.loadCovariates(ctx, conn, d, o) },
 	} {
 		if err := step(); err != nil {
