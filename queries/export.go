@@ -54,6 +54,11 @@ var units = map[string]string{
 	"betti_curves.betti": "count (components or cycles)", "filtration_events.value": "correlation r",
 	"state_networks.n_windows": "count (windows)", "state_networks.mean_weight": "correlation r",
 	"state_networks.tree_weight": "sum of correlations r",
+	"surrogate_tests.statistic":  "text", "surrogate_tests.observed": "as the statistic (see meaning)",
+	"surrogate_tests.null_mean": "as the statistic", "surrogate_tests.null_sd": "as the statistic",
+	"surrogate_tests.n_surrogates": "count (surrogates)", "surrogate_tests.n_exceed": "count (surrogates)",
+	"surrogate_tests.p": "probability (0-1)", "surrogate_tests.direction": "text", "surrogate_tests.meaning": "text",
+	"surrogate_tests.fit_windows": "count (windows)", "surrogate_tests.restarts": "count (restarts)",
 }
 
 // Unit returns the unit of a warehouse column ("" when unknown).
