@@ -6,9 +6,9 @@
 #
 # With --surrogates M in INGEST_OPTS the surrogate-data test's M + 1 runs
 # (docs/methods.md §10) are split over the N array tasks of the surrogates
-# stage; each run is a whole-cohort fit on at most 2,000 windows (about 2.5
-# CPU seconds for 100 series x 1,000 time points x 100 regions: README "Do
-# the states exist?"), and a task holds the analysed series of the whole
+# stage; each run is a whole-cohort fit on at most 2,000 windows (8 CPU
+# seconds measured for 100 series x 1,000 time points x 100 regions: README
+# "Do the states exist?"), and a task holds the analysed series of the whole
 # cohort in memory (T x p x 8 bytes per series) plus one series' windows
 # per worker.
 #
