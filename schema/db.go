@@ -15,9 +15,11 @@ import (
 
 // Version is the warehouse layout this build writes and reads. Layout 2
 // is layout 1 with the tables and nullable columns added since (all in
-// v1.sql); layout 3 adds the surrogate_tests table. Upgrade brings a file
-// of any older layout to it in place.
-const Version = 3
+// v1.sql); Upgrade brings a layout-1 file to it in place. Layout 3 adds
+// core_betti_curves and state_networks.core_timepoints (docs/methods.md §7);
+// layout 4 adds surrogate_tests (docs/methods.md §10). Upgrade brings a file
+// of any older layout to the current one the same way.
+const Version = 4
 
 //go:embed v1.sql
 var ddlV1 string

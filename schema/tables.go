@@ -44,6 +44,7 @@ const (
 	BettiCurves     = "betti_curves"
 	FiltrationEvts  = "filtration_events"
 	StateNetworks   = "state_networks"
+	CoreBettiCurves = "core_betti_curves"
 	Subjects        = "subjects"
 	Analyses        = "analyses"
 	SurrogateTests  = "surrogate_tests"
@@ -71,7 +72,9 @@ func init() {
 		f("betti", i32))...)
 	def(FiltrationEvts, append(id[:3:3], f("state", i16), f("dimension", i8), f("value", f64))...)
 	def(StateNetworks, append(id[:3:3], f("state", i16), f("n_windows", i32), f("mean_weight", f64),
-		f("tree_weight", f64))...)
+		f("tree_weight", f64), nullable("core_timepoints", i32))...)
+	def(CoreBettiCurves, append(id[:3:3], f("state", i16), f("dimension", i8), f("threshold", f64),
+		f("betti", i32))...)
 	def(SurrogateTests, f("analysis_id", i32), f("statistic", str), nullable("state", i16), f("observed", f64),
 		nullable("null_mean", f64), nullable("null_sd", f64), f("n_surrogates", i32), f("n_exceed", i32), f("p", f64),
 		f("direction", str), f("meaning", str), f("fit_windows", i32), f("restarts", i32))

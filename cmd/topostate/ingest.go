@@ -46,6 +46,7 @@ func ingestFlags() []cli.Flag {
 		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most `N` windows are used to fit the states"},
 		&cli.StringFlag{Name: "fit-sample", Value: d.FitSample, Usage: "`WHICH` windows the states are fitted on (at most --fit-windows): peaks (windows at local maxima of each series' window variance) or all"},
 		replicationFlags()[0], replicationFlags()[1],
+		&cli.IntFlag{Name: "core-timepoints", Value: d.CoreTimepoints, Usage: "`N` core time points (under windows of one state only) per subject and state for the core networks of the group topology test (0: the window width)"},
 		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
 		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "`POLICY` fail, or skip a series with problems (recorded in excluded_inputs)"},
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},
@@ -71,7 +72,8 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		KRule: c.String("k-rule"), GapReferences: c.Int("gap-references"), GapWindows: c.Int("gap-windows"),
 		Restarts: c.Int("restarts"), ScanRestarts: c.Int("scan-restarts"), MaxIter: c.Int("max-iter"), Seed: c.Uint64("seed"), Distance: c.String("distance"),
 		FitMax: c.Int("fit-windows"), FitSample: c.String("fit-sample"), Grid: c.String("grid"),
-		OnBadSubject: c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
+		CoreTimepoints: c.Int("core-timepoints"),
+		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
 		Surrogates: c.Int("surrogates"), SurrogateFitWindows: c.Int("surrogate-fit-windows"), SurrogateRestarts: c.Int("surrogate-restarts"),
 	}

@@ -9,6 +9,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"sync"
 	"testing"
@@ -342,12 +343,12 @@ func TestLayout1(t *testing.T) {
 	if r.code != 0 {
 		t.Fatalf("ingest into a layout-1 file: exit %d: %s", r.code, r.stderr)
 	}
-	if got := querySQL(t, db, `SELECT max(version) FROM schema_version`); got != fmt.Sprint(schema.Version) {
+	if got := querySQL(t, db, `SELECT max(version) FROM schema_version`); got != strconv.Itoa(schema.Version) {
 		t.Errorf("layout %s after an ingest, want %d", got, schema.Version)
 	}
 	r = runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db}})
 	if r.code != 0 || !strings.Contains(r.stdout, "nothing to do") {
-		t.Errorf("upgrade of a current-layout file: exit %d: %s%s", r.code, r.stdout, r.stderr)
+		t.Errorf("upgrade of a file of the current layout: exit %d: %s%s", r.code, r.stdout, r.stderr)
 	}
 	db2 := filepath.Join(tmp, "second.duckdb")
 	copyFile(t, baselineDB, db2)
