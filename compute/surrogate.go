@@ -150,3 +150,49 @@ func MonteCarloP(observed float64, null []float64) (p float64, exceed int) {
 	}
 	return float64(1+exceed) / float64(1+len(null)), exceed
 }
+
+// ClusterQuality returns 1 - W(k)/W(1), the share of the fitting windows'
+// total dispersion W(1) (the within-cluster sum of one cluster) that k
+// clusters explain (the ratio of the elbow curve, docs/methods.md §3 and
+// §10); 0 when W(1) is 0.
+func ClusterQuality(wk, w1 float64) float64 {
+	if w1 <= 0 {
+		return 0
+	}
+	return 1 - wk/w1
+}
+
+// MeanPairwiseBettiDistance returns the mean of BettiSupDistance over the
+// k(k-1)/2 pairs of networks whose Betti-0 and Betti-1 curves are b0[s]
+// and b1[s] (docs/methods.md §10); 0 for fewer than two networks.
+func MeanPairwiseBettiDistance(b0, b1 [][]int) float64 {
+	k := len(b0)
+	if k < 2 {
+		return 0
+	}
+	sum := 0.0
+	for a := 0; a < k; a++ {
+		for b := a + 1; b < k; b++ {
+			sum += BettiSupDistance(b0[a], b1[a], b0[b], b1[b])
+		}
+	}
+	return sum / float64(k*(k-1)/2)
+}
+
+// CentreNetwork subtracts from every edge weight of a network (its upper
+// triangle) the mean edge weight, in place, so that two networks that
+// differ only by a uniform shift of all weights have the same Betti curves
+// (docs/methods.md §10). It does nothing to an empty slice.
+func CentreNetwork(upper []float64) {
+	if len(upper) == 0 {
+		return
+	}
+	mean := 0.0
+	for _, v := range upper {
+		mean += v
+	}
+	mean /= float64(len(upper))
+	for q := range upper {
+		upper[q] -= mean
+	}
+}

@@ -84,6 +84,15 @@ type Options struct {
 	// core network. 0 means the window width.
 	CoreTimepoints int `json:"core_timepoints"`
 
+	// Surrogates is N, the phase-randomised surrogates of the surrogate-data
+	// test run with the ingest (docs/methods.md §10); 0: no test.
+	// SurrogateFitWindows and SurrogateRestarts are its fitting-sample cap
+	// and k-means restarts per run (0: DefaultSurrogateFitWindows,
+	// DefaultSurrogateRestarts).
+	Surrogates          int `json:"surrogates,omitempty"`
+	SurrogateFitWindows int `json:"surrogate_fit_windows,omitempty"`
+	SurrogateRestarts   int `json:"surrogate_restarts,omitempty"`
+
 	OnBadSubject   string `json:"on_bad_subject"`  // fail | skip
 	ConstantRegion string `json:"constant_region"` // fail | drop
 
@@ -305,6 +314,9 @@ func (o Options) Check() error {
 	if o.Encoding != "" && o.Encoding != "utf-8" && o.Encoding != "latin1" {
 		bad("--encoding %q: want utf-8 or latin1 (ISO-8859-1 / Windows-1252)", o.Encoding)
 	}
+	if err := o.SurrogateSettings().Check(); err != nil {
+		bad("%v", errors.Unwrap(err))
+	}
 	if o.Workers < 0 {
 		bad("--workers %d: must not be negative (0 uses every core)", o.Workers)
 	}
@@ -312,6 +324,11 @@ func (o Options) Check() error {
 		return &UsageError{Err: errors.Join(errs...)}
 	}
 	return nil
+}
+
+// SurrogateSettings returns the surrogate-test settings of o, as given.
+func (o Options) SurrogateSettings() SurrogateSettings {
+	return SurrogateSettings{N: o.Surrogates, FitWindows: o.SurrogateFitWindows, Restarts: o.SurrogateRestarts}
 }
 
 // UsageError marks a problem with how the command was called (exit code 2).

@@ -65,6 +65,9 @@ type Summary struct {
 	WorkerTimes []PhaseTime
 	// Fits are the k-means fits run by the fit stage, in order.
 	Fits []FitStat
+	// Surrogates are the rows of the surrogate-data test (none without
+	// --surrogates).
+	Surrogates []SurrogateRow
 }
 
 // PhaseTime is the wall time of one stage (or part of one).
@@ -137,6 +140,17 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		sum.Elbow = st.elbow
 		lap("fit states")
 	}
+	// The surrogate-data test (docs/methods.md §10), before the transaction
+	// opens: it needs only k and the cohort.
+	set := o.SurrogateSettings().withDefaults(o)
+	var surr []SurrogateRow
+	if set.N > 0 {
+		var err error
+		if surr, err = st.surrogates(ctx, set); err != nil {
+			return nil, err
+		}
+		lap("surrogates")
+	}
 
 	// Stages 3 and 4: per-subject results, written in subject order.
 	w, err := schema.Begin(ctx, db, o.Analysis, o.Parquet)
@@ -173,6 +187,11 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.PhaseTimes = append(sum.PhaseTimes, PhaseTime{"subjects", st.rowsDone.Sub(clock).Seconds()},
 		PhaseTime{"write", (static + now.Sub(st.rowsDone)).Seconds()})
 	clock = now
+	if set.N > 0 {
+		if err := writeSurrogates(ctx, w, surr, set); err != nil {
+			return nil, err
+		}
+	}
 	if err := st.recordAnalysis(ctx, w); err != nil {
 		return nil, err
 	}
@@ -193,6 +212,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.Occupancies = occ
 	sum.WorkerTimes = st.work.list()
 	sum.Fits = st.fits
+	sum.Surrogates = surr
 	sum.Warnings = c.Warnings // fit may have added one
 	return sum, nil
 }

@@ -865,6 +865,10 @@ func (w *Work) Merge(ctx context.Context, db *sql.DB, name string, prog Progress
 		}
 		prog.Add(1)
 	}
+	surr, err := w.mergeSurrogates(ctx, sw, fit)
+	if err != nil {
+		return nil, err
+	}
 	if err := st.recordAnalysis(ctx, sw); err != nil {
 		return nil, err
 	}
@@ -881,6 +885,7 @@ func (w *Work) Merge(ctx context.Context, db *sql.DB, name string, prog Progress
 	sum := &Summary{AnalysisID: sw.ID, Name: sw.Name, Subjects: len(c.Inputs), Excluded: len(c.Excluded),
 		Regions: len(c.Keep), States: st.k, Windows: st.totalWindows, FitWindows: st.fitRows, Elbow: st.elbow,
 		StatesFrom: fit.StatesFrom, Warnings: c.Warnings, Occupancies: occ,
+		Surrogates: surr,
 		PhaseTimes: []PhaseTime{{"merge", time.Since(start).Seconds()}}}
 	for _, j := range c.Dropped {
 		sum.Dropped = append(sum.Dropped, c.Regions[j])

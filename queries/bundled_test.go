@@ -611,7 +611,7 @@ func TestBundledHeaders(t *testing.T) {
 		}
 	}
 	want := []string{"adjusted_group_contrast", "betti_curves_by_group", "covariate_association", "filtration_tests_by_group",
-		"state_dwell_by_group", "state_pairs_ks", "subject_features", "transitions_by_group"}
+		"state_dwell_by_group", "state_pairs_ks", "subject_features", "surrogate_summary", "transitions_by_group"}
 	if !slices.Equal(names, want) {
 		t.Errorf("bundled %v, want %v", names, want)
 	}

@@ -63,6 +63,11 @@ var units = map[string]string{
 	"state_networks.tree_weight":     "sum of correlations r",
 	"state_networks.core_timepoints": "count (time points)",
 	"core_betti_curves.threshold":    "correlation r", "core_betti_curves.betti": "count (components or cycles)",
+	"surrogate_tests.statistic": "text", "surrogate_tests.observed": "as the statistic (see meaning)",
+	"surrogate_tests.null_mean": "as the statistic", "surrogate_tests.null_sd": "as the statistic",
+	"surrogate_tests.n_surrogates": "count (surrogates)", "surrogate_tests.n_exceed": "count (surrogates)",
+	"surrogate_tests.p": "probability (0-1)", "surrogate_tests.direction": "text", "surrogate_tests.meaning": "text",
+	"surrogate_tests.fit_windows": "count (windows)", "surrogate_tests.restarts": "count (restarts)",
 }
 
 // Unit returns the unit of a warehouse column ("" when unknown).

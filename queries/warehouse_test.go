@@ -87,6 +87,9 @@ func buildWarehouse(dir string) error {
 	}{{"first", 20}, {"second", 26}} {
 		o := ingest.Defaults()
 		o.Input, o.Window, o.States, o.Restarts, o.Grid, o.Seed, o.Analysis = cohortDir, a.window, 3, 3, "-0.4:1:29", 5, a.name
+		if a.name == "first" {
+			o.Surrogates = 19 // surrogate_summary reads it
+		}
 		if _, err := ingest.IntoFile(context.Background(), warehousePath, o, nil); err != nil {
 			return err
 		}

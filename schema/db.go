@@ -21,7 +21,8 @@ import (
 // window of --window-seconds) and the covariates table (participants.json);
 // and state_metrics' complete-run dwell columns (n_complete_dwells,
 // n_censored_dwells, complete_dwell_windows, complete_dwell_seconds; NULL
-// for older analyses; docs/methods.md §4).
+// for older analyses; docs/methods.md §4); and the surrogate_tests table
+// (docs/methods.md §10).
 // Upgrade brings a layout-1, -2 or -3 file to it the same way.
 const Version = 4
 

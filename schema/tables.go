@@ -48,6 +48,7 @@ const (
 	Subjects        = "subjects"
 	Covariates      = "covariates"
 	Analyses        = "analyses"
+	SurrogateTests  = "surrogate_tests"
 )
 
 func init() {
@@ -79,6 +80,9 @@ func init() {
 		f("tree_weight", f64), nullable("core_timepoints", i32))...)
 	def(CoreBettiCurves, append(id[:3:3], f("state", i16), f("dimension", i8), f("threshold", f64),
 		f("betti", i32))...)
+	def(SurrogateTests, f("analysis_id", i32), f("statistic", str), nullable("state", i16), f("observed", f64),
+		nullable("null_mean", f64), nullable("null_sd", f64), f("n_surrogates", i32), f("n_exceed", i32), f("p", f64),
+		f("direction", str), f("meaning", str), f("fit_windows", i32), f("restarts", i32))
 }
 
 // ArrowSchema returns the Arrow schema of a result table.

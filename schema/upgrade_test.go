@@ -247,3 +247,45 @@ func TestUpgradeLayout3(t *testing.T) {
 		t.Errorf("old row after the upgrade: n_dwells %v mean %v complete %v %v; want 3, 8, NULL, NULL", n, dw, nc, cs)
 	}
 }
+
+// TestUpgradeLayout3Surrogates upgrades a layout-3 file (the current DDL without the
+// surrogate_tests table of layout 4) in place: the table appears and the
+// old rows are kept. DuckDB's information_schema is the referee.
+func TestUpgradeLayout3Surrogates(t *testing.T) {
+	ctx := context.Background()
+	ddl := DDL()
+	i := strings.Index(ddl, "CREATE TABLE IF NOT EXISTS surrogate_tests (")
+	if i < 0 {
+		t.Fatal("the DDL no longer has the layout-4 table this test removes")
+	}
+	j := i + strings.Index(ddl[i:], "\n);") + 3
+	ddl = ddl[:i] + ddl[j:]
+	path := tempPath(t)
+	c, err := duckdb.NewConnector(path, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw := sql.OpenDB(c)
+	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (3, now())`,
+		`INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5, NULL)`} {
+		if _, err := raw.Exec(q); err != nil {
+			raw.Close()
+			t.Fatalf("%v\n%s", err, q)
+		}
+	}
+	raw.Close()
+	db, err := Open(path, false, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if from, err := Upgrade(ctx, db); err != nil || from != 3 {
+		t.Fatalf("Upgrade: from %d, %v", from, err)
+	}
+	var n, rows int
+	db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = 'surrogate_tests'`).Scan(&n)
+	db.QueryRow(`SELECT count(*) FROM state_networks`).Scan(&rows)
+	if n != 13 || rows != 1 {
+		t.Errorf("after the upgrade: surrogate_tests has %d columns (want 13), state_networks %d rows (want 1)", n, rows)
+	}
+}

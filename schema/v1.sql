@@ -190,3 +190,21 @@ CREATE TABLE IF NOT EXISTS core_betti_curves (
     threshold   DOUBLE NOT NULL,   -- filtration value e (correlation scale); edges with weight > e kept
     betti       INTEGER NOT NULL   -- Betti number of the thresholded core network
 );
+
+-- Surrogate-data test of the state model (docs/methods.md §10): one row per
+-- statistic (and state), from 'ingest --surrogates N' or 'topostate surrogates'.
+CREATE TABLE IF NOT EXISTS surrogate_tests (
+    analysis_id  INTEGER NOT NULL,  -- analysis
+    statistic    VARCHAR NOT NULL,  -- cluster_quality, window_variability, betti_distance or mean_dwell
+    state        SMALLINT,          -- state by frequency rank in the fit (mean_dwell per state); NULL for a statistic of the whole model
+    observed     DOUBLE NOT NULL,   -- statistic of the original series through the surrogates' own fitting procedure (same k, capped sample, fit_windows and restarts)
+    null_mean    DOUBLE,            -- mean of the statistic over the phase-randomised surrogates; NULL when none is defined
+    null_sd      DOUBLE,            -- standard deviation (n - 1) over the surrogates; NULL when fewer than two are defined
+    n_surrogates INTEGER NOT NULL,  -- N, surrogates drawn (each series replaced by its multivariate phase surrogate)
+    n_exceed     INTEGER NOT NULL,  -- surrogates whose statistic is >= observed (an undefined one counts)
+    p            DOUBLE NOT NULL,   -- Monte-Carlo p = (1 + n_exceed) / (1 + N), one-sided in the direction of the next column
+    direction    VARCHAR NOT NULL,  -- 'greater': the test asks whether the observed value lies above the stationary surrogates
+    meaning      VARCHAR NOT NULL,  -- what the statistic measures and what a small p says, in one line
+    fit_windows  INTEGER NOT NULL,  -- cap on the fitting windows of each run (observed and surrogates)
+    restarts     INTEGER NOT NULL   -- k-means restarts of each run
+);

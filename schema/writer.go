@@ -109,6 +109,34 @@ func Begin(ctx context.Context, db *sql.DB, name, parquetDir string) (*Writer, e
 	return w, nil
 }
 
+// BeginExisting opens a transaction that adds rows to the stored analysis
+// id (for example its surrogate_tests rows): the layout is created or
+// upgraded first, and the analysis must exist. Nothing else of the file is
+// touched unless the caller writes it; Rollback leaves the file as it was.
+func BeginExisting(ctx context.Context, db *sql.DB, id int) (*Writer, error) {
+	conn, err := db.Conn(ctx)
+	if err != nil {
+		return nil, fmt.Errorf("schema: %w", classify(err))
+	}
+	w := &Writer{conn: conn, ID: id, pq: map[string]*parquetFile{}, rows: map[string]int64{}}
+	if _, err := conn.ExecContext(ctx, "BEGIN TRANSACTION"); err != nil {
+		w.Rollback()
+		return nil, fmt.Errorf("schema: begin: %w", classify(err))
+	}
+	if err := Migrate(ctx, conn); err != nil {
+		w.Rollback()
+		return nil, err
+	}
+	if err := conn.QueryRowContext(ctx, `SELECT name FROM analyses WHERE analysis_id = ?`, id).Scan(&w.Name); err != nil {
+		w.Rollback()
+		if errors.Is(err, sql.ErrNoRows) {
+			return nil, fmt.Errorf("schema: no analysis with id %d", id)
+		}
+		return nil, fmt.Errorf("schema: %w", err)
+	}
+	return w, nil
+}
+
 // BeginParquet starts a writer that writes no database, only one Parquet
 // file per table at path(table) (folders are created as needed), for the
 // stages of a sharded run. Rows carry analysis_id id. Files are written
@@ -215,6 +243,17 @@ func (w *Writer) Exec(ctx context.Context, query string, args ...any) error {
 	}
 	_, err := w.conn.ExecContext(ctx, query, args...)
 	return err
+}
+
+// QueryRow runs a one-row query inside the transaction and scans it into dest.
+func (w *Writer) QueryRow(ctx context.Context, query string, args []any, dest ...any) error {
+	if w.conn == nil {
+		return errors.New("schema: QueryRow on a Parquet-only writer")
+	}
+	if err := w.conn.QueryRowContext(ctx, query, args...).Scan(dest...); err != nil {
+		return fmt.Errorf("schema: %w", err)
+	}
+	return nil
 }
 
 // Append inserts a batch's rows into its table (by column name) and, when

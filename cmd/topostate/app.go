@@ -64,6 +64,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 			simulateCommand(),
 			infoCommand(),
 			dropCommand(),
+			surrogatesCommand(),
 			upgradeCommand(),
 			queryCommand(),
 			exportCommand(),

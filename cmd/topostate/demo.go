@@ -45,6 +45,7 @@ func demoCommand() *cli.Command {
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "dir", Usage: "`FOLDER` for the cohort (FOLDER/cohort) and the warehouse (FOLDER/demo.duckdb), neither of which may exist (default: a new temporary folder)"},
 			&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
+			&cli.IntFlag{Name: "surrogates", Value: 19, Usage: "test the states against `N` stationary surrogates (0: skip the test)"},
 		},
 		Action: func(c *cli.Context) error {
 			dir := c.String("dir")
@@ -92,6 +93,9 @@ func demoCommand() *cli.Command {
 			fmt.Fprintln(out)
 			fmt.Fprintln(out, demoFound(sum.States, demoStates))
 			fmt.Fprintln(out)
+			if err := demoSurrogates(c, out, dbPath, o.Analysis, c.Int("surrogates")); err != nil {
+				return err
+			}
 			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID); err != nil {
 				return err
 			}

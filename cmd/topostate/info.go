@@ -61,7 +61,10 @@ func infoCommand() *cli.Command {
 			if err := tw.Flush(); err != nil {
 				return err
 			}
-			return writeKChoices(c.Context, db, c.App.Writer)
+			if err := writeKChoices(c.Context, db, c.App.Writer); err != nil {
+				return err
+			}
+			return writeSurrogateTests(c.Context, db, c.String("db"), c.App.Writer)
 		},
 	}
 }

@@ -17,7 +17,7 @@ import (
 
 func ingestFlags() []cli.Flag {
 	d := ingest.Defaults()
-	return []cli.Flag{
+	flags := []cli.Flag{
 		&cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "cohort `FOLDER`: participants.tsv and sub-<label>[_ses-<label>]_..._timeseries.tsv|csv|npy files (or _bold.nii[.gz] with --atlas)"},
 		&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (created when missing)"},
 		&cli.StringFlag{Name: "analysis", Usage: "`NAME` of this analysis in the warehouse (default analysis-<id>)"},
@@ -60,11 +60,14 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "parquet", Usage: "also write every table of this analysis as Parquet into `FOLDER`"},
 		&cli.IntFlag{Name: "workers", Value: 0, Usage: fmt.Sprintf("`N` parallel workers (0: all %d cores); results do not depend on it", runtime.GOMAXPROCS(0))},
 		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
+	}
+	flags = append(flags, surrogateFlags()...)
+	return append(flags,
 		// For the benchmark harness (scripts/bench) and profiling.
 		&cli.StringFlag{Name: "cpuprofile", Hidden: true, Usage: "write a pprof CPU profile of the run to `FILE`"},
 		&cli.StringFlag{Name: "memprofile", Hidden: true, Usage: "write a pprof heap profile at the end of the run to `FILE`"},
 		&cli.StringFlag{Name: "timings", Hidden: true, Usage: "write the phase and worker times as JSON to `FILE`"},
-	}
+	)
 }
 
 // checkWindowFlags refuses a window given both in time points and in
@@ -92,6 +95,7 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		CoreTimepoints: c.Int("core-timepoints"),
 		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"), Encoding: strings.TrimPrefix(c.String("encoding"), "utf-8"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
+		Surrogates: c.Int("surrogates"), SurrogateFitWindows: c.Int("surrogate-fit-windows"), SurrogateRestarts: c.Int("surrogate-restarts"),
 	}
 }
 
@@ -237,6 +241,9 @@ func printSummary(w io.Writer, dbPath string, s *ingest.Summary) {
 		occ[i] = fmt.Sprintf("%d: %.2f", i+1, v)
 	}
 	fmt.Fprintf(w, "  mean occupancy   %s\n", strings.Join(occ, "  "))
+	if len(s.Surrogates) > 0 {
+		printSurrogates(w, "  surrogate test   ", "                   ", toShown(s.Surrogates))
+	}
 	for _, msg := range s.Warnings {
 		fmt.Fprintf(w, "  warning          %s\n", msg)
 	}

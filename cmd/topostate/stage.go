@@ -29,6 +29,7 @@ func stageCommand() *cli.Command {
 			"  sample   per shard  fitting-sample windows of the shard's series (--fit-sample)\n" +
 			"  fit      once       elbow scan and k-means on the pooled fitting sample (or --states-from)\n" +
 			"  compute  per shard  states, dwell times, transitions, Betti curves and events\n" +
+			"  surrogates per shard  (with plan --surrogates N) the surrogate-data test's runs, after fit\n" +
 			"  merge    once       every table into the warehouse in one transaction\n\n" +
 			"The same seed gives the same rows as a single 'topostate ingest', whatever the number of shards.\n" +
 			"The tables are also readable in place: read_parquet('WORK/tables/TABLE/*/*.parquet', hive_partitioning = true).",
@@ -138,6 +139,24 @@ func stageCommand() *cli.Command {
 						rows += n
 					}
 					fmt.Fprintf(c.App.Writer, "shard %s: %d series, %d rows (%.1fs)\n", s.Shard, s.Series, rows, s.Seconds)
+					return nil
+				},
+			},
+			{
+				Name:  "surrogates",
+				Usage: "after fit, per shard: the surrogate-data test runs of this shard (plan with --surrogates N)",
+				Flags: []cli.Flag{work, shard, workers, quiet},
+				Action: func(c *cli.Context) error {
+					w, sh, err := openShard(c)
+					if err != nil {
+						return err
+					}
+					lowerGC()
+					s, err := w.Surrogates(c.Context, sh, c.Int("workers"), progress(c))
+					if err != nil {
+						return err
+					}
+					fmt.Fprintf(c.App.Writer, "shard %s: %d surrogate runs (%.1fs)\n", s.Shard, s.Series, s.Seconds)
 					return nil
 				},
 			},

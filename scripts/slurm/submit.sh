@@ -2,12 +2,20 @@
 # Submit a sharded topostate ingest to Slurm: five jobs chained with
 # --dependency=afterok, the two per-shard stages as array jobs.
 #
-#   plan ──> sample[1..N] ──> fit ──> compute[1..N] ──> merge
+#   plan ──> sample[1..N] ──> fit ──> compute[1..N] ──> [surrogates[1..N]] ──> merge
+#
+# With --surrogates M in INGEST_OPTS the surrogate-data test's M + 1 runs
+# (docs/methods.md §10) are split over the N array tasks of the surrogates
+# stage; each run is a whole-cohort fit on at most 2,000 windows (8 CPU
+# seconds measured for 100 series x 1,000 time points x 100 regions: README
+# "Do the states exist?"), and a task holds the analysed series of the whole
+# cohort in memory (T x p x 8 bytes per series) plus one series' windows
+# per worker.
 #
 # afterok on an array job waits for every task of it, and a failed job
 # leaves the jobs after it pending with reason DependencyNeverSatisfied.
 # Cancel them with scancel, fix the cause, and submit again from the stage
-# that failed with START=sample|fit|compute|merge: the finished stages need
+# that failed with START=sample|fit|compute|surrogates|merge: the finished stages need
 # not run again (a shard run again overwrites its own files).
 #
 # Usage:
@@ -49,11 +57,13 @@
 # Times below are generous ceilings; --time must only be long enough, but a
 # shorter limit gets a job scheduled sooner on most clusters. Each stage's
 # requests can be replaced whole through PLAN_RES, SAMPLE_RES, FIT_RES,
-# COMPUTE_RES and MERGE_RES (try-local.sh does, for a 2-core node).
+# COMPUTE_RES, SURROGATES_RES and MERGE_RES (try-local.sh does, for a
+# 2-core node).
 : "${PLAN_RES:=--cpus-per-task=4 --mem=1G --time=01:00:00}"
 : "${SAMPLE_RES:=--cpus-per-task=2 --mem=1G --time=00:30:00}"
 : "${FIT_RES:=--cpus-per-task=8 --mem=4G --time=02:00:00}"
 : "${COMPUTE_RES:=--cpus-per-task=2 --mem=1G --time=00:30:00}"
+: "${SURROGATES_RES:=--cpus-per-task=2 --mem=4G --time=02:00:00}"
 : "${MERGE_RES:=--cpus-per-task=1 --mem=4G --time=02:00:00}"
 set -euo pipefail
 : "${INPUT:?set INPUT to the cohort folder}" "${WORK:?set WORK to a new work folder on a shared file system}"
@@ -85,7 +95,7 @@ submit() {
 	after=$id
 	echo "  $stage: job $id${array:+ (array $array)}"
 }
-stages=(plan sample fit compute merge)
+stages=(plan sample fit compute surrogates merge)
 start=${START:-plan}
 [[ " ${stages[*]} " == *" $start "* ]] || { echo "submit.sh: START=$start: want one of ${stages[*]}" >&2; exit 2; }
 echo "submitted:"
@@ -98,6 +108,11 @@ for s in "${stages[@]}"; do
 	sample) [[ -n $STATES_FROM ]] || submit ts-sample sample "1-$SHARDS" "$SAMPLE_RES" ;;
 	fit) submit ts-fit fit "" "$FIT_RES" ;;
 	compute) submit ts-compute compute "1-$SHARDS" "$COMPUTE_RES" ;;
+	surrogates)
+		if [[ " $INGEST_OPTS " =~ \ --surrogates[=\ ]+[1-9] ]]; then
+			submit ts-surrogates surrogates "1-$SHARDS" "$SURROGATES_RES"
+		fi
+		;;
 	merge) submit ts-merge merge "" "$MERGE_RES" ;;
 	esac
 done

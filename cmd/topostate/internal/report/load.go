@@ -63,6 +63,7 @@ type Report struct {
 	Contrasts     []Contrast
 	NoContrast    string // why there are no contrasts, when there are none
 	StatePairs    *Table
+	Surrogates    Surrogates
 	Covariates    []*Table
 	CovariateNote string
 	AllTables     *AllTables // the report-wide adjustment, when asked for
@@ -190,6 +191,7 @@ func Build(ctx context.Context, db *sql.DB, conn *sql.Conn, o Options) (*Report,
 		func() error { return r.loadContrasts(ctx, conn, d, o) },
 		func() error { return r.loadAdjusted(ctx, conn, d, o) },
 		func() error { return r.loadStatePairs(ctx, conn, o) },
+		func() error { return r.loadSurrogates(ctx, conn, o) },
 		func() error { return r.loadCovariates(ctx, conn, d, o) },
 		func() error {
 			if o.AdjustAll == "" {
