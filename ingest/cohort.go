@@ -3,12 +3,14 @@ package ingest
 import (
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 	"runtime"
 	"slices"
 	"strings"
 	"sync"
+	"unsafe"
 
 	"github.com/topostate/topostate/compute"
 )
@@ -25,6 +27,21 @@ type Cohort struct {
 	Excluded     []Exclusion
 	Warnings     []string
 	Source       *Source // reads each input's series (tables, .npy, NIfTI with the atlas)
+	// TempDir is the run's temporary folder (Options.CacheSeries): the
+	// parsed-series cache and DuckDB's spill folder. "" when there is none.
+	// Close removes it.
+	TempDir string
+}
+
+// Close removes the cohort's temporary folder, if any. Safe to call twice
+// and on a nil Cohort.
+func (c *Cohort) Close() error {
+	if c == nil || c.TempDir == "" {
+		return nil
+	}
+	err := os.RemoveAll(c.TempDir)
+	c.TempDir = ""
+	return err
 }
 
 // SubjectInput is one series that passed validation.
@@ -35,6 +52,8 @@ type SubjectInput struct {
 	SHA256     string
 	Timepoints int
 	Windows    int
+
+	cache string // the parsed series as float64 (seriesCache); "": read the file again
 }
 
 // Exclusion is a series left out under --on-bad-subject skip.
@@ -51,6 +70,7 @@ type fileCheck struct {
 	constant []int
 	tr       float64
 	trSource string
+	cache    string // where the parsed series was cached; "": not cached
 	err      error
 }
 
@@ -73,6 +93,17 @@ func LoadCohort(o Options) (*Cohort, error) {
 	}
 	c := &Cohort{Dir: o.Input, Source: src}
 	var problems Problems
+	if o.CacheSeries {
+		if c.TempDir, err = os.MkdirTemp("", "topostate-run-"); err != nil {
+			c.TempDir = "" // no cache: every stage reads the files again
+		}
+	}
+	ok := false
+	defer func() {
+		if !ok {
+			c.Close()
+		}
+	}()
 
 	ppath := filepath.Join(o.Input, "participants.tsv")
 	if _, err := os.Stat(ppath); err != nil {
@@ -103,7 +134,11 @@ func LoadCohort(o Options) (*Cohort, error) {
 		go func() {
 			defer wg.Done()
 			for i := range next {
-				checks[i] = checkFile(src, inputs[i], o)
+				cache := ""
+				if c.TempDir != "" {
+					cache = filepath.Join(c.TempDir, fmt.Sprintf("series-%06d.f64", i))
+				}
+				checks[i] = checkFile(src, inputs[i], o, cache)
 			}
 		}()
 	}
@@ -187,7 +222,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		}
 		ch := checks[i]
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, o.Window, o.Step)})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, o.Window, o.Step), cache: ch.cache})
 	}
 	if part != nil {
 		have := map[string]bool{}
@@ -219,10 +254,13 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if k > windows {
 		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), o.Window, o.Step)}
 	}
+	ok = true
 	return c, nil
 }
 
-func checkFile(src *Source, in Input, o Options) fileCheck {
+// checkFile reads and checks one file; when cache is not "" the parsed
+// series is also written there (writeSeriesCache) for the stages.
+func checkFile(src *Source, in Input, o Options, cache string) fileCheck {
 	var ch fileCheck
 	sf, err := src.Read(in)
 	if err != nil {
@@ -230,6 +268,9 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		return ch
 	}
 	ch.regions, ch.T, ch.sha = sf.Regions, sf.Series.T, sf.SHA256
+	if cache != "" && writeSeriesCache(cache, sf.Series) == nil {
+		ch.cache = cache
+	}
 	ch.constant = compute.ConstantRegions(sf.Series)
 	if sf.Series.T < o.Window {
 		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.Window)}
@@ -301,4 +342,53 @@ func orNone(ses string) string {
 func fileExists(p string) bool {
 	_, err := os.Stat(p)
 	return err == nil
+}
+
+// The parsed-series cache: each series that passed its read at validation
+// is written once, as its T x p float64 values in the machine's byte order
+// (no header: the cohort knows T and p), to the run's temporary folder.
+// The stages read it back instead of parsing the file again (text parsing
+// is most of a read), and the values are the very numbers validation
+// parsed and hashed, so a file changed during the run cannot enter it.
+// float64, not float32: the stages then compute from exactly the numbers
+// the file gives (parsed to float64), so results are identical with or
+// without the cache; float32 would round values such as 1000.123456 (a
+// scanner offset plus signal) to about 7 digits. A series that cannot be
+// cached (a full disk) is read from its file again.
+func writeSeriesCache(path string, y compute.Series) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	if _, err := f.Write(float64Bytes(y.Data)); err != nil {
+		f.Close()
+		os.Remove(path)
+		return err
+	}
+	if err := f.Close(); err != nil {
+		os.Remove(path)
+		return err
+	}
+	return nil
+}
+
+// readSeriesCache reads a series written by writeSeriesCache.
+func readSeriesCache(path string, t, p int) (compute.Series, error) {
+	y := compute.NewSeries(t, p)
+	f, err := os.Open(path)
+	if err != nil {
+		return compute.Series{}, err
+	}
+	defer f.Close()
+	if _, err := io.ReadFull(f, float64Bytes(y.Data)); err != nil {
+		return compute.Series{}, fmt.Errorf("ingest: parsed-series cache %s: %w", path, err)
+	}
+	return y, nil
+}
+
+func float64Bytes(v []float64) []byte {
+	if len(v) == 0 {
+		return nil
+	}
+	return unsafe.Slice((*byte)(unsafe.Pointer(&v[0])), len(v)*8)
 }
