@@ -94,8 +94,8 @@ func Defaults() Options {
 
 // DefaultFitMemory and DefaultDBMemory are the memory bounds a user gets
 // without flags: 1 GiB for the fitting pool (20,000 windows of 100 regions
-// take 396 MB, so the bound binds from about 160 regions on: 13,490
-// windows at 200 regions, 3,364 at 400) and 1 GiB for DuckDB, so that a
+// take 396 MB, so the bound binds from about 160 regions on: 13,489
+// windows at 200 regions, 3,363 at 400) and 1 GiB for DuckDB, so that a
 // run's peak stays under 3 GB at 100 to 400 regions (README
 // "Performance").
 const (

@@ -645,6 +645,9 @@ func (w *Work) Merge(ctx context.Context, db *sql.DB, name string, prog Progress
 	}
 	prog.Stage("merging shards", w.Manifest.Shards)
 
+	if err := limitDB(ctx, db, DefaultDBMemory, ""); err != nil {
+		return nil, err
+	}
 	sw, err := schema.Begin(ctx, db, name, "")
 	if err != nil {
 		return nil, err
