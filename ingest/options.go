@@ -86,7 +86,7 @@ func Defaults() Options {
 		Window: 30, Step: 1, Taper: "none", TaperSD: 3,
 		StatesMin: 2, StatesMax: 10, KRule: "chord", GapReferences: 10, GapWindows: 400, Restarts: 5, MaxIter: 150, Seed: 1,
 		Distance: "euclidean", FitMax: 20000, FitMemory: DefaultFitMemory, FitSample: "peaks",
-		DBMemory: DefaultDBMemory,
+		DBMemory:     DefaultDBMemory,
 		Grid:         "-1:1:101",
 		OnBadSubject: "fail", ConstantRegion: "fail",
 	}
