@@ -11,6 +11,7 @@ import (
 	"math/rand/v2"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"slices"
 	"sort"
 	"strings"
@@ -130,6 +131,11 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		if err := st.fit(ctx, sample); err != nil {
 			return nil, err
 		}
+		// The pool (up to --fit-memory) is garbage now: hand it back to
+		// the system before DuckDB's buffers (up to --db-memory) grow in
+		// stage 4, so the two bounds do not add up in the peak.
+		sample = compute.Matrix32{}
+		debug.FreeOSMemory()
 		sum.Elbow = st.elbow
 		lap("fit states")
 	}
