@@ -152,7 +152,8 @@ func run(args []string, stdout, stderr io.Writer) error {
 	scale := fs.Bool("scale", false, "the scale cohort: 1,000 series x 1,000 time points x 200 regions (overrides -subjects, -timepoints, -regions)")
 	sweepSubjects := fs.Int("sweep-subjects", 200, "series per cohort of -sweep (1,000 time points each)")
 	checkWorkers := fs.Bool("check-workers", false, "also ingest with --workers 1 and check that every table is identical")
-	timeQueries := fs.Bool("queries", false, "then time every bundled query (its defaults; groups A and B, covariate score), the report and export of every table on the warehouse")
+	warehouse := fs.String("warehouse", "", "only time the queries, the report and export on this existing warehouse FILE (one -queries run already built it)")
+	timeQs := fs.Bool("queries", false, "then time every bundled query (its defaults; groups A and B, covariate score), the report and export of every table on the warehouse")
 	window := fs.Int("window", 50, "ingest --window")
 	step := fs.Int("step", 1, "ingest --step")
 	workers := fs.Int("workers", 0, "ingest --workers (0: all cores)")
@@ -171,8 +172,8 @@ func run(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	cfg := config{root: root, cache: *cache, states: *states, seed: *seed, tr: *tr, window: *window,
-		step: *step, workers: *workers, keep: *keep || *timeQueries, reference: *reference, python: *python,
-		checkWorkers: *checkWorkers, queries: *timeQueries}
+		step: *step, workers: *workers, keep: *keep || *timeQs, reference: *reference, python: *python,
+		checkWorkers: *checkWorkers, queries: *timeQs}
 	if cfg.cache == "" {
 		cfg.cache = filepath.Join(root, "scripts", "bench-cache")
 	}
@@ -188,6 +189,28 @@ func run(args []string, stdout, stderr io.Writer) error {
 	build.Dir, build.Stdout, build.Stderr = root, stderr, stderr
 	if err := build.Run(); err != nil {
 		return fmt.Errorf("go build: %w", err)
+	}
+	if *warehouse != "" {
+		dir, err := os.MkdirTemp(cfg.cache, "queries-")
+		if err != nil {
+			return err
+		}
+		defer os.RemoveAll(dir)
+		r := result{Date: time.Now().UTC().Format(time.RFC3339), Machine: describeMachine()}
+		if st, err := os.Stat(*warehouse); err == nil {
+			r.DBBytes = st.Size()
+		}
+		q, err := timeQueries(cfg, *warehouse, dir, stderr)
+		r.Queries = q
+		printQueries(stdout, r)
+		if err != nil {
+			return err
+		}
+		if *jsonOut != "" {
+			b, _ := json.MarshalIndent(r, "", "  ")
+			return os.WriteFile(*jsonOut, append(b, '\n'), 0o644)
+		}
+		return nil
 	}
 	timeCmd := findGNUTime(stderr)
 
