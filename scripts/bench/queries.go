@@ -21,6 +21,7 @@ type timed struct {
 	What        string  `json:"what"`
 	Command     string  `json:"command"`
 	Seconds     float64 `json:"seconds"`
+	CPUSeconds  float64 `json:"cpu_seconds"` // user + system of the process: less sensitive to other load than wall time
 	GoalSeconds float64 `json:"goal_seconds"`
 	Load1       float64 `json:"load1_before"`
 	Rows        string  `json:"rows,omitempty"`
@@ -58,6 +59,7 @@ func timeQueries(cfg config, db, runDir string, stderr io.Writer) ([]timed, erro
 			return fmt.Errorf("%s: %v\n%s", t.Command, err, errOut.String())
 		}
 		t.Seconds = time.Since(start).Seconds()
+		t.CPUSeconds = (c.ProcessState.UserTime() + c.ProcessState.SystemTime()).Seconds()
 		out = append(out, t)
 		return nil
 	}
@@ -175,7 +177,7 @@ func printQueries(w io.Writer, r result) {
 	}
 	fmt.Fprintf(w, "\non this warehouse (%.0f MiB), one process each:\n", float64(r.DBBytes)/(1<<20))
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "  command\ts\tgoal\tload\t")
+	fmt.Fprintln(tw, "  command\twall s\tCPU s\tgoal (wall)\tload\t")
 	for _, q := range r.Queries {
 		goal := "-"
 		if q.GoalSeconds > 0 {
@@ -189,7 +191,7 @@ func printQueries(w io.Writer, r result) {
 		if q.Rows != "" {
 			what += " (" + q.Rows + ")"
 		}
-		fmt.Fprintf(tw, "  %s\t%.2f\t%s\t%.1f\t\n", what, q.Seconds, goal, q.Load1)
+		fmt.Fprintf(tw, "  %s\t%.2f\t%.2f\t%s\t%.1f\t\n", what, q.Seconds, q.CPUSeconds, goal, q.Load1)
 	}
 	tw.Flush()
 }
