@@ -94,8 +94,12 @@ func LoadCohort(o Options) (*Cohort, error) {
 	c := &Cohort{Dir: o.Input, Source: src}
 	var problems Problems
 	if o.CacheSeries {
-		if c.TempDir, err = os.MkdirTemp("", "topostate-run-"); err != nil {
+		sweepStaleRunDirs()
+		if c.TempDir, err = os.MkdirTemp("", runDirPrefix); err != nil {
 			c.TempDir = "" // no cache: every stage reads the files again
+		} else if err := os.WriteFile(filepath.Join(c.TempDir, runOwnerFile), []byte(runOwner()), 0o644); err != nil {
+			os.RemoveAll(c.TempDir)
+			c.TempDir = ""
 		}
 	}
 	ok := false
@@ -391,4 +395,42 @@ func float64Bytes(v []float64) []byte {
 		return nil
 	}
 	return unsafe.Slice((*byte)(unsafe.Pointer(&v[0])), len(v)*8)
+}
+
+// A run's temporary folder is $TMPDIR/topostate-run-*, holding a file
+// "owner": host name and process id. A run killed outright (SIGKILL, power
+// loss) cannot remove its folder, and the parsed series can take gigabytes,
+// so each new run removes the folders of runs of this host whose process no
+// longer exists (on Linux, where /proc tells; elsewhere nothing is removed).
+// A folder without an owner file, or of another host (a shared TMPDIR), is
+// left alone.
+const (
+	runDirPrefix = "topostate-run-"
+	runOwnerFile = "owner"
+)
+
+func runOwner() string {
+	host, _ := os.Hostname()
+	return fmt.Sprintf("%s %d", host, os.Getpid())
+}
+
+func sweepStaleRunDirs() {
+	if _, err := os.Stat("/proc/self"); err != nil {
+		return // no /proc: cannot tell a dead run from a live one
+	}
+	host, _ := os.Hostname()
+	dirs, _ := filepath.Glob(filepath.Join(os.TempDir(), runDirPrefix+"*"))
+	for _, d := range dirs {
+		b, err := os.ReadFile(filepath.Join(d, runOwnerFile))
+		if err != nil {
+			continue
+		}
+		h, pid, ok := strings.Cut(strings.TrimSpace(string(b)), " ")
+		if !ok || h != host || pid == "" || strings.ContainsAny(pid, "/.") {
+			continue
+		}
+		if _, err := os.Stat(filepath.Join("/proc", pid)); errors.Is(err, os.ErrNotExist) {
+			os.RemoveAll(d)
+		}
+	}
 }

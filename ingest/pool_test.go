@@ -1,7 +1,10 @@
 package ingest
 
 import (
+	"fmt"
 	"math"
+	"os"
+	"path/filepath"
 	"testing"
 )
 
@@ -90,6 +93,44 @@ func TestParseBytes(t *testing.T) {
 	for _, bad := range []string{"", "GiB", "-1MiB", "1 parsec", "1e30GiB"} {
 		if _, err := ParseBytes(bad); err == nil {
 			t.Errorf("ParseBytes(%q) accepted", bad)
+		}
+	}
+}
+
+// A run folder whose owner process is gone is removed by the next run; one
+// of a live process (this test's), one of another host and one without an
+// owner file are kept.
+func TestSweepStaleRunDirs(t *testing.T) {
+	if _, err := os.Stat("/proc/self"); err != nil {
+		t.Skip("no /proc")
+	}
+	tmp := t.TempDir()
+	t.Setenv("TMPDIR", tmp)
+	host, _ := os.Hostname()
+	mk := func(name, owner string) string {
+		d := filepath.Join(tmp, runDirPrefix+name)
+		if err := os.Mkdir(d, 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if owner != "" {
+			if err := os.WriteFile(filepath.Join(d, runOwnerFile), []byte(owner), 0o644); err != nil {
+				t.Fatal(err)
+			}
+		}
+		return d
+	}
+	// A process id above Linux's largest (pid_max is at most 2^22) never exists.
+	dead := mk("dead", fmt.Sprintf("%s %d", host, 1<<23))
+	live := mk("live", runOwner())
+	other := mk("other", fmt.Sprintf("%s-elsewhere %d", host, 1<<23))
+	none := mk("none", "")
+	sweepStaleRunDirs()
+	if _, err := os.Stat(dead); !os.IsNotExist(err) {
+		t.Errorf("the folder of a dead run is still there (%v)", err)
+	}
+	for _, d := range []string{live, other, none} {
+		if _, err := os.Stat(d); err != nil {
+			t.Errorf("%s was removed: %v", d, err)
 		}
 	}
 }
