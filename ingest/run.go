@@ -203,12 +203,13 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 
 // limitDB bounds DuckDB's memory while an analysis is written (memory
 // bytes; 0 leaves DuckDB's default) and, when tmp is not "", puts its spill
-// folder there (else DuckDB uses <warehouse>.tmp beside the file). DuckDB
-// keeps the rows of an open transaction in its buffer pool and writes
-// them to the spill folder once the pool reaches memory_limit (DuckDB
-// documentation, "Memory Management" and the temp_directory setting), so
-// the one transaction of a cohort-scale ingest no longer grows with the
-// cohort. Both settings belong to the database instance of this process.
+// folder there (else DuckDB uses <warehouse>.tmp beside the file).
+// memory_limit bounds DuckDB's buffer manager (by default 80 % of the
+// machine's memory; DuckDB documentation, "Limits" and "Tuning
+// Workloads": beyond it buffers are evicted or spilled to temp_directory),
+// so the one transaction of a cohort-scale ingest cannot take the
+// machine's memory. Both settings belong to the database instance of this
+// process.
 func limitDB(ctx context.Context, db *sql.DB, memory int64, tmp string) error {
 	if tmp != "" {
 		dir := filepath.Join(tmp, "duckdb")
