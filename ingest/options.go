@@ -53,6 +53,12 @@ type Options struct {
 	FitSample string `json:"fit_sample"`
 
 	Grid string `json:"grid"` // lo:hi:n thresholds of the Betti curves
+	// CoreTimepoints is N, the number of core time points (those whose
+	// every covering window carries the state's label) from which each
+	// subject's core state network is computed for the group test of
+	// topology (docs/methods.md §7); a subject and state with fewer has no
+	// core network. 0 means the window width.
+	CoreTimepoints int `json:"core_timepoints"`
 
 	OnBadSubject   string `json:"on_bad_subject"`  // fail | skip
 	ConstantRegion string `json:"constant_region"` // fail | drop
@@ -209,6 +215,9 @@ func (o Options) Check() error {
 	}
 	if o.Step < 1 {
 		bad("--step %d: must be at least 1 time point", o.Step)
+	}
+	if o.CoreTimepoints < 0 || o.CoreTimepoints == 1 || o.CoreTimepoints == 2 {
+		bad("--core-timepoints %d: must be 0 (the window width) or at least 3 time points", o.CoreTimepoints)
 	}
 	if o.Taper != "none" && o.Taper != "gauss" {
 		bad("--taper %q: want none or gauss", o.Taper)

@@ -249,6 +249,7 @@ type stages struct {
 	win          compute.WindowOptions
 	dist         compute.Distance
 	grid         []float64
+	core         int // N of the core networks (docs/methods.md §7)
 	p            int // regions analysed
 	k            int
 	cent         compute.Matrix32
@@ -277,6 +278,10 @@ func (s *stages) setup() error {
 		return &UsageError{Err: err}
 	}
 	s.grid = compute.Grid(lo, hi, n)
+	s.core = s.o.CoreTimepoints
+	if s.core == 0 {
+		s.core = s.o.Window
+	}
 	s.p = len(s.c.Keep)
 	if c := s.o.FitCap(s.p); s.o.StatesFrom == nil && c < 10 {
 		return &UsageError{Err: fmt.Errorf("--fit-memory %d bytes holds only %d windows of %d regions (%d values of 4 bytes each); raise it (at least %d bytes) or leave it at its default",
@@ -292,20 +297,26 @@ func (s *stages) setup() error {
 // cohort has one) and returns its window correlations.
 // stage names the stage in the worker times.
 func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error) {
+	m, _, err := s.windowsAndSeries(stage, in)
+	return m, err
+}
+
+// windowsAndSeries is windows that also returns the preprocessed series.
+func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix32, compute.Series, error) {
 	t := time.Now()
 	var y compute.Series
 	var err error
 	if in.cache != "" {
 		if y, err = readSeriesCache(in.cache, in.Timepoints, len(s.c.Regions)); err != nil {
-			return compute.Matrix32{}, err
+			return compute.Matrix32{}, compute.Series{}, err
 		}
 	} else {
 		sf, err := s.c.Source.Read(in.Input)
 		if err != nil {
-			return compute.Matrix32{}, err
+			return compute.Matrix32{}, compute.Series{}, err
 		}
 		if sf.SHA256 != in.SHA256 {
-			return compute.Matrix32{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
+			return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
 		}
 		y = sf.Series
 	}
@@ -315,7 +326,7 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	}
 	y, err = compute.Preprocess(y, s.pre)
 	if err != nil {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
 	var buf []float32
 	if b, ok := s.bufs.Get().(*[]float32); ok {
@@ -323,10 +334,10 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	}
 	m, err := compute.SlidingCorrelationsInto(buf, y, s.win)
 	if err != nil {
-		return compute.Matrix32{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
 	s.work.since(stage+": windows", t)
-	return m, nil
+	return m, y, nil
 }
 
 // release hands a window matrix's storage back for the next series; m must
@@ -807,10 +818,15 @@ type stateNet struct {
 	meanWeight float64
 	filt       compute.Filtration
 	b0, b1     []int
+	// core is the number of core time points of the state;
+	// coreB0, coreB1 the Betti curves of the network of the first
+	// stages.core of them, nil when there are fewer (docs/methods.md §7).
+	core           int
+	coreB0, coreB1 []int
 }
 
 func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
-	m, err := s.windows("subjects", in)
+	m, y, err := s.windowsAndSeries("subjects", in)
 	if err != nil {
 		return nil, err
 	}
@@ -824,6 +840,10 @@ func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
 	}
 	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
 	sums, counts := compute.SumRowsByLabel(m, labels, s.k)
+	core, err := compute.CoreTimepoints(labels, s.k, y.T, s.o.Window, s.o.Step)
+	if err != nil {
+		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
+	}
 	t = s.work.since("subjects: dynamics and networks", t)
 	defer s.work.since("subjects: filtrations and Betti curves", t)
 	for st := range s.k {
@@ -844,14 +864,26 @@ func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
 			return nil, fmt.Errorf("ingest: %s state %d: %w", in.Path, st+1, err)
 		}
 		b0, b1 := f.Curves(s.grid)
-		r.nets[st] = &stateNet{windows: counts[st], meanWeight: mean / float64(len(net)), filt: f, b0: b0, b1: b1}
+		sn := &stateNet{windows: counts[st], meanWeight: mean / float64(len(net)), filt: f, b0: b0, b1: b1, core: len(core[st])}
+		if len(core[st]) >= s.core {
+			cn, err := compute.CorrelationOfRows(y, core[st][:s.core])
+			if err != nil {
+				return nil, fmt.Errorf("ingest: %s state %d core network: %w", in.Path, st+1, err)
+			}
+			cf, err := compute.GraphFiltration(s.p, cn)
+			if err != nil {
+				return nil, fmt.Errorf("ingest: %s state %d core network: %w", in.Path, st+1, err)
+			}
+			sn.coreB0, sn.coreB1 = cf.Curves(s.grid)
+		}
+		r.nets[st] = sn
 	}
 	return r, nil
 }
 
 // outBatches accumulates per-subject rows between flushes.
 type outBatches struct {
-	inputs, seq, metrics, dyn, trans, curves, events, nets *schema.Batch
+	inputs, seq, metrics, dyn, trans, curves, events, nets, core *schema.Batch
 }
 
 func newOutBatches() *outBatches {
@@ -860,11 +892,12 @@ func newOutBatches() *outBatches {
 		metrics: schema.NewBatch(schema.StateMetrics), dyn: schema.NewBatch(schema.SubjectDynamics),
 		trans: schema.NewBatch(schema.Transitions), curves: schema.NewBatch(schema.BettiCurves),
 		events: schema.NewBatch(schema.FiltrationEvts), nets: schema.NewBatch(schema.StateNetworks),
+		core: schema.NewBatch(schema.CoreBettiCurves),
 	}
 }
 
 func (b *outBatches) all() []*schema.Batch {
-	return []*schema.Batch{b.inputs, b.seq, b.metrics, b.dyn, b.trans, b.curves, b.events, b.nets}
+	return []*schema.Batch{b.inputs, b.seq, b.metrics, b.dyn, b.trans, b.curves, b.events, b.nets, b.core}
 }
 
 func (b *outBatches) rows() int {
@@ -942,7 +975,15 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 		for _, v := range net.filt.Beta0Events {
 			tree += v
 		}
-		b.nets.Row(id, sub, ses, st+1, net.windows, net.meanWeight, tree)
+		b.nets.Row(id, sub, ses, st+1, net.windows, net.meanWeight, tree, net.core)
+		if net.coreB0 != nil {
+			for g, e := range s.grid {
+				b.core.Row(id, sub, ses, st+1, 0, e, net.coreB0[g])
+			}
+			for g, e := range s.grid {
+				b.core.Row(id, sub, ses, st+1, 1, e, net.coreB1[g])
+			}
+		}
 	}
 }
 

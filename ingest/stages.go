@@ -163,7 +163,7 @@ const (
 
 // Tables written per series by stage 3, in the order merge appends them.
 var seriesTables = []string{schema.Inputs, schema.StateSequence, schema.StateMetrics, schema.SubjectDynamics,
-	schema.Transitions, schema.BettiCurves, schema.FiltrationEvts, schema.StateNetworks}
+	schema.Transitions, schema.BettiCurves, schema.FiltrationEvts, schema.StateNetworks, schema.CoreBettiCurves}
 
 // tablePath is the Parquet file of table in partition shard.
 func (w *Work) tablePath(shard int) func(string) string {

@@ -53,7 +53,9 @@ var units = map[string]string{
 	"dimension": "0 or 1 (Betti dimension)", "betti_curves.threshold": "correlation r",
 	"betti_curves.betti": "count (components or cycles)", "filtration_events.value": "correlation r",
 	"state_networks.n_windows": "count (windows)", "state_networks.mean_weight": "correlation r",
-	"state_networks.tree_weight": "sum of correlations r",
+	"state_networks.tree_weight":     "sum of correlations r",
+	"state_networks.core_timepoints": "count (time points)",
+	"core_betti_curves.threshold":    "correlation r", "core_betti_curves.betti": "count (components or cycles)",
 }
 
 // Unit returns the unit of a warehouse column ("" when unknown).

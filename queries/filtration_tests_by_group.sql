@@ -1,20 +1,26 @@
 -- name: filtration_tests_by_group
--- description: Per state and dimension, exact KS test between the two groups' pooled filtration events and a permutation test between their Betti curves.
+-- description: Per state and dimension, a permutation test between the two groups' core Betti curves (the group test of topology, not confounded by dwell time) and, as a description only, the KS distance between the groups' pooled filtration events.
 -- param: analysis analysis = latest -- analysis id or name; latest is the newest
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group
 -- param: n_perm integer = 9999 -- relabellings per curve permutation test
 -- param: seed integer = 1 -- permutation seed; state s, dimension d use seed + 2s + d
--- One row per state and dimension (0: spanning-tree events, beta0; 1: other
--- edges, beta1). ks_*: the events of all subjects of a group pooled into
--- one sample (exact p when affordable, see ks_method). Events of one
--- subject are not independent of each other, so read the KS p-value as a
--- description of the pooled distributions; the curve permutation test,
--- which relabels whole subjects, is the group test. curve_distance is the
--- largest gap between the two group mean Betti curves (the permutation
--- statistic). A subject's sessions are averaged (curves) or pooled
--- (events). BH adjustment is across all rows, separately per test.
+-- One row per state and dimension (0: components, beta0; 1: cycles, beta1).
+-- The test: curve_perm_p relabels whole subjects and compares the groups'
+-- core Betti curves (core_betti_curves): each subject's state network is
+-- the correlation over the same number N of core time points, those covered
+-- only by windows of the state, so windows straddling a switch do not blur
+-- it and subjects who switch more often do not get different networks for
+-- that reason alone (docs/methods.md §7). Subjects with fewer than N core
+-- time points in a state are left out of that state's test:
+-- n_subjects_a and n_subjects_b count those tested. curve_distance is the
+-- largest gap between the two group mean core curves (the permutation
+-- statistic); curve_perm_p_bh is BH-adjusted across all rows. A subject's
+-- sessions are averaged. Descriptive only: pooled_events_ks_distance is the
+-- two-sample KS distance between the filtration events (of the state
+-- networks averaged over all windows) of all subjects of a group pooled;
+-- the events of one subject are not independent, so no p-value is given.
 WITH grp AS (
     SELECT subject_id, side
     FROM subject_groups(getvariable('analysis'), getvariable('group_column'),
@@ -30,7 +36,7 @@ events AS (
 ),
 per_threshold AS (
     SELECT c.subject_id, g.side, c.state, c.dimension, c.threshold, avg(c.betti) AS betti
-    FROM betti_curves c JOIN grp g USING (subject_id)
+    FROM core_betti_curves c JOIN grp g USING (subject_id)
     WHERE c.analysis_id = getvariable('analysis')
     GROUP BY ALL
 ),
@@ -58,20 +64,19 @@ mean_curves AS (
 ),
 tests AS (
     SELECT e.state, e.dimension,
-           len(c.a) AS n_subjects_a, len(c.b) AS n_subjects_b,
+           coalesce(len(c.a), 0) AS n_subjects_a, coalesce(len(c.b), 0) AS n_subjects_b,
            len(e.a) AS n_events_a, len(e.b) AS n_events_b,
-           ks_test(e.a, e.b) AS ks,
+           ks_test(e.a, e.b).statistic AS pooled_events_ks_distance,
            curve_distance(mc.a, mc.b) AS curve_distance,
            curve_perm_test(c.a, c.b, getvariable('n_perm')::INTEGER,
                            getvariable('seed') + 2 * e.state + e.dimension) AS cp
     FROM events e
-    JOIN curves c USING (state, dimension)
-    JOIN mean_curves mc USING (state, dimension)
+    LEFT JOIN curves c USING (state, dimension)
+    LEFT JOIN mean_curves mc USING (state, dimension)
 )
-SELECT state, dimension, n_subjects_a, n_subjects_b, n_events_a, n_events_b,
-       ks.statistic AS ks_statistic, ks.pvalue AS ks_p, ks.method AS ks_method,
-       bh_adjust(ks.pvalue, list(ks.pvalue) OVER ()) AS ks_p_bh,
+SELECT state, dimension, n_subjects_a, n_subjects_b,
        curve_distance, cp.pvalue AS curve_perm_p,
-       bh_adjust(cp.pvalue, list(cp.pvalue) OVER ()) AS curve_perm_p_bh
+       bh_adjust(cp.pvalue, list(cp.pvalue) OVER ()) AS curve_perm_p_bh,
+       n_events_a, n_events_b, pooled_events_ks_distance
 FROM tests
 ORDER BY state, dimension;

@@ -8,6 +8,7 @@ import (
 	"io/fs"
 	"math"
 	"math/rand/v2"
+	"strings"
 
 	"github.com/marcboeker/go-duckdb"
 
@@ -96,6 +97,8 @@ var (
 	tVarchar  = must(duckdb.NewTypeInfo(duckdb.TYPE_VARCHAR))
 	tList     = must(duckdb.NewListInfo(tDouble))
 	tListList = must(duckdb.NewListInfo(tList))
+	tTextList = must(duckdb.NewListInfo(tVarchar))
+	tTextLL   = must(duckdb.NewListInfo(tTextList))
 )
 
 // Functions returns the SQL functions, freshly built (RegisterScalarUDF
@@ -255,6 +258,38 @@ func Functions() []*Function {
 			},
 		},
 		{
+			Name: "lm_test",
+			Signature: "lm_test(y DOUBLE[], x DOUBLE[], covariates DOUBLE[][], factors VARCHAR[][], names VARCHAR[], ids VARCHAR[], n_perm INTEGER, seed BIGINT) " +
+				"-> STRUCT(estimate DOUBLE, se DOUBLE, t DOUBLE, df DOUBLE, p DOUBLE, perm_p DOUBLE)",
+			Doc: "Least-squares test of the term x in y = b0 + b1 x + covariates + factors + e, one list element per row " +
+				"(subject): covariates[i] holds row i's numeric covariates and factors[i] its categorical ones (as text; " +
+				"each coded as indicator columns, the first level in sorted order the reference; [] for none), names the " +
+				"names of the covariates then of the factors, for messages ([] numbers them), ids[i] row i's subject. estimate is b1 (with x a 0/1 group indicator: the adjusted difference of group 1 minus group 0), " +
+				"se its standard error, t = estimate/se on df = n - columns degrees of freedom, p the two-sided Student t " +
+				"p-value, perm_p the Freedman-Lane (1983) permutation p-value (Winkler et al. 2014): the residuals of the " +
+				"model without x are permuted n_perm times, added back to its fitted values and t recomputed; " +
+				"perm_p = (1 + #{|t*| >= |t|}) / (1 + n_perm). Rows are sorted by id first and the permutations drawn " +
+				"from PCG seeded with (seed, 0), so the result does not depend on the order of the subjects. Rows that " +
+				"share an id (sessions of one subject) are permuted as whole blocks (whole-block exchangeability, blocks " +
+				"of equal size), and p is then NULL: the t distribution assumes independent rows. An error for a " +
+				"rank-deficient design (the message names the column), fewer than columns + 2 rows, lists of unequal " +
+				"length or a NULL element.",
+			in:  []duckdb.TypeInfo{tList, tList, tListList, tTextLL, tTextList, tTextList, tInteger, tBigint},
+			out: structOf("estimate", "DOUBLE", "se", "DOUBLE", "t", "DOUBLE", "df", "DOUBLE", "p", "DOUBLE", "perm_p", "DOUBLE"),
+			fn:  lmTest,
+		},
+		{
+			Name:      "lm_design_problem",
+			Signature: "lm_design_problem(x DOUBLE[], covariates DOUBLE[][], factors VARCHAR[][], names VARCHAR[]) -> VARCHAR",
+			Doc: "Why lm_test would refuse this design, or NULL when it can be fitted: fewer rows than model columns + 2, " +
+				"or a rank-deficient design (the message names the first dependent column). Arguments as in lm_test. " +
+				"Lets a query leave out one test whose subjects cannot support the model (e.g. a level of a site " +
+				"that only one group's visitors of a state have) instead of stopping.",
+			in:  []duckdb.TypeInfo{tList, tListList, tTextLL, tTextList},
+			out: tVarchar,
+			fn:  lmDesignProblem,
+		},
+		{
 			Name:      "graph_filtration_events",
 			Signature: "graph_filtration_events(weights DOUBLE[], dimension BIGINT) -> DOUBLE[]",
 			Doc: "The filtration events of a network given as its upper triangle (pairs i < j in row-major order, " +
@@ -290,6 +325,143 @@ func Functions() []*Function {
 			},
 		},
 	}
+}
+
+// lmTest is the adapter of lm_test.
+func lmTest(a []driver.Value) (any, error) {
+	y, err := doubles("y", a[0])
+	if err != nil {
+		return nil, err
+	}
+	x, covs, facs, err := lmDesign(a[1], a[2], a[3], a[4])
+	if err != nil {
+		return nil, err
+	}
+	ids, err := texts("ids", a[5])
+	if err != nil {
+		return nil, err
+	}
+	if n := len(x); len(y) != n || len(ids) != n {
+		return nil, fmt.Errorf("y has %d values, x %d and ids %d: give one element per subject in each", len(y), n, len(ids))
+	}
+	r, err := compute.FreedmanLaneTest(y, x, covs, facs, ids, int(a[6].(int32)), seeded(a[7].(int64)))
+	if err != nil {
+		return nil, err
+	}
+	var p any = r.P
+	if r.Blocked {
+		p = nil
+	}
+	return map[string]any{"estimate": r.Estimate, "se": r.SE, "t": r.T, "df": float64(r.DF), "p": p, "perm_p": r.PermP}, nil
+}
+
+// lmDesignProblem is the adapter of lm_design_problem.
+func lmDesignProblem(a []driver.Value) (any, error) {
+	x, covs, facs, err := lmDesign(a[0], a[1], a[2], a[3])
+	if err != nil {
+		return nil, err
+	}
+	if err := compute.CheckTestDesign(x, covs, facs); err != nil {
+		return strings.TrimPrefix(err.Error(), "compute: "), nil
+	}
+	return nil, nil
+}
+
+// lmDesign decodes the x, covariates, factors and names arguments of
+// lm_test and lm_design_problem.
+func lmDesign(xv, covv, facv, namesv driver.Value) (x []float64, covs []compute.Covariate, facs []compute.Factor, err error) {
+	if x, err = doubles("x", xv); err != nil {
+		return nil, nil, nil, err
+	}
+	n := len(x)
+	covRows, err := curves("covariates", covv)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	facRows, err := textRows("factors", facv)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	names, err := texts("names", namesv)
+	if err != nil {
+		return nil, nil, nil, err
+	}
+	if len(covRows) != n || len(facRows) != n {
+		return nil, nil, nil, fmt.Errorf("x has %d values, covariates %d rows and factors %d rows: give one element per subject in each",
+			n, len(covRows), len(facRows))
+	}
+	if n > 0 {
+		for j := range covRows[0] {
+			covs = append(covs, compute.Covariate{Name: fmt.Sprintf("covariate %d", j+1), Values: make([]float64, n)})
+		}
+		for j := range facRows[0] {
+			facs = append(facs, compute.Factor{Name: fmt.Sprintf("factor %d", j+1), Values: make([]string, n)})
+		}
+	}
+	if len(names) > 0 {
+		if len(names) != len(covs)+len(facs) {
+			return nil, nil, nil, fmt.Errorf("names has %d elements for %d covariates and %d factors: give one name each, or []", len(names), len(covs), len(facs))
+		}
+		for j := range covs {
+			covs[j].Name = names[j]
+		}
+		for j := range facs {
+			facs[j].Name = names[len(covs)+j]
+		}
+	}
+	for i := range n {
+		if len(covRows[i]) != len(covs) || len(facRows[i]) != len(facs) {
+			return nil, nil, nil, fmt.Errorf("row %d has %d covariates and %d factors, row 1 has %d and %d: every row needs the same", i+1,
+				len(covRows[i]), len(facRows[i]), len(covs), len(facs))
+		}
+		for j, v := range covRows[i] {
+			covs[j].Values[i] = v
+		}
+		for j, v := range facRows[i] {
+			facs[j].Values[i] = v
+		}
+	}
+	return x, covs, facs, nil
+}
+
+// texts converts a VARCHAR[] argument; a NULL element is an error.
+func texts(arg string, v driver.Value) ([]string, error) {
+	l, ok := v.([]any)
+	if !ok {
+		return nil, fmt.Errorf("argument %s: want VARCHAR[], got %T", arg, v)
+	}
+	out := make([]string, len(l))
+	for i, x := range l {
+		s, ok := x.(string)
+		if !ok {
+			if x == nil {
+				return nil, fmt.Errorf("argument %s: element %d is NULL; leave out subjects with a missing value", arg, i+1)
+			}
+			return nil, fmt.Errorf("argument %s: element %d is %T, want VARCHAR", arg, i+1, x)
+		}
+		out[i] = s
+	}
+	return out, nil
+}
+
+// textRows converts a VARCHAR[][] argument.
+func textRows(arg string, v driver.Value) ([][]string, error) {
+	l, ok := v.([]any)
+	if !ok {
+		return nil, fmt.Errorf("argument %s: want VARCHAR[][], got %T", arg, v)
+	}
+	out := make([][]string, len(l))
+	for i, x := range l {
+		if x == nil {
+			return nil, fmt.Errorf("argument %s: row %d is NULL", arg, i+1)
+		}
+		r, err := texts(fmt.Sprintf("%s[%d]", arg, i+1), x)
+		if err != nil {
+			return nil, err
+		}
+		out[i] = r
+	}
+	return out, nil
 }
 
 // seeded returns the generator the permutation functions document: PCG

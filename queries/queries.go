@@ -49,9 +49,14 @@ const (
 	TypeColumn ParamType = "column"
 	// TypeNumericColumn is a TypeColumn whose type must be numeric.
 	TypeNumericColumn ParamType = "numeric_column"
+	// TypeColumns is a comma-separated list of covariate columns of the
+	// subjects table (possibly empty), each checked as a TypeColumn; bound
+	// as VARCHAR, the stored spellings joined by commas (queries split it
+	// with string_split). A name may appear once.
+	TypeColumns ParamType = "columns"
 )
 
-var paramTypes = []ParamType{TypeText, TypeInteger, TypeNumber, TypeAnalysis, TypeColumn, TypeNumericColumn}
+var paramTypes = []ParamType{TypeText, TypeInteger, TypeNumber, TypeAnalysis, TypeColumn, TypeNumericColumn, TypeColumns}
 
 // Query is one bundled (or user) query file.
 type Query struct {
@@ -99,7 +104,7 @@ var (
 //	-- any other comment line is a note
 //
 // NAME is lower case letters, digits and underscores. TYPE is one of text,
-// integer, number, analysis, column, numeric_column. DEFAULT is a bare word
+// integer, number, analysis, column, numeric_column, columns. DEFAULT is a bare word
 // or a single-quoted string (” for an empty one, doubled quotes inside); a
 // parameter without a default is required. The header ends at the first
 // line that is neither empty nor a comment. A file without a name line is

@@ -159,6 +159,23 @@ func convert(ctx context.Context, conn *sql.Conn, p Param, text string) (any, er
 			return nil, &ParamError{Param: p.Name, Err: err}
 		}
 		return name, nil
+	case TypeColumns:
+		var names []string
+		for _, part := range strings.Split(text, ",") {
+			part = strings.TrimSpace(part)
+			if part == "" {
+				continue
+			}
+			name, err := subjectColumn(ctx, conn, part, false)
+			if err != nil {
+				return nil, &ParamError{Param: p.Name, Err: err}
+			}
+			if slices.Contains(names, name) {
+				return nil, perr("column %q is listed twice", name)
+			}
+			names = append(names, name)
+		}
+		return strings.Join(names, ","), nil
 	}
 	return nil, perr("unknown type %q", p.Type)
 }

@@ -15,8 +15,10 @@ import (
 
 // Version is the warehouse layout this build writes and reads. Layout 2
 // is layout 1 with the tables and nullable columns added since (all in
-// v1.sql); Upgrade brings a layout-1 file to it in place.
-const Version = 2
+// v1.sql); Upgrade brings a layout-1 file to it in place. Layout 3 adds
+// core_betti_curves and state_networks.core_timepoints (docs/methods.md §7);
+// Upgrade brings a layout-1 or -2 file to it the same way.
+const Version = 3
 
 //go:embed v1.sql
 var ddlV1 string

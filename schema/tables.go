@@ -44,6 +44,7 @@ const (
 	BettiCurves     = "betti_curves"
 	FiltrationEvts  = "filtration_events"
 	StateNetworks   = "state_networks"
+	CoreBettiCurves = "core_betti_curves"
 	Subjects        = "subjects"
 	Analyses        = "analyses"
 )
@@ -70,7 +71,9 @@ func init() {
 		f("betti", i32))...)
 	def(FiltrationEvts, append(id[:3:3], f("state", i16), f("dimension", i8), f("value", f64))...)
 	def(StateNetworks, append(id[:3:3], f("state", i16), f("n_windows", i32), f("mean_weight", f64),
-		f("tree_weight", f64))...)
+		f("tree_weight", f64), nullable("core_timepoints", i32))...)
+	def(CoreBettiCurves, append(id[:3:3], f("state", i16), f("dimension", i8), f("threshold", f64),
+		f("betti", i32))...)
 }
 
 // ArrowSchema returns the Arrow schema of a result table.

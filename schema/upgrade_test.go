@@ -141,3 +141,56 @@ func TestOpenRefusesOptionPaths(t *testing.T) {
 		t.Errorf("a refused open created %d files", len(ents))
 	}
 }
+
+// TestUpgradeLayout2 upgrades a layout-2 file (the current DDL without the
+// core networks of layout 3) in place: core_betti_curves appears,
+// state_networks gains core_timepoints, NULL for the old rows, and the old
+// rows are kept. DuckDB's information_schema is the referee.
+func TestUpgradeLayout2(t *testing.T) {
+	ctx := context.Background()
+	ddl := DDL()
+	i := strings.Index(ddl, "CREATE TABLE IF NOT EXISTS core_betti_curves (")
+	j := i + strings.Index(ddl[i:], "\n);") + 3
+	ddl = ddl[:i] + ddl[j:]
+	col := "    tree_weight DOUBLE NOT NULL,   -- total weight of the maximum spanning tree\n"
+	k := strings.Index(ddl, col)
+	end := k + len(col) + strings.Index(ddl[k+len(col):], "\n") + 1
+	if i < 0 || k < 0 {
+		t.Fatal("the DDL no longer has the layout-3 additions this test removes")
+	}
+	ddl = ddl[:k] + "    tree_weight DOUBLE NOT NULL\n" + ddl[end:]
+	path := tempPath(t)
+	c, err := duckdb.NewConnector(path, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	raw := sql.OpenDB(c)
+	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (2, now())`,
+		`INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5)`} {
+		if _, err := raw.Exec(q); err != nil {
+			raw.Close()
+			t.Fatalf("%v\n%s", err, q)
+		}
+	}
+	raw.Close()
+	db, err := Open(path, false, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if from, err := Upgrade(ctx, db); err != nil || from != 2 {
+		t.Fatalf("Upgrade: from %d, %v", from, err)
+	}
+	for _, tc := range []struct{ table, column string }{{"core_betti_curves", "betti"}, {"state_networks", "core_timepoints"}} {
+		var n int
+		db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = ? AND column_name = ?`, tc.table, tc.column).Scan(&n)
+		if n != 1 {
+			t.Errorf("%s.%s missing after the upgrade", tc.table, tc.column)
+		}
+	}
+	var core sql.NullInt64
+	var windows int
+	if err := db.QueryRow(`SELECT n_windows, core_timepoints FROM state_networks`).Scan(&windows, &core); err != nil || windows != 10 || core.Valid {
+		t.Errorf("the old state_networks row after the upgrade: %d windows, core %v, %v", windows, core, err)
+	}
+}

@@ -153,5 +153,22 @@ CREATE TABLE IF NOT EXISTS state_networks (
     state       SMALLINT NOT NULL, -- state, from 1
     n_windows   INTEGER NOT NULL,  -- windows averaged into this network
     mean_weight DOUBLE NOT NULL,   -- mean edge weight (correlation scale)
-    tree_weight DOUBLE NOT NULL    -- total weight of the maximum spanning tree
+    tree_weight DOUBLE NOT NULL,   -- total weight of the maximum spanning tree
+    core_timepoints INTEGER        -- core time points of the state: covered only by windows of this state (docs/methods.md §7); NULL for analyses written before it existed
+);
+
+-- Betti curves of the core state networks (docs/methods.md §7): each is the
+-- correlation over the first N core time points of a subject and state
+-- (N in the analysis parameters, core_timepoints), free of windows that
+-- straddle a switch and of equal size for every subject; a subject and
+-- state with fewer than N core time points has no rows. The group test of
+-- topology (filtration_tests_by_group) uses these.
+CREATE TABLE IF NOT EXISTS core_betti_curves (
+    analysis_id INTEGER NOT NULL,  -- analysis
+    subject_id  VARCHAR NOT NULL,  -- participant label
+    session_id  VARCHAR NOT NULL,  -- session label or ''
+    state       SMALLINT NOT NULL, -- state, from 1
+    dimension   TINYINT NOT NULL,  -- 0: connected components (beta0); 1: independent cycles (beta1)
+    threshold   DOUBLE NOT NULL,   -- filtration value e (correlation scale); edges with weight > e kept
+    betti       INTEGER NOT NULL   -- Betti number of the thresholded core network
 );

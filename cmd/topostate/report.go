@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"strings"
 
 	"github.com/urfave/cli/v2"
 
@@ -22,7 +23,8 @@ func reportCommand() *cli.Command {
 		Description: "Writes one HTML file that needs nothing else (figures inlined as SVG, no scripts, fonts or\n" +
 			"links to fetch): the analysis settings, a cohort summary, the choice of k, the figures of\n" +
 			"'topostate plot', and for every pair of groups the bundled queries state_dwell_by_group,\n" +
-			"filtration_tests_by_group and transitions_by_group, with Benjamini-Hochberg adjusted p-values.",
+			"filtration_tests_by_group and transitions_by_group, with Benjamini-Hochberg adjusted p-values.\n" +
+			"With --adjust COLUMNS, also adjusted_group_contrast: the group contrasts adjusted for those covariates.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE` (opened read-only)"},
 			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis (default: the only one in the file)"},
@@ -30,6 +32,7 @@ func reportCommand() *cli.Command {
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
 			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "relabellings of every permutation test"},
 			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation seed"},
+			&cli.StringFlag{Name: "adjust", Usage: "comma-separated subjects `COLUMNS` (e.g. age,sex,site): add group contrasts adjusted for them (bundled query adjusted_group_contrast)"},
 		},
 		Action: func(c *cli.Context) error {
 			if c.NArg() > 0 {
@@ -60,10 +63,11 @@ func reportCommand() *cli.Command {
 			}
 			r, err := report.Build(c.Context, db, conn, report.Options{
 				Analysis: c.String("analysis"), Group: c.String("group"), DefaultGroup: !c.IsSet("group"),
-				NPerm: c.Int("n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"),
+				NPerm: c.Int("n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"), Adjust: adjustList(c.String("adjust")),
 				Caution: caution, Generator: "topostate " + ingest.Version,
 			})
-			if errors.Is(err, figures.ErrUsage) {
+			var perr *queries.ParamError
+			if errors.Is(err, figures.ErrUsage) || errors.As(err, &perr) {
 				return usageError{err}
 			}
 			if err != nil {
@@ -79,6 +83,17 @@ func reportCommand() *cli.Command {
 			return nil
 		},
 	}
+}
+
+// adjustList splits --adjust at commas; "" gives nil (no adjusted table).
+func adjustList(s string) []string {
+	var out []string
+	for _, p := range strings.Split(s, ",") {
+		if p = strings.TrimSpace(p); p != "" {
+			out = append(out, p)
+		}
+	}
+	return out
 }
 
 // writeFileAtomic renders r into a temporary file beside path and renames

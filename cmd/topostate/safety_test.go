@@ -5,9 +5,11 @@ package main
 import (
 	"crypto/sha256"
 	"encoding/hex"
+	"fmt"
 	"io/fs"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"sync"
 	"testing"
@@ -341,18 +343,18 @@ func TestLayout1(t *testing.T) {
 	if r.code != 0 {
 		t.Fatalf("ingest into a layout-1 file: exit %d: %s", r.code, r.stderr)
 	}
-	if got := querySQL(t, db, `SELECT max(version) FROM schema_version`); got != "2" {
-		t.Errorf("layout %s after an ingest, want 2", got)
+	if got := querySQL(t, db, `SELECT max(version) FROM schema_version`); got != strconv.Itoa(schema.Version) {
+		t.Errorf("layout %s after an ingest, want %d", got, schema.Version)
 	}
 	r = runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db}})
 	if r.code != 0 || !strings.Contains(r.stdout, "nothing to do") {
-		t.Errorf("upgrade of a layout-2 file: exit %d: %s%s", r.code, r.stdout, r.stderr)
+		t.Errorf("upgrade of a file of the current layout: exit %d: %s%s", r.code, r.stdout, r.stderr)
 	}
 	db2 := filepath.Join(tmp, "second.duckdb")
 	copyFile(t, baselineDB, db2)
 	execSQL(t, db2, `UPDATE schema_version SET version = 1`, `CHECKPOINT`)
 	r = runCmd(t, cmdOpts{args: []string{"upgrade", "--db", db2}})
-	if r.code != 0 || !strings.Contains(r.stdout, "from layout version 1 to 2") {
+	if r.code != 0 || !strings.Contains(r.stdout, fmt.Sprintf("from layout version 1 to %d", schema.Version)) {
 		t.Errorf("upgrade: exit %d: %s%s", r.code, r.stdout, r.stderr)
 	}
 	if r := runCmd(t, cmdOpts{args: []string{"info", "--db", db2}}); r.code != 0 {

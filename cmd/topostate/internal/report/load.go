@@ -40,6 +40,9 @@ type Options struct {
 	// MaxCovariates bounds the numeric covariates whose associations are
 	// tested; 0 means 12.
 	MaxCovariates int
+	// Adjust lists subjects columns to adjust the group contrasts for
+	// (adjusted_group_contrast); nil: no adjusted table.
+	Adjust []string
 }
 
 // Report is everything the page shows; Build fills it, Render writes it.
@@ -62,6 +65,10 @@ type Report struct {
 	Seed          int64
 	Commands      []Command
 	Notes         []string // what was left out, for the command to print
+	// Adjust and Adjusted: the covariates of the adjusted group contrasts
+	// and their tables (adjusted.go).
+	Adjust   []string
+	Adjusted []AdjustedContrast
 }
 
 // Analysis is the analyses row.
@@ -176,6 +183,7 @@ func Build(ctx context.Context, db *sql.DB, conn *sql.Conn, o Options) (*Report,
 		func() error { return r.loadFigures(d) },
 		func() error { r.loadElbow(d); return nil },
 		func() error { return r.loadContrasts(ctx, conn, d, o) },
+		func() error { return r.loadAdjusted(ctx, conn, d, o) },
 		func() error { return r.loadStatePairs(ctx, conn, o) },
 		func() error { return r.loadCovariates(ctx, conn, d, o) },
 	} {
@@ -591,7 +599,7 @@ func (r *Report) command(o Options, what, query string, params map[string]string
 	for k := range params {
 		keys = append(keys, k)
 	}
-	order := []string{"analysis", "group_column", "group_a", "group_b", "covariate", "n_perm", "seed"}
+	order := []string{"analysis", "group_column", "group_a", "group_b", "covariate", "adjust", "n_perm", "seed"}
 	slices.SortFunc(keys, func(x, y string) int { return slices.Index(order, x) - slices.Index(order, y) })
 	for _, k := range keys {
 		args = append(args, "--param "+shellQuote(k+"="+params[k]))

@@ -239,16 +239,16 @@ func dwellTable(id, a, b string, res *result) *Table {
 	return t
 }
 
-// filtrationTable shows filtration_tests_by_group.
+// filtrationTable shows the group test of filtration_tests_by_group: the
+// permutation test of the core Betti curves (docs/methods.md §7). The
+// query's pooled-event KS distance is descriptive and is left out here, so
+// it is never read beside the test.
 func filtrationTable(id string, res *result) *Table {
 	t := &Table{ID: "t-filtration-" + id, Left: 2, Head: []Head{
 		{"state", ""},
 		{"Betti curve", "β0: spanning-tree edges, where components merge; β1: the other edges, where cycles close"},
-		{"subjects", "subjects of each group with a network in this state"},
-		{"KS D", "largest gap between the two groups' pooled event distributions"},
-		{"KS p", "Kolmogorov-Smirnov test on the pooled events (a description: events of one subject are not independent)"},
-		{"KS p, BH", "Benjamini-Hochberg adjusted across all rows"},
-		{"curve gap", "largest distance between the two group-mean Betti curves"},
+		{"subjects", "subjects of each group with a core network in this state (enough time points covered only by windows of the state)"},
+		{"curve gap", "largest distance between the two group-mean core Betti curves"},
 		{"p perm.", "group labels of whole subjects relabelled: the group test"},
 		{"p perm., BH", "Benjamini-Hochberg adjusted across all rows"},
 	}}
@@ -258,8 +258,6 @@ func filtrationTable(id string, res *result) *Table {
 			valCell("state", row["state"], integer),
 			cell(Part{Col: "dimension", V: dim, Text: dimensionText[dim]}),
 			cell(value("n_subjects_a", row["n_subjects_a"], integer), text(" / "), value("n_subjects_b", row["n_subjects_b"], integer)),
-			cell(value("ks_statistic", row["ks_statistic"], fixed(3)), Part{Text: " " + abbrevMethod(full(row["ks_method"])), Class: "n"}),
-			pCell("ks_p", row["ks_p"], false), pCell("ks_p_bh", row["ks_p_bh"], true),
 			valCell("curve_distance", row["curve_distance"], sig),
 			pCell("curve_perm_p", row["curve_perm_p"], false), pCell("curve_perm_p_bh", row["curve_perm_p_bh"], true),
 		}})
