@@ -52,9 +52,9 @@ func TestDynamicsWorkedExample(t *testing.T) {
 	if !reflect.DeepEqual(ok, []bool{true, true, true, false}) {
 		t.Errorf("ok = %v", ok)
 	}
-	// Seconds: windows * step * TR; step 2, TR 0.72 -> state 1: 3*2*0.72.
-	sec, sok := d.MeanDwellSeconds(2, 0.72)
-	if math.Abs(sec[1]-4.32) > 1e-12 || sok[3] || sec[3] != 0 {
+	// Seconds: windows * step * TR; step 2, TR 1.5 -> state 1: 3*2*1.5.
+	sec, sok := d.MeanDwellSeconds(2, 1.5)
+	if math.Abs(sec[1]-9) > 1e-12 || sok[3] || sec[3] != 0 {
 		t.Errorf("seconds %v ok %v", sec, sok)
 	}
 }

@@ -42,7 +42,7 @@ func filtrationCases() []netCase {
 		{"p=3 all tied", 3, []float64{0.5, 0.5, 0.5}},
 		{"p=4 hand", 4, []float64{0.9, 0.1, 0.4, 0.8, 0.2, 0.7}},
 	}
-	for _, p := range []int{5, 12, 40, 116} {
+	for _, p := range []int{5, 12, 40, 100} {
 		cases = append(cases, netCase{fmt.Sprintf("random p=%d", p), p, randomNetwork(rng, p, 0)})
 		cases = append(cases, netCase{fmt.Sprintf("ties p=%d", p), p, randomNetwork(rng, p, 7)})
 	}
@@ -358,22 +358,22 @@ func ExampleGraphFiltration() {
 	// beta1: [3 1 0 0 0 0]
 }
 
-func BenchmarkGraphFiltration116(b *testing.B) {
-	upper := randomNetwork(rand.New(rand.NewPCG(1, 1)), 116, 0)
+func BenchmarkGraphFiltration100(b *testing.B) {
+	upper := randomNetwork(rand.New(rand.NewPCG(1, 1)), 100, 0)
 	for b.Loop() {
-		if _, err := GraphFiltration(116, upper); err != nil {
+		if _, err := GraphFiltration(100, upper); err != nil {
 			b.Fatal(err)
 		}
 	}
 }
 
-// BenchmarkBettiCurves116: the whole per-network cost, filtration plus
+// BenchmarkBettiCurves100: the whole per-network cost, filtration plus
 // both curves on a 100-point grid.
-func BenchmarkBettiCurves116(b *testing.B) {
-	upper := randomNetwork(rand.New(rand.NewPCG(1, 1)), 116, 0)
+func BenchmarkBettiCurves100(b *testing.B) {
+	upper := randomNetwork(rand.New(rand.NewPCG(1, 1)), 100, 0)
 	grid := Grid(-1, 1, 100)
 	for b.Loop() {
-		f, err := GraphFiltration(116, upper)
+		f, err := GraphFiltration(100, upper)
 		if err != nil {
 			b.Fatal(err)
 		}

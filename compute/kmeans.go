@@ -688,6 +688,9 @@ type Elbow struct {
 	Rule string `json:",omitempty"`
 	// Gap is the gap statistic over the same k, when it was computed.
 	Gap *Gap `json:",omitempty"`
+	// Strength is the prediction strength over the same k, when it was
+	// computed.
+	Strength *Strength `json:",omitempty"`
 }
 
 // ElbowScan fits KMeans for k = kmin..kmax with opt (opt.K is ignored) and

@@ -72,12 +72,12 @@ func simulatedWindows(tb testing.TB, subjects, regions, timepoints, states, widt
 	return out
 }
 
-// BenchmarkKMeansWindows fits k-means to 5,000 window vectors of 116
-// regions (6,670 values each; a quarter of the default fitting sample),
+// BenchmarkKMeansWindows fits k-means to 5,000 window vectors of 100
+// regions (4,950 values each; a quarter of the default fitting sample),
 // variance-peak windows of a generated cohort, one restart: bounded Lloyd (the package's
 // path) against plain Lloyd iterations.
 func BenchmarkKMeansWindows(b *testing.B) {
-	all := simulatedWindows(b, 16, 116, 1200, 4, 50, 3)
+	all := simulatedWindows(b, 16, 100, 1000, 4, 50, 3)
 	idx := LocalMaxima(WindowVariance(all))
 	r := rand.New(rand.NewPCG(1, 2))
 	r.Shuffle(len(idx), func(i, j int) { idx[i], idx[j] = idx[j], idx[i] })

@@ -448,8 +448,8 @@ func TestElbowScan(t *testing.T) {
 }
 
 func BenchmarkAssign(b *testing.B) {
-	x := randomMatrix(2000, 6670, 1)
-	c := randomMatrix(6, 6670, 2)
+	x := randomMatrix(2000, 4950, 1)
+	c := randomMatrix(6, 4950, 2)
 	for _, w := range []int{1, 2} {
 		b.Run(fmt.Sprintf("workers=%d", w), func(b *testing.B) {
 			for b.Loop() {
@@ -464,10 +464,10 @@ func BenchmarkAssign(b *testing.B) {
 	})
 }
 
-// BenchmarkKMeansPlusPlus seeds k = 10 centres on 2,000 x 6,670 rows; the
+// BenchmarkKMeansPlusPlus seeds k = 10 centres on 2,000 x 4,950 rows; the
 // cost is linear in the rows, so 20,000 rows take ten times as long.
 func BenchmarkKMeansPlusPlus(b *testing.B) {
-	x := randomMatrix(2000, 6670, 1)
+	x := randomMatrix(2000, 4950, 1)
 	f := &kmFit{x: x, d: SquaredEuclidean, workers: 1, xn: rowNorms(x, 1)}
 	r := rand.New(rand.NewPCG(1, 1))
 	for b.Loop() {

@@ -295,8 +295,9 @@ type KSResult struct {
 // KSExactMaxCells is the largest number of lattice cells (inside the band
 // |u/m - v/n| < D) for which KSTest computes the exact p-value; beyond it
 // KSTest uses the asymptotic one. 1e8 cells take roughly a tenth of a
-// second. It always admits m = n = 6,555 (at most 6,556^2 = 4.3e7 cells),
-// the beta1 event count of a 116-region network.
+// second. It always admits m = n = 4,851 (at most 4,852^2 = 2.4e7 cells),
+// the Betti-1 event count of a 100-region network; for 200 regions (19,701
+// events) the width of the band at the observed D decides.
 const KSExactMaxCells = 100_000_000
 
 // KSTest computes the two-sample KS statistic D of a and b and its

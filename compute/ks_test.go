@@ -59,9 +59,9 @@ func TestKSPValueExactGnedenkoKorolyuk(t *testing.T) {
 	for _, k := range []int{5, 40, 70, 90, 150, 400} {
 		cases = append(cases, tc{1500, k})
 	}
-	// q = 6,555: the beta1 event count of a 116-region network.
-	for _, k := range []int{60, 155, 250} {
-		cases = append(cases, tc{6555, k})
+	// q = 4,851: the Betti-1 event count of a 100-region network.
+	for _, k := range []int{60, 134, 250} {
+		cases = append(cases, tc{4851, k})
 	}
 	for _, c := range cases {
 		t.Run(fmt.Sprintf("q=%d/k=%d", c.q, c.k), func(t *testing.T) {
@@ -188,7 +188,7 @@ func TestKSPValueExactMonotone(t *testing.T) {
 // Snapping: a d within float rounding of k/L gives the p of k/L exactly
 // (the documented rule), whichever side of k/L it falls on.
 func TestKSPValueExactSnapping(t *testing.T) {
-	for _, sz := range [][2]int{{30, 45}, {6555, 6555}, {1000, 999}} {
+	for _, sz := range [][2]int{{30, 45}, {4851, 4851}, {1000, 999}} {
 		m, n := sz[0], sz[1]
 		l := float64(lcm(int64(m), int64(n)))
 		for _, k := range []float64{1, 7, 50, 89} {
@@ -209,26 +209,26 @@ func TestKSPValueExactSnapping(t *testing.T) {
 	}
 }
 
-// q = 6,555 (116 regions): finite, no NaN, and close to the asymptotic
+// q = 4,851 (100 regions): finite, no NaN, and close to the asymptotic
 // Kolmogorov (1933) / Smirnov (1948) limit Q(d sqrt(q/2)) near p = 0.05.
 // Two regimes:
 //   - at a grid point d = k/q the Gnedenko-Korolyuk terms
 //     C(2q, q-jk)/C(2q, q) tend to Kolmogorov's exp(-2 j^2 lambda^2) term by
 //     term (Stirling's formula), with a relative error of order
-//     k^4/q^3 + k^2/q^2 (~1e-3 here at worst); observed about 3e-6, checked
+//     k^4/q^3 + k^2/q^2 (~1e-3 here at worst; 172^4/4851^3 = 7.7e-4); observed about 3e-6, checked
 //     to 1e-3 absolute;
 //   - between grid points the exact P(D >= d) is a step function (D lives
 //     on multiples of 1/q) while Q is smooth, so they differ by up to one
-//     step of Q, |dQ/dlambda| / sqrt(2q) ~ 0.27/114 ~ 2.4e-3: the known
+//     step of Q, |dQ/dlambda| / sqrt(2q) ~ 0.27/98.5 ~ 2.7e-3: the known
 //     O(1/sqrt(n)) discreteness correction; checked to 1e-2 absolute.
 func TestKSPValueExactLargeVsAsymptotic(t *testing.T) {
-	const q = 6555
-	// lambda = k/sqrt(2q) ~ 1.358 (Q = 0.05) gives k ~ 155.5.
+	const q = 4851
+	// lambda = k/sqrt(2q) ~ 1.358 (Q = 0.05) gives k ~ 133.8.
 	for _, c := range []struct {
 		k, off, tol float64
 	}{
-		{150, 0, 1e-3}, {155, 0, 1e-3}, {156, 0, 1e-3}, {160, 0, 1e-3}, {200, 0, 1e-3},
-		{155, -0.3, 1e-2}, {156, -0.5, 1e-2}, {156, -0.9, 1e-2}, {160, -0.7, 1e-2},
+		{128, 0, 1e-3}, {133, 0, 1e-3}, {134, 0, 1e-3}, {138, 0, 1e-3}, {172, 0, 1e-3},
+		{133, -0.3, 1e-2}, {134, -0.5, 1e-2}, {134, -0.9, 1e-2}, {138, -0.7, 1e-2},
 	} {
 		t.Run(fmt.Sprintf("k=%g/off=%g", c.k, c.off), func(t *testing.T) {
 			d := (c.k + c.off) / q
@@ -412,7 +412,7 @@ func TestKSTestMethod(t *testing.T) {
 		method string
 	}{
 		{"small", 30, 50, 0.5, "exact"},
-		{"beta1 of 116 regions", 6555, 6555, 0.05, "exact"},
+		{"Betti-1 of 100 regions", 4851, 4851, 0.05, "exact"},
 		{"large separated", 20000, 20000, 1.5, "asymptotic"},
 	} {
 		t.Run(c.name, func(t *testing.T) {
@@ -441,9 +441,9 @@ func TestKSTestMethod(t *testing.T) {
 	}
 }
 
-func BenchmarkKSExact6555(b *testing.B) {
+func BenchmarkKSExact4851(b *testing.B) {
 	for b.Loop() {
-		if _, err := KSPValueExact(6555, 6555, 0.02); err != nil {
+		if _, err := KSPValueExact(4851, 4851, 0.02); err != nil {
 			b.Fatal(err)
 		}
 	}

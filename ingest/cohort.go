@@ -27,10 +27,27 @@ type Cohort struct {
 	Excluded     []Exclusion
 	Warnings     []string
 	Source       *Source // reads each input's series (tables, .npy, NIfTI with the atlas)
+	// Window is the window width used: Options.Window, or when that is 0
+	// the rule's width at the cohort's shortest TR (WindowFor); TaperSD
+	// likewise (TaperSigmaFor). Apply puts them into the options.
+	Window  int
+	TaperSD float64
 	// TempDir is the run's temporary folder (Options.CacheSeries): the
 	// parsed-series cache and DuckDB's spill folder. "" when there is none.
 	// Close removes it.
 	TempDir string
+}
+
+// Apply returns o with the window width and taper sigma the cohort
+// resolved (when o left them to the rules).
+func (c *Cohort) Apply(o Options) Options {
+	if o.Window == 0 {
+		o.Window = c.Window
+	}
+	if o.TaperSD == 0 {
+		o.TaperSD = c.TaperSD
+	}
+	return o
 }
 
 // Close removes the cohort's temporary folder, if any. Safe to call twice
@@ -215,6 +232,30 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if ref >= 0 && len(c.Keep) < 3 {
 		problems = append(problems, fmt.Errorf("ingest: only %d region(s) left after dropping constant ones; a network needs at least 3", len(c.Keep)))
 	}
+	// The window: given, or from the rule at the shortest TR of the
+	// series that were read (every series then spans at least 1/f_min
+	// seconds per window). A series shorter than the window is refused.
+	c.Window = o.Window
+	if c.Window == 0 {
+		for i, ch := range checks {
+			if bad[i] == nil && ch.tr > 0 {
+				c.Window = max(c.Window, WindowFor(ch.tr, o.MinFreq))
+			}
+		}
+	}
+	c.TaperSD = o.TaperSD
+	if c.TaperSD == 0 {
+		c.TaperSD = TaperSigmaFor(c.Window)
+	}
+	for i, ch := range checks {
+		if bad[i] == nil && c.Window > 0 && ch.T < c.Window {
+			why := "--window is %d; use a shorter window"
+			if o.Window == 0 {
+				why = fmt.Sprintf("the window is %%d (1/--min-freq = %g s at the cohort's shortest TR); pass a shorter --window or a higher --min-freq,", 1/o.MinFreq)
+			}
+			bad[i] = &ParseError{Path: inputs[i].Path, Err: fmt.Errorf("%w: %d time points, "+why+" or leave this series out", ErrTooShort, ch.T, c.Window)}
+		}
+	}
 	for i, in := range inputs {
 		if bad[i] != nil {
 			if o.OnBadSubject == "skip" {
@@ -226,7 +267,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		}
 		ch := checks[i]
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, o.Window, o.Step), cache: ch.cache})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, c.Window, o.Step), cache: ch.cache})
 	}
 	if part != nil {
 		have := map[string]bool{}
@@ -256,7 +297,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 		k, flag = o.StatesMax, "--states-max"
 	}
 	if k > windows {
-		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), o.Window, o.Step)}
+		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), c.Window, o.Step)}
 	}
 	ok = true
 	return c, nil
@@ -276,10 +317,6 @@ func checkFile(src *Source, in Input, o Options, cache string) fileCheck {
 		ch.cache = cache
 	}
 	ch.constant = compute.ConstantRegions(sf.Series)
-	if sf.Series.T < o.Window {
-		ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.Window)}
-		return ch
-	}
 	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
 	// the file itself states (a NIfTI header's pixdim[4] with its unit).
 	switch {

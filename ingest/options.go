@@ -7,17 +7,28 @@ import (
 	"math"
 	"strconv"
 	"strings"
+
+	"github.com/topostate/topostate/compute"
 )
 
 // Options are every setting of one ingest. They are stored as JSON with the
 // analysis, so the field names are part of the warehouse.
 type Options struct {
-	Input    string  `json:"input"`
-	TR       float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
-	Window   int     `json:"window"`            // time points
-	Step     int     `json:"step"`              // time points
-	Taper    string  `json:"taper"`             // none | gauss
-	TaperSD  float64 `json:"taper_sigma"`       // Gaussian sigma in time points (gauss)
+	Input string  `json:"input"`
+	TR    float64 `json:"tr_seconds_option"` // 0: read from each file's sidecar
+	// Window is the window width in time points; 0 (the default) takes it
+	// from the rule of docs/methods.md §2, the smallest whole number of time
+	// points spanning at least 1/MinFreq seconds at the cohort's shortest
+	// TR (WindowFor). The stored parameters hold the width used.
+	Window int `json:"window"`
+	// MinFreq is f_min, the slowest frequency the series keep after their
+	// high-pass filter, in Hz; it sets the default window.
+	MinFreq float64 `json:"min_freq_hz"`
+	Step    int     `json:"step"`  // time points
+	Taper   string  `json:"taper"` // none | gauss
+	// TaperSD is the taper's Gaussian sigma in time points (gauss); 0 (the
+	// default) takes Window/10 (TaperSigmaFor).
+	TaperSD  float64 `json:"taper_sigma"`
 	Detrend  bool    `json:"detrend"`
 	SmoothK  int     `json:"smooth_k"` // 0: no cosine smoothing
 	SmoothSD float64 `json:"smooth_sigma"`
@@ -27,15 +38,25 @@ type Options struct {
 	StatesMin int `json:"states_min"`
 	StatesMax int `json:"states_max"`
 	// KRule is the rule that picks k from the scan (docs/methods.md §3.x):
-	// "gap" (the gap statistic), "chord" or "second-diff" (the two elbow
-	// rules). An older analysis without the key used "chord".
+	// "strength" (prediction strength), "gap" (the gap statistic), "chord"
+	// or "second-diff" (the two elbow rules). An older analysis without the
+	// key used "chord".
 	KRule string `json:"k_rule"`
 	// GapReferences is B, the number of uniform reference sets of the gap
 	// statistic; GapWindows caps the fitting windows it uses (a uniform
 	// subsample of the fitting sample when there are more).
 	GapReferences int `json:"gap_references"`
 	GapWindows    int `json:"gap_windows"`
-	Restarts      int `json:"restarts"`
+	// StrengthSplits is the number of random halvings of the prediction
+	// strength; StrengthWindows caps the fitting windows it uses (a uniform
+	// subsample); StrengthThreshold is the strength a k must reach.
+	StrengthSplits    int     `json:"strength_splits"`
+	StrengthWindows   int     `json:"strength_windows"`
+	StrengthThreshold float64 `json:"strength_threshold"`
+	// AllRules computes both the gap statistic and the prediction strength
+	// whatever KRule is (scripts/kchoice compares the rules on one scan).
+	AllRules bool `json:"-"`
+	Restarts int  `json:"restarts"`
 	// ScanRestarts is the number of restarts per k of the elbow scan; the
 	// picked k then gets the rest up to Restarts. 0 means Restarts.
 	ScanRestarts int    `json:"scan_restarts"`
@@ -86,11 +107,35 @@ type Options struct {
 	CacheSeries bool `json:"-"`
 }
 
+// DefaultMinFreq is the default f_min in Hz: 0.01 Hz, the high-pass
+// cutoff most often applied to resting-state series (common practice, no
+// source); with it the default window spans at least 100 s.
+const DefaultMinFreq = 0.01
+
+// WindowFor returns the default window width in time points for the
+// shortest repetition time tr of a cohort (seconds) and f_min (Hz): the
+// smallest whole number of time points spanning at least 1/f_min seconds,
+// ceil(1/(f_min tr)), and at least 2. A window shorter than the period of
+// the slowest frequency kept lets that frequency alone make the windowed
+// correlations swing (Leonardi and Van De Ville, NeuroImage 104:430-436,
+// 2015); docs/methods.md §2.
+func WindowFor(tr, fmin float64) int {
+	w := int(math.Ceil(1/(fmin*tr) - 1e-9))
+	return max(w, 2)
+}
+
+// TaperSigmaFor returns the default Gaussian sigma of the taper for a
+// window of w time points: w/10, so the weights reach 98% of their plateau
+// 2 sigma = w/5 inside either end and the middle three fifths of the window
+// carry full weight (our choice; docs/methods.md §2).
+func TaperSigmaFor(w int) float64 { return float64(w) / 10 }
+
 // Defaults returns the options a user gets without flags.
 func Defaults() Options {
 	return Options{
-		Window: 30, Step: 1, Taper: "none", TaperSD: 3,
-		StatesMin: 2, StatesMax: 10, KRule: "chord", GapReferences: 10, GapWindows: 400, Restarts: 5, MaxIter: 150, Seed: 1,
+		Window: 0, MinFreq: DefaultMinFreq, Step: 1, Taper: "none", TaperSD: 0,
+		StatesMin: 1, StatesMax: 10, KRule: "strength", GapReferences: 10, GapWindows: 400,
+		StrengthSplits: 5, StrengthWindows: 1000, StrengthThreshold: compute.DefaultStrengthThreshold, Restarts: 3, MaxIter: 50, Seed: 1,
 		Distance: "euclidean", FitMax: 20000, FitMemory: DefaultFitMemory, FitSample: "peaks",
 		DBMemory:     DefaultDBMemory,
 		Grid:         "-1:1:101",
@@ -210,8 +255,11 @@ func (o Options) Check() error {
 	if o.TR < 0 {
 		bad("--tr %v: must be a positive number of seconds", o.TR)
 	}
-	if o.Window < 2 {
-		bad("--window %d: a window needs at least 2 time points", o.Window)
+	if o.Window != 0 && o.Window < 2 {
+		bad("--window %d: a window needs at least 2 time points (0: from --min-freq)", o.Window)
+	}
+	if o.Window == 0 && !(o.MinFreq > 0 && o.MinFreq < math.Inf(1)) {
+		bad("--min-freq %v: must be a positive frequency in Hz (the default window spans 1/min-freq seconds)", o.MinFreq)
 	}
 	if o.Step < 1 {
 		bad("--step %d: must be at least 1 time point", o.Step)
@@ -222,8 +270,8 @@ func (o Options) Check() error {
 	if o.Taper != "none" && o.Taper != "gauss" {
 		bad("--taper %q: want none or gauss", o.Taper)
 	}
-	if o.Taper == "gauss" && !(o.TaperSD > 0) {
-		bad("--taper-sigma %v: must be positive", o.TaperSD)
+	if o.Taper == "gauss" && !(o.TaperSD >= 0) {
+		bad("--taper-sigma %v: must be positive (0: window/10)", o.TaperSD)
 	}
 	if o.SmoothK < 0 || o.SmoothSD < 0 {
 		bad("--smooth-k and --smooth-sigma must not be negative")
@@ -242,12 +290,25 @@ func (o Options) Check() error {
 		if o.States == 0 && o.GapWindows <= o.StatesMax {
 			bad("--gap-windows %d: must exceed --states-max %d (every k needs more windows than states)", o.GapWindows, o.StatesMax)
 		}
+	case "strength":
+		if o.States == 0 && (o.StatesMin < 1 || o.StatesMax < o.StatesMin+1) {
+			bad("--states-min %d --states-max %d: the strength rule needs 1 <= min < max", o.StatesMin, o.StatesMax)
+		}
+		if o.StrengthSplits < 1 {
+			bad("--strength-splits %d: need at least 1 random halving (5 or more recommended)", o.StrengthSplits)
+		}
+		if !(o.StrengthThreshold > 0 && o.StrengthThreshold <= 1) {
+			bad("--strength-threshold %v: want a number in (0, 1]; 0.8-0.9 is the published range", o.StrengthThreshold)
+		}
+		if o.States == 0 && o.StrengthWindows < 2*o.StatesMax {
+			bad("--strength-windows %d: must be at least twice --states-max %d (each half needs more windows than states)", o.StrengthWindows, o.StatesMax)
+		}
 	case "chord", "second-diff":
 		if o.States == 0 && (o.StatesMin < 1 || o.StatesMax < o.StatesMin+2) {
 			bad("--states-min %d --states-max %d: the %s rule needs 1 <= min and at least three k values (max >= min+2)", o.StatesMin, o.StatesMax, o.KRule)
 		}
 	default:
-		bad("--k-rule %q: want gap, chord or second-diff", o.KRule)
+		bad("--k-rule %q: want strength, gap, chord or second-diff", o.KRule)
 	}
 	if o.Restarts < 1 || o.MaxIter < 1 {
 		bad("--restarts and --max-iter must be at least 1")

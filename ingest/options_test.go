@@ -61,3 +61,22 @@ func TestOptionsCheckNames(t *testing.T) {
 		t.Errorf("--fit-sample: %v", err)
 	}
 }
+
+// TestWindowFor checks the default window rule w = ceil(1/(f_min TR))
+// (Leonardi and Van De Ville, 2015; docs/methods.md §2) on values worked by
+// hand, including a TR at which 1/(f_min TR) is a whole number.
+func TestWindowFor(t *testing.T) {
+	for _, c := range []struct {
+		tr, fmin float64
+		want     int
+	}{
+		{2, 0.01, 50}, {1.4, 0.01, 72}, {1, 0.01, 100}, {0.8, 0.01, 125}, {1.5, 0.01, 67}, {3, 0.01, 34}, {2, 0.008, 63}, {50, 0.1, 2},
+	} {
+		if got := WindowFor(c.tr, c.fmin); got != c.want {
+			t.Errorf("TR %v f_min %v: window %d, want %d", c.tr, c.fmin, got, c.want)
+		}
+	}
+	if got := TaperSigmaFor(72); got != 7.2 {
+		t.Errorf("taper sigma for 72 points: %v, want 7.2", got)
+	}
+}

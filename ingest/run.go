@@ -104,6 +104,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	if err := o.Check(); err != nil {
 		return nil, err
 	}
+	o = c.Apply(o)
 	sum.Warnings = c.Warnings
 	workers := o.Workers
 	if workers <= 0 {
@@ -198,6 +199,7 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	sum.Occupancies = occ
 	sum.WorkerTimes = st.work.list()
 	sum.Fits = st.fits
+	sum.Warnings = c.Warnings // fit may have added one
 	return sum, nil
 }
 
@@ -624,7 +626,11 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			s.k = e.ChordK
 		case "second-diff":
 			s.k = e.SecondDiffK
-		case "gap":
+		case "gap", "strength":
+		default:
+			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+		}
+		if e.Rule == "gap" || s.o.AllRules {
 			gopt := compute.GapOptions{References: s.o.GapReferences, Sample: s.o.GapWindows, MaxIter: s.o.MaxIter,
 				Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
 			s.prog.Stage(fmt.Sprintf("gap statistic, %d reference sets", s.o.GapReferences), s.o.GapReferences+1)
@@ -635,9 +641,24 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			}
 			t = s.work.since("fit: gap statistic", tg)
 			e.Gap = &g
-			s.k = g.K
-		default:
-			return fmt.Errorf("ingest: unknown k rule %q", e.Rule)
+			if e.Rule == "gap" {
+				s.k = g.K
+			}
+		}
+		if e.Rule == "strength" || s.o.AllRules {
+			sopt := compute.StrengthOptions{Splits: s.o.StrengthSplits, Sample: s.o.StrengthWindows, Threshold: s.o.StrengthThreshold,
+				Restarts: scan.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
+			s.prog.Stage(fmt.Sprintf("prediction strength, %d random halvings", s.o.StrengthSplits), s.o.StrengthSplits)
+			ts := time.Now()
+			ps, err := compute.PredictionStrength(x, s.o.StatesMin, s.o.StatesMax, sopt, s.o.Seed)
+			if err != nil {
+				return fmt.Errorf("ingest: prediction strength: %w", stopped(ctx, err))
+			}
+			t = s.work.since("fit: prediction strength", ts)
+			e.Strength = &ps
+			if e.Rule == "strength" {
+				s.k = ps.K
+			}
 		}
 		res = fits[s.k-s.o.StatesMin]
 		if scan.Restarts < opt.Restarts {
@@ -653,6 +674,9 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 				res = r
 			}
 		}
+	}
+	if !res.Converged {
+		s.c.Warnings = append(s.c.Warnings, fmt.Sprintf("the k-means fit at k = %d stopped at --max-iter %d before converging (relative change of W above 1e-6); its states may move with more iterations: raise --max-iter", s.k, s.o.MaxIter))
 	}
 	// Relabel: most frequent state first, ties by old label.
 	count := make([]int, s.k)
@@ -689,13 +713,16 @@ func (s *stages) writeStates(ctx context.Context, w *schema.Writer) error {
 	defer eb.Release()
 	if s.elbow != nil {
 		for i, pt := range s.elbow.Points {
-			var logW, refLogW, gap, se, pick any
+			var logW, refLogW, gap, se, pick, ps, psSE, psPick any
 			if g := s.elbow.Gap; g != nil && i < len(g.Points) && g.Points[i].K == pt.K {
 				gp := g.Points[i]
 				logW, refLogW, gap, se, pick = gp.LogW, gp.RefLogW, gp.Gap, gp.SE, pt.K == g.K
 			}
+			if st := s.elbow.Strength; st != nil && i < len(st.Points) && st.Points[i].K == pt.K {
+				ps, psSE, psPick = st.Points[i].Strength, st.Points[i].SE, pt.K == st.K
+			}
 			eb.Row(id, pt.K, pt.WCSS, pt.K == s.k, pt.K == s.elbow.ChordK, pt.K == s.elbow.SecondDiffK,
-				logW, refLogW, gap, se, pick)
+				logW, refLogW, gap, se, pick, ps, psSE, psPick)
 		}
 	}
 	cb := schema.NewBatch(schema.StateCentroids)

@@ -270,6 +270,7 @@ func Plan(ctx context.Context, o Options, dir string, shards int) (w *Work, err 
 	if err != nil {
 		return nil, err
 	}
+	o = c.Apply(o)
 	if shards > len(c.Inputs) {
 		return nil, &UsageError{Err: fmt.Errorf("--shards %d is more than the %d series of the cohort", shards, len(c.Inputs))}
 	}

@@ -40,6 +40,7 @@ var units = map[string]string{
 	"elbow.chosen": "true/false", "elbow.chord_pick": "true/false", "elbow.second_diff_pick": "true/false",
 	"elbow.gap_log_wcss": "log of elbow.wcss units", "elbow.gap_ref_log_wcss": "log of elbow.wcss units",
 	"elbow.gap": "difference of logs (unitless)", "elbow.gap_se": "difference of logs (unitless)", "elbow.gap_pick": "true/false",
+	"elbow.strength": "share of pairs (unitless)", "elbow.strength_se": "share of pairs (unitless)", "elbow.strength_pick": "true/false",
 	"state": "state number (from 1)", "state_centroids.i": "region_index", "state_centroids.j": "region_index",
 	"state_centroids.weight":      "correlation r (Fisher z when fisher_z was on)",
 	"state_sequence.window_index": "window number (from 1)", "state_sequence.window_start": "time point (from 0)",

@@ -57,7 +57,8 @@ func init() {
 	def(Regions, f("analysis_id", i32), nullable("region_index", i32), f("column_index", i32), f("region_name", str), f("dropped", bln))
 	def(Elbow, f("analysis_id", i32), f("k", i32), f("wcss", f64), f("chosen", bln),
 		f("chord_pick", bln), f("second_diff_pick", bln), nullable("gap_log_wcss", f64), nullable("gap_ref_log_wcss", f64),
-		nullable("gap", f64), nullable("gap_se", f64), nullable("gap_pick", bln))
+		nullable("gap", f64), nullable("gap_se", f64), nullable("gap_pick", bln),
+		nullable("strength", f64), nullable("strength_se", f64), nullable("strength_pick", bln))
 	def(StateCentroids, f("analysis_id", i32), f("state", i16), f("i", i16), f("j", i16), f("weight", f64))
 	def(StateSequence, append(id[:3:3], f("window_index", i32), f("window_start", i32),
 		f("center_seconds", f64), f("state", i16), f("distance", f64))...)

@@ -74,7 +74,10 @@ CREATE TABLE IF NOT EXISTS elbow (
     gap_ref_log_wcss DOUBLE,          -- mean log W*(k) over the uniform reference sets in the principal-component box; NULL as gap_log_wcss
     gap             DOUBLE,           -- gap statistic Gap(k) = gap_ref_log_wcss - gap_log_wcss; NULL as gap_log_wcss
     gap_se          DOUBLE,           -- s(k) = sd of the reference log W*(k) times sqrt(1 + 1/B); NULL as gap_log_wcss
-    gap_pick        BOOLEAN           -- the gap rule (smallest k with Gap(k) >= Gap(k+1) - s(k+1)) picks this k; NULL as gap_log_wcss
+    gap_pick        BOOLEAN,          -- the gap rule (smallest k with Gap(k) >= Gap(k+1) - s(k+1)) picks this k; NULL as gap_log_wcss
+    strength        DOUBLE,           -- prediction strength ps(k): mean over random halvings of the fitting windows of the smallest share of a cluster's pairs the other half's centroids keep together; NULL: not computed (older analyses, or a rule other than strength)
+    strength_se     DOUBLE,           -- standard error of strength (sd of the 2 x splits estimates / sqrt of their number); NULL as strength
+    strength_pick   BOOLEAN           -- the strength rule (largest k with strength >= the threshold, parameters strength_threshold) picks this k; NULL as strength
 );
 
 CREATE TABLE IF NOT EXISTS state_centroids (

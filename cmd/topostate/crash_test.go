@@ -146,7 +146,7 @@ func TestKillMidIngest(t *testing.T) {
 	}{
 		{"after 0.2s", 200 * time.Millisecond, false},
 		{"after 0.6s", 600 * time.Millisecond, false},
-		{"after 1.2s", 1200 * time.Millisecond, false},
+		{"after 1.3s", 1300 * time.Millisecond, false},
 		{"after 2s", 2 * time.Second, false},
 		{"paused before commit", 0, true},
 	}

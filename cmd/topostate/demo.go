@@ -18,14 +18,24 @@ import (
 	"github.com/topostate/topostate/ingest"
 )
 
-// The demo's scenario is invented for this tool: the "Harbour Shift" study,
-// 24 fictional port workers, half on day shifts and half on rotating night
-// shifts, with age and a fatigue score. The simulator gives the night group
-// stickier states, so their dwell times are longer.
-const demoStory = `Fictional scenario: the "Harbour Shift" study. 24 invented port workers,
-12 on day shifts and 12 on rotating night shifts, each with a 10-minute resting
-scan reduced to 32 regions, plus age and a fatigue score. The data are simulated:
-night-shift workers were given stickier brain states (longer dwell times).`
+// The demo's scenario is invented for this tool: the "Quiet Ridge" study,
+// 28 fictional volunteers, half of whom practised a slow-breathing exercise
+// for eight weeks while the other half waited, with age and a calm score.
+// The simulator gives the practice group stickier states (longer dwells);
+// the cohort has four latent states, sampled every 1.4 s.
+const demoStory = `Fictional scenario: the "Quiet Ridge" study. 28 invented volunteers, 14 who
+practised a slow-breathing exercise for eight weeks and 14 on the waiting list,
+each with a 10-minute resting scan (TR 1.4 s, 430 time points) reduced to 36
+regions, plus age and a calm score. The data are simulated with four latent
+brain states; the practice group was given stickier states (longer dwells).`
+
+// Demo settings, our own: four latent states, TR 1.4 s; the window comes
+// from the default rule (ceil(1/(0.01 Hz x 1.4 s)) = 72 time points) and k
+// is scanned from 1 with the default rule.
+const (
+	demoStates = 4
+	demoTR     = 1.4
+)
 
 func demoCommand() *cli.Command {
 	return &cli.Command{
@@ -52,20 +62,24 @@ func demoCommand() *cli.Command {
 			out := c.App.Writer
 			fmt.Fprintln(out, demoStory)
 			fmt.Fprintln(out)
-			spec := compute.CohortSpec{Subjects: 24, Regions: 32, Timepoints: 300, States: 3, TR: 2,
-				Stickiness: 0.93, GroupEffect: 0.05, Noise: 0.5, Offset: 800, Seed: 2026}
-			if _, err := writeSynthetic(cohort, spec, map[string]string{"A": "day", "B": "night"}, "fatigue"); err != nil {
+			spec := compute.CohortSpec{Subjects: 28, Regions: 36, Timepoints: 430, States: demoStates, TR: demoTR,
+				Stickiness: 0.975, GroupEffect: 0.015, Noise: 0.4, Offset: 600, Seed: 4242}
+			if _, err := writeSynthetic(cohort, spec, map[string]string{"A": "waitlist", "B": "practice"}, "calm"); err != nil {
 				return err
 			}
 			fmt.Fprintf(out, "1. simulated the cohort into %s\n", cohort)
 			o := ingest.Defaults()
-			o.Input, o.Window, o.StatesMax, o.Analysis, o.Seed = cohort, 22, 7, "harbour-demo", 7
-			fmt.Fprintf(out, "2. topostate ingest --input %s --db %s --window %d --states-max %d --analysis %s --seed %d\n\n",
-				cohort, dbPath, o.Window, o.StatesMax, o.Analysis, o.Seed)
+			o.Input, o.Analysis, o.Seed = cohort, "ridge-demo", 11
+			w := ingest.WindowFor(demoTR, o.MinFreq)
+			fmt.Fprintf(out, "2. topostate ingest --input %s --db %s --analysis %s --seed %d\n"+
+				"   every other setting at its default: windows of %d time points (%.1f s >= 1/--min-freq = %g s), k scanned over %d..%d by %s\n\n",
+				cohort, dbPath, o.Analysis, o.Seed, w, float64(w)*demoTR, 1/o.MinFreq, o.StatesMin, o.StatesMax, o.KRule)
 			sum, err := runIngest(c, o, dbPath, out)
 			if err != nil {
 				return err
 			}
+			fmt.Fprintln(out)
+			fmt.Fprintln(out, demoFound(sum.States, demoStates))
 			fmt.Fprintln(out)
 			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID); err != nil {
 				return err
@@ -73,7 +87,7 @@ func demoCommand() *cli.Command {
 			db, a := shellWord(dbPath), o.Analysis
 			fmt.Fprintln(out, "\nNext:")
 			fmt.Fprintf(out, "  topostate info   --db %s\n", db)
-			fmt.Fprintf(out, "  topostate query  --db %s state_dwell_by_group --param group_a=night --param group_b=day\n", db)
+			fmt.Fprintf(out, "  topostate query  --db %s state_dwell_by_group --param group_a=practice --param group_b=waitlist\n", db)
 			fmt.Fprintf(out, "  topostate plot   --db %s --analysis %s --out %s\n", db, a, shellWord(filepath.Join(dir, "figures")))
 			fmt.Fprintf(out, "  topostate report --db %s --analysis %s --out %s\n", db, a, shellWord(filepath.Join(dir, "report.html")))
 			fmt.Fprintln(out, "  (or open the file in DuckDB and ask your own questions in SQL)")
@@ -81,6 +95,19 @@ func demoCommand() *cli.Command {
 			fmt.Fprintln(out, caution)
 			return nil
 		},
+	}
+}
+
+// demoFound says in words what the model choice found against the
+// simulation's truth.
+func demoFound(found, truth int) string {
+	switch {
+	case found == truth:
+		return fmt.Sprintf("Found: %d states, as many as the simulation has.", found)
+	case found == 1:
+		return fmt.Sprintf("Found: 1 state, no evidence of state dynamics (the simulation has %d states).", truth)
+	default:
+		return fmt.Sprintf("Found: %d states; the simulation has %d (the number of states is an estimate: see README \"Number of states\").", found, truth)
 	}
 }
 
@@ -97,10 +124,10 @@ func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int) er
 		return err
 	}
 	type row struct {
-		state      int
-		day, night []float64
-		welch      compute.WelchResult
-		perm       compute.TestResult
+		state              int
+		waitlist, practice []float64
+		welch              compute.WelchResult
+		perm               compute.TestResult
 	}
 	rs := make([]row, k)
 	rows, err := db.QueryContext(ctx, `
@@ -120,10 +147,10 @@ func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int) er
 			return err
 		}
 		rs[st-1].state = st
-		if g == "day" {
-			rs[st-1].day = append(rs[st-1].day, v)
+		if g == "waitlist" {
+			rs[st-1].waitlist = append(rs[st-1].waitlist, v)
 		} else {
-			rs[st-1].night = append(rs[st-1].night, v)
+			rs[st-1].practice = append(rs[st-1].practice, v)
 		}
 	}
 	rows.Close()
@@ -131,21 +158,21 @@ func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int) er
 	for i := range rs {
 		rs[i].state = i + 1
 		ps[i] = math.NaN()
-		w, err := compute.WelchTTest(rs[i].night, rs[i].day)
+		w, err := compute.WelchTTest(rs[i].practice, rs[i].waitlist)
 		if err != nil {
 			continue
 		}
 		rs[i].welch = w
-		rs[i].perm, _ = compute.PermutationTestMean(rs[i].night, rs[i].day, 4999, rand.New(rand.NewPCG(7, uint64(i))))
+		rs[i].perm, _ = compute.PermutationTestMean(rs[i].practice, rs[i].waitlist, 4999, rand.New(rand.NewPCG(7, uint64(i))))
 		ps[i] = w.PValue
 	}
 	adj := compute.BenjaminiHochberg(ps)
-	fmt.Fprintln(out, "3. mean dwell time per state, night vs day shift (seconds; Welch t-test, permutation test with 4,999 relabellings; BH across states)")
+	fmt.Fprintln(out, "3. mean dwell time per state, practice vs waiting list (seconds; Welch t-test, permutation test with 4,999 relabellings; BH across states)")
 	tw := tabwriter.NewWriter(out, 0, 2, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "state\tday\tnight\tt\tdf\tp (Welch)\tp (BH)\tp (perm.)\t")
+	fmt.Fprintln(tw, "state\twaitlist\tpractice\tt\tdf\tp (Welch)\tp (BH)\tp (perm.)\t")
 	for i, r := range rs {
-		fmt.Fprintf(tw, "%d\t%.1f (n=%d)\t%.1f (n=%d)\t%.2f\t%.1f\t%.4f\t%.4f\t%.4f\t\n", r.state, mean(r.day), len(r.day),
-			mean(r.night), len(r.night), r.welch.T, r.welch.DF, r.welch.PValue, adj[i], r.perm.PValue)
+		fmt.Fprintf(tw, "%d\t%.1f (n=%d)\t%.1f (n=%d)\t%.2f\t%.1f\t%.4f\t%.4f\t%.4f\t\n", r.state, mean(r.waitlist), len(r.waitlist),
+			mean(r.practice), len(r.practice), r.welch.T, r.welch.DF, r.welch.PValue, adj[i], r.perm.PValue)
 	}
 	return tw.Flush()
 }

@@ -13,6 +13,7 @@ import (
 // ruleNames are the plain-language names of the --k-rule values
 // (docs/methods.md §3.x).
 var ruleNames = map[string]string{
+	"strength":    "prediction strength (largest k whose clusters the other half's centroids reproduce, strength >= threshold)",
 	"gap":         "the gap statistic (smallest k with Gap(k) >= Gap(k+1) - s(k+1))",
 	"chord":       "the chord elbow (farthest point of W(k) from the chord)",
 	"second-diff": "the largest second difference of W(k)",
@@ -32,10 +33,13 @@ func ruleName(rule string) string {
 
 // kChoiceText says which rule chose k over which scan, what the other rules
 // pick, on which sample W(k) was computed, and what k = 1 means.
-func kChoiceText(k, kmin, kmax int, rule string, chord, second, gapK, fitWindows int) string {
+func kChoiceText(k, kmin, kmax int, rule string, chord, second, gapK, strengthK, fitWindows int) string {
 	var b strings.Builder
 	fmt.Fprintf(&b, "%d, chosen by %s over k=%d..%d", k, ruleName(rule), kmin, kmax)
 	var others []string
+	if rule != "strength" && strengthK > 0 {
+		others = append(others, fmt.Sprintf("prediction strength %d", strengthK))
+	}
 	if rule != "gap" && gapK > 0 {
 		others = append(others, fmt.Sprintf("gap statistic %d", gapK))
 	}
@@ -57,11 +61,14 @@ func kChoiceText(k, kmin, kmax int, rule string, chord, second, gapK, fitWindows
 
 // elbowChoice is kChoiceText for a freshly fitted scan.
 func elbowChoice(e *compute.Elbow, k, fitWindows int) string {
-	gapK := 0
+	gapK, strengthK := 0, 0
 	if e.Gap != nil {
 		gapK = e.Gap.K
 	}
-	return kChoiceText(k, e.Points[0].K, e.Points[len(e.Points)-1].K, e.Rule, e.ChordK, e.SecondDiffK, gapK, fitWindows)
+	if e.Strength != nil {
+		strengthK = e.Strength.K
+	}
+	return kChoiceText(k, e.Points[0].K, e.Points[len(e.Points)-1].K, e.Rule, e.ChordK, e.SecondDiffK, gapK, strengthK, fitWindows)
 }
 
 // writeKChoices prints, for every analysis whose k was chosen by a scan,
@@ -72,7 +79,9 @@ func writeKChoices(ctx context.Context, db *sql.DB, w io.Writer) error {
 		SELECT a.analysis_id, a.name, a.n_states, a.fit_windows, coalesce(a.parameters->>'k_rule', ''),
 		       min(e.k), max(e.k),
 		       coalesce(max(CASE WHEN e.chord_pick THEN e.k END), 0),
-		       coalesce(max(CASE WHEN e.second_diff_pick THEN e.k END), 0)
+		       coalesce(max(CASE WHEN e.second_diff_pick THEN e.k END), 0),
+		       coalesce(max(CASE WHEN e.gap_pick THEN e.k END), 0),
+		       coalesce(max(CASE WHEN e.strength_pick THEN e.k END), 0)
 		FROM analyses a JOIN elbow e USING (analysis_id)
 		GROUP BY ALL ORDER BY a.analysis_id`)
 	if err != nil {
@@ -80,12 +89,12 @@ func writeKChoices(ctx context.Context, db *sql.DB, w io.Writer) error {
 	}
 	defer rows.Close()
 	for rows.Next() {
-		var id, k, fit, kmin, kmax, chord, second int
+		var id, k, fit, kmin, kmax, chord, second, gapK, strengthK int
 		var name, rule string
-		if err := rows.Scan(&id, &name, &k, &fit, &rule, &kmin, &kmax, &chord, &second); err != nil {
+		if err := rows.Scan(&id, &name, &k, &fit, &rule, &kmin, &kmax, &chord, &second, &gapK, &strengthK); err != nil {
 			return fmt.Errorf("info: %w", err)
 		}
-		fmt.Fprintf(w, "analysis %d (%s): states %s\n", id, name, kChoiceText(k, kmin, kmax, rule, chord, second, 0, fit))
+		fmt.Fprintf(w, "analysis %d (%s): states %s\n", id, name, kChoiceText(k, kmin, kmax, rule, chord, second, gapK, strengthK, fit))
 	}
 	if err := rows.Err(); err != nil {
 		return fmt.Errorf("info: %w", err)

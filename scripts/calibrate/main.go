@@ -15,6 +15,13 @@
 //
 //	nice -n 10 go run ./scripts/calibrate > calibration.md   # the README table
 //	go run ./scripts/calibrate -replicates 10                # a quick look
+//	go run ./scripts/calibrate -nulls b,power -replicates 40 -all-window
+//
+// The last line measures power as well: kind "power" is null (a) with a
+// network difference added to group B (-network-effect, -network-regions,
+// -network-all-states), and -all-window also counts the former group test
+// on the all-window Betti curves (AllWindowCurveTest) beside the bundled
+// queries, to compare the two.
 //
 // The uptime load average is printed before and after: the wall time
 // depends on the machine and its load.

@@ -1,6 +1,6 @@
 // Command kchoice measures how often each rule for the number of states
-// (docs/methods.md §3.x: the gap statistic, the chord elbow, the largest
-// second difference) finds the true number of latent states of simulated
+// (docs/methods.md §3.x: prediction strength, the gap statistic, the chord
+// elbow, the largest second difference) finds the true number of latent states of simulated
 // cohorts, and prints one confusion table (true k by picked k) per rule and
 // noise level.
 //
@@ -10,9 +10,10 @@
 // For every true k in -states and every noise level it writes -cohorts
 // cohorts with `topostate simulate --states k --noise x --seed s` (the
 // command is built first; the data are invented by topostate's own
-// generator) and runs the real ingest path (ingest.IntoFile, default
-// options with --k-rule gap --states-min 1, so one run yields all three picks: the gap
-// pick, and the chord and second-difference picks of the same W(k) scan).
+// generator) and runs the real ingest path (ingest.IntoFile with the
+// default options, among them the default window from --min-freq and the
+// scan from k = 1, and every rule's statistic computed, so one run yields
+// all four picks of the same fitting sample and W(k) scan).
 // The uptime load average is printed before and after: the timings depend
 // on the machine and its load.
 package main
@@ -39,8 +40,9 @@ func main() {
 	regions := flag.Int("regions", 20, "regions per series")
 	timepoints := flag.Int("timepoints", 400, "time points per series")
 	workers := flag.Int("workers", 2, "ingest workers")
+	stickiness := flag.Float64("stickiness", 0.97, "per-time-point probability of staying in a state (topostate simulate --stickiness; mean dwell 1/(1-q) time points)")
 	flag.Parse()
-	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers); err != nil {
+	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers, *stickiness); err != nil {
 		fmt.Fprintln(os.Stderr, "kchoice:", err)
 		os.Exit(1)
 	}
@@ -66,7 +68,7 @@ func uptime() string {
 	return strings.Join(strings.Fields(string(b))[:3], " ")
 }
 
-func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int) error {
+func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int, stickiness float64) error {
 	states, err := ints(statesList)
 	if err != nil {
 		return err
@@ -88,13 +90,16 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 	if out, err := exec.Command("go", "build", "-o", bin, "./cmd/topostate").CombinedOutput(); err != nil {
 		return fmt.Errorf("build: %v\n%s", err, out)
 	}
-	fmt.Printf("cohorts: %d subjects x %d time points x %d regions, stickiness 0.97 (default), %d cohorts per true k and noise level\n",
-		subjects, timepoints, regions, cohorts)
+	d := ingest.Defaults()
+	fmt.Printf("cohorts: %d subjects x %d time points x %d regions, TR 2 s, stickiness %g (mean dwell %.0f time points), latent autocorrelation 0.5 (simulate's default), %d cohorts per true k and noise level\n",
+		subjects, timepoints, regions, stickiness, 1/(1-stickiness), cohorts)
+	fmt.Printf("ingest defaults: window %d time points (1/min-freq = %g s at TR 2 s), k = %d..%d, %d restarts, %d iterations; strength %d halvings of at most %d windows, threshold %g; gap B = %d on at most %d windows\n",
+		ingest.WindowFor(2, d.MinFreq), 1/d.MinFreq, d.StatesMin, d.StatesMax, d.Restarts, d.MaxIter, d.StrengthSplits, d.StrengthWindows, d.StrengthThreshold, d.GapReferences, d.GapWindows)
 	fmt.Printf("load average before: %s\n", uptime())
 	start := time.Now()
-	rules := []string{"gap", "chord", "second-diff"}
+	rules := []string{"strength", "gap", "chord", "second-diff"}
 	const kmax = 10
-	var gapSeconds float64
+	var gapSeconds, strengthSeconds float64
 	runs := 0
 	for _, noise := range noises {
 		// table[rule][true k index][picked k]
@@ -113,12 +118,12 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 				cmd := exec.Command(bin, "simulate", "--out", dir, "--subjects", strconv.Itoa(subjects),
 					"--regions", strconv.Itoa(regions), "--timepoints", strconv.Itoa(timepoints),
 					"--states", strconv.Itoa(k), "--noise", strconv.FormatFloat(noise, 'g', -1, 64),
-					"--seed", strconv.FormatUint(seed, 10))
+					"--seed", strconv.FormatUint(seed, 10), "--stickiness", strconv.FormatFloat(stickiness, 'g', -1, 64))
 				if out, err := cmd.CombinedOutput(); err != nil {
 					return fmt.Errorf("simulate: %v\n%s", err, out)
 				}
 				o := ingest.Defaults()
-				o.Input, o.KRule, o.StatesMin, o.Workers, o.Seed = dir, "gap", 1, workers, seed
+				o.Input, o.AllRules, o.Workers, o.Seed = dir, true, workers, seed
 				db := filepath.Join(tmp, "w.duckdb")
 				os.Remove(db)
 				sum, err := ingest.IntoFile(context.Background(), db, o, nil)
@@ -126,12 +131,16 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 					return fmt.Errorf("ingest (k=%d noise %v seed %d): %w", k, noise, seed, err)
 				}
 				e := sum.Elbow
+				table["strength"][si][e.Strength.K]++
 				table["gap"][si][e.Gap.K]++
 				table["chord"][si][e.ChordK]++
 				table["second-diff"][si][e.SecondDiffK]++
 				for _, p := range sum.WorkerTimes {
-					if p.Phase == "fit: gap statistic" {
+					switch p.Phase {
+					case "fit: gap statistic":
 						gapSeconds += p.Seconds
+					case "fit: prediction strength":
+						strengthSeconds += p.Seconds
 					}
 				}
 				runs++
@@ -161,8 +170,8 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 			fmt.Printf("accuracy %s noise %v: %d/%d = %.2f\n", r, noise, correct, total, float64(correct)/float64(total))
 		}
 	}
-	fmt.Printf("\n%d ingests in %.0f s (gap statistic: %.1f s in total, %.2f s per ingest)\n",
-		runs, time.Since(start).Seconds(), gapSeconds, gapSeconds/float64(max(runs, 1)))
+	fmt.Printf("\n%d ingests in %.0f s (gap statistic: %.1f s in total, %.2f s per ingest; prediction strength: %.1f s, %.2f s per ingest)\n",
+		runs, time.Since(start).Seconds(), gapSeconds, gapSeconds/float64(max(runs, 1)), strengthSeconds, strengthSeconds/float64(max(runs, 1)))
 	fmt.Printf("load average after: %s\n", uptime())
 	return nil
 }

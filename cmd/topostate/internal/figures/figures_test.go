@@ -81,6 +81,9 @@ func buildWarehouse(dir string) (string, error) {
 	}
 	o := ingest.Defaults()
 	o.Input, o.Window, o.StatesMin, o.StatesMax, o.Restarts, o.Grid, o.Seed, o.Analysis = cohort, 20, 2, 5, 3, "-1:1:41", 5, "figs"
+	// The figures need the three simulated states; the rule is pinned so
+	// the fixture does not follow the default rule (which picks 2 here).
+	o.KRule = "chord"
 	path := filepath.Join(dir, "w.duckdb")
 	if _, err := ingest.IntoFile(context.Background(), path, o, nil); err != nil {
 		return "", err

@@ -85,7 +85,7 @@ func TestChromiumRendersReport(t *testing.T) {
 	}
 
 	shot := filepath.Join(dir, "shot.png")
-	runChromium(t, bin, page, "--screenshot="+shot, "--window-size=1200,3000", "--hide-scrollbars")
+	runChromium(t, bin, page, "--screenshot="+shot, "--window-size=1280,3000", "--hide-scrollbars")
 	f, err := os.Open(shot)
 	if err != nil {
 		t.Fatal(err)
@@ -95,8 +95,8 @@ func TestChromiumRendersReport(t *testing.T) {
 	if err != nil {
 		t.Fatalf("screenshot: %v", err)
 	}
-	if bd := img.Bounds(); bd.Dx() != 1200 || bd.Dy() != 3000 {
-		t.Errorf("screenshot %v, want 1200 x 3000", bd)
+	if bd := img.Bounds(); bd.Dx() != 1280 || bd.Dy() != 3000 {
+		t.Errorf("screenshot %v, want 1280 x 3000", bd)
 	}
 	colours := map[color.RGBA]int{}
 	nonWhite := 0
@@ -129,7 +129,7 @@ func TestChromiumRendersReport(t *testing.T) {
 		}
 		return n
 	}
-	top := image.Rect(0, 0, 1200, 500)
+	top := image.Rect(0, 0, 1280, 500)
 	for name, c := range map[string]color.RGBA{
 		"accent #0072b2":  {0x00, 0x72, 0xb2, 0xff},
 		"caution #fff3dc": {0xff, 0xf3, 0xdc, 0xff},
