@@ -5,7 +5,9 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"slices"
+	"sync"
 
 	"gonum.org/v1/gonum/stat/distuv"
 )
@@ -258,20 +260,71 @@ func PermutationTestCurves(a, b [][]float64, nPerm int, rng *rand.Rand) (TestRes
 	for i := range idx {
 		idx[i] = i
 	}
-	count := 0
-	for range nPerm {
-		pickFirst(idx, len(a), rng)
-		clear(sumA)
-		for _, i := range idx[:len(a)] {
-			for k, x := range pooled[i] {
-				sumA[k] += x
-			}
-		}
-		if stat() >= threshold {
-			count++
-		}
-	}
+	count := countCurvePerms(pooled, total, idx, len(a), m, n, nPerm, threshold, rng)
 	return TestResult{Statistic: tObs, PValue: float64(1+count) / float64(1+nPerm)}, nil
+}
+
+// countCurvePerms counts the relabellings whose curve statistic reaches
+// threshold. The relabellings are drawn from rng one after another, exactly
+// as a serial loop would (pickFirst carries idx from one to the next), in
+// blocks; the statistics of a block are then computed by up to GOMAXPROCS
+// goroutines, each summing its relabellings' curves in the serial order,
+// so every T* and the count are bit-identical to the serial loop's. A test
+// with 1,000 subjects of 101-point curves and 9,999 relabellings is about
+// 5e8 additions: parallel work worth having on a cohort-scale warehouse.
+func countCurvePerms(pooled [][]float64, total []float64, idx []int, ma int, m, n float64, nPerm int, threshold float64, rng *rand.Rand) int {
+	g := len(total)
+	stat := func(sumA []float64) float64 {
+		var t float64
+		for k := range sumA {
+			t = max(t, math.Abs(sumA[k]/m-(total[k]-sumA[k])/n))
+		}
+		return t
+	}
+	workers := runtime.GOMAXPROCS(0)
+	if float64(nPerm)*float64(ma)*float64(g) < 1e7 {
+		workers = 1 // too little work to share
+	}
+	const block = 512
+	nb := min(block, nPerm)
+	picks := make([]int, nb*ma)
+	sums := make([][]float64, workers)
+	for w := range sums {
+		sums[w] = make([]float64, g)
+	}
+	counts := make([]int, workers)
+	var wg sync.WaitGroup
+	for done := 0; done < nPerm; done += nb {
+		nb := min(nb, nPerm-done)
+		for p := range nb {
+			pickFirst(idx, ma, rng)
+			copy(picks[p*ma:(p+1)*ma], idx[:ma])
+		}
+		for w := range workers {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				sumA := sums[w]
+				for p := w; p < nb; p += workers {
+					clear(sumA)
+					for _, i := range picks[p*ma : (p+1)*ma] {
+						for k, x := range pooled[i] {
+							sumA[k] += x
+						}
+					}
+					if stat(sumA) >= threshold {
+						counts[w]++
+					}
+				}
+			}()
+		}
+		wg.Wait()
+	}
+	count := 0
+	for _, c := range counts {
+		count += c
+	}
+	return count
 }
 
 // WelchResult is the outcome of Welch's t-test.

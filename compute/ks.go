@@ -3,6 +3,7 @@ package compute
 import (
 	"fmt"
 	"math"
+	"runtime"
 	"slices"
 )
 
@@ -37,8 +38,20 @@ func ksGap(a, b []float64) (int64, error) {
 		}
 	}
 	sa, sb := slices.Clone(a), slices.Clone(b)
-	slices.Sort(sa)
-	slices.Sort(sb)
+	if len(sa) > 1<<16 && len(sb) > 1<<16 && runtime.GOMAXPROCS(0) > 1 {
+		// Pooled events of a cohort-scale warehouse: millions of values
+		// per sample; the two sorts are independent.
+		done := make(chan struct{})
+		go func() {
+			slices.Sort(sb)
+			close(done)
+		}()
+		slices.Sort(sa)
+		<-done
+	} else {
+		slices.Sort(sa)
+		slices.Sort(sb)
+	}
 	m, n := int64(len(sa)), int64(len(sb))
 	var i, j int
 	var best int64

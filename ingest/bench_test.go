@@ -11,21 +11,25 @@ import (
 	"github.com/topostate/topostate/compute"
 )
 
-// BenchmarkParseSeries reads one series of the design size (1,200 time
-// points x 116 regions, values near a scanner offset of 1000 printed with 7
-// significant digits as WriteCohort does).
+// The series of the benchmarks: one series of a typical cohort (960 time
+// points x 100 regions; README "Performance").
+const benchT, benchP = 960, 100
+
+// BenchmarkParseSeries reads one series of a typical cohort (benchT x
+// benchP, values near a scanner offset of 1000 printed with 7 significant
+// digits as WriteCohort does).
 func BenchmarkParseSeries(b *testing.B) {
 	r := rand.New(rand.NewPCG(1, 1))
 	var buf bytes.Buffer
-	for j := range 116 {
+	for j := range benchP {
 		if j > 0 {
 			buf.WriteByte('\t')
 		}
 		fmt.Fprintf(&buf, "r%03d", j)
 	}
 	buf.WriteByte('\n')
-	for range 1200 {
-		for j := range 116 {
+	for range benchT {
+		for j := range benchP {
 			if j > 0 {
 				buf.WriteByte('\t')
 			}
@@ -42,14 +46,44 @@ func BenchmarkParseSeries(b *testing.B) {
 	}
 }
 
-// BenchmarkReadSeriesFile adds the file read and the SHA-256 checksum.
+// BenchmarkReadSeriesFile adds the file read and the SHA-256 checksum: what
+// each stage paid per series before the parsed-series cache.
 func BenchmarkReadSeriesFile(b *testing.B) {
-	dir := b.TempDir()
-	subs, err := compute.SimulateCohort(compute.CohortSpec{Subjects: 1, Regions: 116, Timepoints: 1200, States: 3, Offset: 1000, Seed: 1})
+	path := benchSeriesFile(b)
+	for b.Loop() {
+		if _, err := ReadSeriesFile(path); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkReadSeriesCache reads the same series back from the
+// parsed-series cache, as the sample and subjects stages now do.
+func BenchmarkReadSeriesCache(b *testing.B) {
+	sf, err := ReadSeriesFile(benchSeriesFile(b))
 	if err != nil {
 		b.Fatal(err)
 	}
-	names := make([]string, 116)
+	cache := filepath.Join(b.TempDir(), "series.f64")
+	if err := writeSeriesCache(cache, sf.Series); err != nil {
+		b.Fatal(err)
+	}
+	b.SetBytes(int64(8 * len(sf.Series.Data)))
+	for b.Loop() {
+		y, err := readSeriesCache(cache, sf.Series.T, sf.Series.P)
+		if err != nil || y.Data[len(y.Data)-1] != sf.Series.Data[len(y.Data)-1] {
+			b.Fatal(err, "or the last value differs")
+		}
+	}
+}
+
+func benchSeriesFile(b *testing.B) string {
+	dir := b.TempDir()
+	subs, err := compute.SimulateCohort(compute.CohortSpec{Subjects: 1, Regions: benchP, Timepoints: benchT, States: 3, Offset: 1000, Seed: 1})
+	if err != nil {
+		b.Fatal(err)
+	}
+	names := make([]string, benchP)
 	for j := range names {
 		names[j] = fmt.Sprintf("r%03d", j)
 	}
@@ -57,10 +91,5 @@ func BenchmarkReadSeriesFile(b *testing.B) {
 		[]SyntheticParticipant{{ID: subs[0].ID}}); err != nil {
 		b.Fatal(err)
 	}
-	path := filepath.Join(dir, subs[0].ID, "func", subs[0].ID+"_task-rest_timeseries.tsv")
-	for b.Loop() {
-		if _, err := ReadSeriesFile(path); err != nil {
-			b.Fatal(err)
-		}
-	}
+	return filepath.Join(dir, subs[0].ID, "func", subs[0].ID+"_task-rest_timeseries.tsv")
 }

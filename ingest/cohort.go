@@ -3,12 +3,14 @@ package ingest
 import (
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 	"runtime"
 	"slices"
 	"strings"
 	"sync"
+	"unsafe"
 
 	"github.com/topostate/topostate/compute"
 )
@@ -30,6 +32,10 @@ type Cohort struct {
 	// likewise (TaperSigmaFor). Apply puts them into the options.
 	Window  int
 	TaperSD float64
+	// TempDir is the run's temporary folder (Options.CacheSeries): the
+	// parsed-series cache and DuckDB's spill folder. "" when there is none.
+	// Close removes it.
+	TempDir string
 }
 
 // Apply returns o with the window width and taper sigma the cohort
@@ -44,6 +50,17 @@ func (c *Cohort) Apply(o Options) Options {
 	return o
 }
 
+// Close removes the cohort's temporary folder, if any. Safe to call twice
+// and on a nil Cohort.
+func (c *Cohort) Close() error {
+	if c == nil || c.TempDir == "" {
+		return nil
+	}
+	err := os.RemoveAll(c.TempDir)
+	c.TempDir = ""
+	return err
+}
+
 // SubjectInput is one series that passed validation.
 type SubjectInput struct {
 	Input
@@ -56,6 +73,8 @@ type SubjectInput struct {
 	// time points: --window and --step, or from --window-seconds and
 	// --step-seconds with its TR (windowPoints).
 	Window, Step int
+
+	cache string // the parsed series as float64 (seriesCache); "": read the file again
 }
 
 // Exclusion is a series left out under --on-bad-subject skip.
@@ -76,6 +95,7 @@ type fileCheck struct {
 	window   int
 	step     int
 	warning  string // a TR the file's header states that its sidecar contradicts
+	cache    string // where the parsed series was cached; "": not cached
 	err      error
 }
 
@@ -98,6 +118,21 @@ func LoadCohort(o Options) (*Cohort, error) {
 	}
 	c := &Cohort{Dir: o.Input, Source: src}
 	var problems Problems
+	if o.CacheSeries {
+		sweepStaleRunDirs()
+		if c.TempDir, err = os.MkdirTemp("", runDirPrefix); err != nil {
+			c.TempDir = "" // no cache: every stage reads the files again
+		} else if err := os.WriteFile(filepath.Join(c.TempDir, runOwnerFile), []byte(runOwner()), 0o644); err != nil {
+			os.RemoveAll(c.TempDir)
+			c.TempDir = ""
+		}
+	}
+	ok := false
+	defer func() {
+		if !ok {
+			c.Close()
+		}
+	}()
 
 	ppath := filepath.Join(o.Input, "participants.tsv")
 	if _, err := os.Stat(ppath); err != nil {
@@ -131,7 +166,11 @@ func LoadCohort(o Options) (*Cohort, error) {
 		go func() {
 			defer wg.Done()
 			for i := range next {
-				checks[i] = checkFile(src, inputs[i], o)
+				cache := ""
+				if c.TempDir != "" {
+					cache = filepath.Join(c.TempDir, fmt.Sprintf("series-%06d.f64", i))
+				}
+				checks[i] = checkFile(src, inputs[i], o, cache)
 			}
 		}()
 	}
@@ -288,7 +327,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 			w = ch.window
 		}
 		c.Inputs = append(c.Inputs, SubjectInput{Input: in, TR: ch.tr, TRSource: ch.trSource, SHA256: ch.sha,
-			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, w, ch.step), Window: w, Step: ch.step})
+			Timepoints: ch.T, Windows: compute.NumWindows(ch.T, w, ch.step), Window: w, Step: ch.step, cache: ch.cache})
 		if ch.warning != "" {
 			c.Warnings = append(c.Warnings, ch.warning)
 		}
@@ -327,10 +366,13 @@ func LoadCohort(o Options) (*Cohort, error) {
 	if k > windows {
 		return nil, &UsageError{Err: fmt.Errorf("%s %d is more than the %d windows of the whole cohort (%d series, --window %d, --step %d); ask for fewer states or use a shorter window or step", flag, k, windows, len(c.Inputs), c.Window, o.Step)}
 	}
+	ok = true
 	return c, nil
 }
 
-func checkFile(src *Source, in Input, o Options) fileCheck {
+// checkFile reads and checks one file; when cache is not "" the parsed
+// series is also written there (writeSeriesCache) for the stages.
+func checkFile(src *Source, in Input, o Options, cache string) fileCheck {
 	var ch fileCheck
 	sf, err := src.Read(in)
 	if err != nil {
@@ -338,6 +380,9 @@ func checkFile(src *Source, in Input, o Options) fileCheck {
 		return ch
 	}
 	ch.regions, ch.T, ch.sha = sf.Regions, sf.Series.T, sf.SHA256
+	if cache != "" && writeSeriesCache(cache, sf.Series) == nil {
+		ch.cache = cache
+	}
 	ch.constant = compute.ConstantRegions(sf.Series)
 	if o.Window > 0 && sf.Series.T >= o.Window { // a derived window is checked in LoadCohort
 		pre, win := computeOptions(o)
@@ -519,4 +564,91 @@ func similarID(id string, ids []string) string {
 		}
 	}
 	return ""
+}
+
+// The parsed-series cache: each series that passed its read at validation
+// is written once, as its T x p float64 values in the machine's byte order
+// (no header: the cohort knows T and p), to the run's temporary folder.
+// The stages read it back instead of parsing the file again (text parsing
+// is most of a read), and the values are the very numbers validation
+// parsed and hashed, so a file changed during the run cannot enter it.
+// float64, not float32: the stages then compute from exactly the numbers
+// the file gives (parsed to float64), so results are identical with or
+// without the cache; float32 would round values such as 1000.123456 (a
+// scanner offset plus signal) to about 7 digits. A series that cannot be
+// cached (a full disk) is read from its file again.
+func writeSeriesCache(path string, y compute.Series) error {
+	f, err := os.Create(path)
+	if err != nil {
+		return err
+	}
+	if _, err := f.Write(float64Bytes(y.Data)); err != nil {
+		f.Close()
+		os.Remove(path)
+		return err
+	}
+	if err := f.Close(); err != nil {
+		os.Remove(path)
+		return err
+	}
+	return nil
+}
+
+// readSeriesCache reads a series written by writeSeriesCache.
+func readSeriesCache(path string, t, p int) (compute.Series, error) {
+	y := compute.NewSeries(t, p)
+	f, err := os.Open(path)
+	if err != nil {
+		return compute.Series{}, err
+	}
+	defer f.Close()
+	if _, err := io.ReadFull(f, float64Bytes(y.Data)); err != nil {
+		return compute.Series{}, fmt.Errorf("ingest: parsed-series cache %s: %w", path, err)
+	}
+	return y, nil
+}
+
+func float64Bytes(v []float64) []byte {
+	if len(v) == 0 {
+		return nil
+	}
+	return unsafe.Slice((*byte)(unsafe.Pointer(&v[0])), len(v)*8)
+}
+
+// A run's temporary folder is $TMPDIR/topostate-run-*, holding a file
+// "owner": host name and process id. A run killed outright (SIGKILL, power
+// loss) cannot remove its folder, and the parsed series can take gigabytes,
+// so each new run removes the folders of runs of this host whose process no
+// longer exists (on Linux, where /proc tells; elsewhere nothing is removed).
+// A folder without an owner file, or of another host (a shared TMPDIR), is
+// left alone.
+const (
+	runDirPrefix = "topostate-run-"
+	runOwnerFile = "owner"
+)
+
+func runOwner() string {
+	host, _ := os.Hostname()
+	return fmt.Sprintf("%s %d", host, os.Getpid())
+}
+
+func sweepStaleRunDirs() {
+	if _, err := os.Stat("/proc/self"); err != nil {
+		return // no /proc: cannot tell a dead run from a live one
+	}
+	host, _ := os.Hostname()
+	dirs, _ := filepath.Glob(filepath.Join(os.TempDir(), runDirPrefix+"*"))
+	for _, d := range dirs {
+		b, err := os.ReadFile(filepath.Join(d, runOwnerFile))
+		if err != nil {
+			continue
+		}
+		h, pid, ok := strings.Cut(strings.TrimSpace(string(b)), " ")
+		if !ok || h != host || pid == "" || strings.ContainsAny(pid, "/.") {
+			continue
+		}
+		if _, err := os.Stat(filepath.Join("/proc", pid)); errors.Is(err, os.ErrNotExist) {
+			os.RemoveAll(d)
+		}
+	}
 }

@@ -71,6 +71,10 @@ type Options struct {
 	Seed         uint64 `json:"seed"`
 	Distance     string `json:"distance"`    // euclidean (k-means on squared Euclidean distance) | manhattan
 	FitMax       int    `json:"fit_windows"` // cap on windows used to fit the states
+	// FitMemory bounds the fitting pool in bytes (float32 values): it holds
+	// at most FitMemory / (4 D) windows of D region pairs, so the bound
+	// holds whatever the number of regions. 0: only FitMax bounds it.
+	FitMemory int64 `json:"fit_memory_bytes"`
 	// FitSample is which windows the states are fitted on: "peaks", the
 	// variance-peak windows (local maxima of each series' window variance,
 	// docs/methods.md §3), or "all".
@@ -112,6 +116,15 @@ type Options struct {
 	Analysis string `json:"-"`
 	Parquet  string `json:"-"`
 	Workers  int    `json:"-"`
+	// DBMemory is DuckDB's memory_limit for the writing connection, in
+	// bytes: beyond it the open transaction's rows spill to a temporary
+	// folder instead of growing in memory. 0: DuckDB's own default (80 %
+	// of the machine's memory). It changes no result, so it is not stored.
+	DBMemory int64 `json:"-"`
+	// CacheSeries keeps every series parsed at validation in a binary file
+	// of the run's temporary folder (Cohort.TempDir), so the stages read
+	// it instead of parsing the file again.
+	CacheSeries bool `json:"-"`
 }
 
 // DefaultMinFreq is the default f_min in Hz: 0.01 Hz, the high-pass
@@ -143,10 +156,59 @@ func Defaults() Options {
 		Window: 0, MinFreq: DefaultMinFreq, Step: 1, Taper: "none", TaperSD: 0,
 		StatesMin: 1, StatesMax: 10, KRule: "strength", GapReferences: 10, GapWindows: 400,
 		StrengthSplits: 5, StrengthWindows: 1000, StrengthThreshold: compute.DefaultStrengthThreshold, Restarts: 3, MaxIter: 50, Seed: 1,
-		Distance: "euclidean", FitMax: 20000, FitSample: "peaks",
+		Distance: "euclidean", FitMax: 20000, FitMemory: DefaultFitMemory, FitSample: "peaks",
+		DBMemory:     DefaultDBMemory,
 		Grid:         "-1:1:101",
 		OnBadSubject: "fail", ConstantRegion: "fail",
 	}
+}
+
+// DefaultFitMemory and DefaultDBMemory are the memory bounds a user gets
+// without flags: 1 GiB for the fitting pool (20,000 windows of 100 regions
+// take 396 MB, so the bound binds from about 160 regions on: 13,489
+// windows at 200 regions, 3,363 at 400) and 1 GiB for DuckDB, so that a
+// run's peak stays under 3 GB at 100 to 400 regions (README
+// "Performance").
+const (
+	DefaultFitMemory int64 = 1 << 30
+	DefaultDBMemory  int64 = 1 << 30
+)
+
+// FitCap is the most windows the fitting pool holds for regions p:
+// FitMax, or fewer when FitMemory / (4 D) is smaller, D = p(p-1)/2.
+func (o Options) FitCap(p int) int {
+	n := o.FitMax
+	if d := int64(p) * int64(p-1) / 2; o.FitMemory > 0 && d > 0 {
+		if byMem := o.FitMemory / (4 * d); byMem < int64(n) {
+			n = int(byMem)
+		}
+	}
+	return n
+}
+
+// ParseBytes reads a memory size: a whole number with an optional unit B,
+// KB, MB, GB (powers of 1000) or KiB, MiB, GiB (powers of 1024), case
+// insensitive, e.g. "1GiB", "512MiB", "2000000000".
+func ParseBytes(s string) (int64, error) {
+	t := strings.TrimSpace(s)
+	units := []struct {
+		suffix string
+		mult   int64
+	}{{"kib", 1 << 10}, {"mib", 1 << 20}, {"gib", 1 << 30}, {"tib", 1 << 40},
+		{"kb", 1e3}, {"mb", 1e6}, {"gb", 1e9}, {"tb", 1e12}, {"b", 1}}
+	mult := int64(1)
+	low := strings.ToLower(t)
+	for _, u := range units {
+		if strings.HasSuffix(low, u.suffix) {
+			mult, t = u.mult, strings.TrimSpace(t[:len(t)-len(u.suffix)])
+			break
+		}
+	}
+	v, err := strconv.ParseFloat(t, 64)
+	if err != nil || v < 0 || math.IsInf(v, 0) || v*float64(mult) > 1<<62 {
+		return 0, fmt.Errorf("%q: want a size such as 1GiB, 512MiB or 2000000000 (bytes)", s)
+	}
+	return int64(v * float64(mult)), nil
 }
 
 // olderDistance maps the distance names analyses stored before this
@@ -298,6 +360,9 @@ func (o Options) Check() error {
 	}
 	if o.FitMax < 10 {
 		bad("--fit-windows %d: too few windows to fit states", o.FitMax)
+	}
+	if o.FitMemory < 0 || o.DBMemory < 0 {
+		bad("--fit-memory and --db-memory must not be negative (0: no bound of ours)")
 	}
 	if _, _, _, err := ParseGrid(o.Grid); err != nil {
 		bad("%v", err)

@@ -11,6 +11,7 @@ import (
 	"math/rand/v2"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"slices"
 	"sort"
 	"strings"
@@ -137,6 +138,11 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 		if err := st.fit(ctx, sample); err != nil {
 			return nil, err
 		}
+		// The pool (up to --fit-memory) is garbage now: hand it back to
+		// the system before DuckDB's buffers (up to --db-memory) grow in
+		// stage 4, so the two bounds do not add up in the peak.
+		sample = compute.Matrix32{}
+		debug.FreeOSMemory()
 		sum.Elbow = st.elbow
 		lap("fit states")
 	}
@@ -153,6 +159,9 @@ func Run(ctx context.Context, db *sql.DB, c *Cohort, o Options, prog Progress) (
 	}
 
 	// Stages 3 and 4: per-subject results, written in subject order.
+	if err := limitDB(ctx, db, o.DBMemory, c.TempDir); err != nil {
+		return nil, err
+	}
 	w, err := schema.Begin(ctx, db, o.Analysis, o.Parquet)
 	if err != nil {
 		return nil, err
@@ -264,6 +273,30 @@ func preflight(ctx context.Context, db *sql.DB, c *Cohort, o Options) error {
 	return nil
 }
 
+// limitDB bounds DuckDB's memory while an analysis is written (memory
+// bytes; 0 leaves DuckDB's default) and, when tmp is not "", puts its spill
+// folder there (else DuckDB uses <warehouse>.tmp beside the file).
+// memory_limit bounds DuckDB's buffer manager (by default 80 % of the
+// machine's memory; DuckDB documentation, "Limits" and "Tuning
+// Workloads": beyond it buffers are evicted or spilled to temp_directory),
+// so the one transaction of a cohort-scale ingest cannot take the
+// machine's memory. Both settings belong to the database instance of this
+// process.
+func limitDB(ctx context.Context, db *sql.DB, memory int64, tmp string) error {
+	if tmp != "" {
+		dir := filepath.Join(tmp, "duckdb")
+		if _, err := db.ExecContext(ctx, "SET temp_directory = '"+strings.ReplaceAll(dir, "'", "''")+"'"); err != nil {
+			return fmt.Errorf("ingest: set DuckDB's temp_directory: %w", err)
+		}
+	}
+	if memory > 0 {
+		if _, err := db.ExecContext(ctx, fmt.Sprintf("SET memory_limit = '%dKiB'", max(memory>>10, 1))); err != nil {
+			return fmt.Errorf("ingest: set DuckDB's memory_limit: %w", err)
+		}
+	}
+	return nil
+}
+
 // recordAnalysis inserts the analyses row, with every option as JSON.
 func (s *stages) recordAnalysis(ctx context.Context, w *schema.Writer) error {
 	params, err := json.Marshal(s.o)
@@ -324,13 +357,18 @@ func (s *stages) setup() error {
 		s.core = s.o.Window
 	}
 	s.p = len(s.c.Keep)
+	if c := s.o.FitCap(s.p); s.o.StatesFrom == nil && c < 10 {
+		return &UsageError{Err: fmt.Errorf("--fit-memory %d bytes holds only %d windows of %d regions (%d values of 4 bytes each); raise it (at least %d bytes) or leave it at its default",
+			s.o.FitMemory, c, s.p, compute.PairCount(s.p), 10*4*int64(compute.PairCount(s.p)))}
+	}
 	for _, in := range s.c.Inputs {
 		s.totalWindows += int64(in.Windows)
 	}
 	return nil
 }
 
-// windows reads one series again and returns its window correlations.
+// windows reads one series again (from the parsed-series cache when the
+// cohort has one) and returns its window correlations.
 // stage names the stage in the worker times.
 func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error) {
 	m, _, err := s.windowsAndSeries(stage, in)
@@ -340,15 +378,23 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 // windowsAndSeries is windows that also returns the preprocessed series.
 func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix32, compute.Series, error) {
 	t := time.Now()
-	sf, err := s.c.Source.Read(in.Input)
-	if err != nil {
-		return compute.Matrix32{}, compute.Series{}, err
+	var y compute.Series
+	var err error
+	if in.cache != "" {
+		if y, err = readSeriesCache(in.cache, in.Timepoints, len(s.c.Regions)); err != nil {
+			return compute.Matrix32{}, compute.Series{}, err
+		}
+	} else {
+		sf, err := s.c.Source.Read(in.Input)
+		if err != nil {
+			return compute.Matrix32{}, compute.Series{}, err
+		}
+		if sf.SHA256 != in.SHA256 {
+			return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
+		}
+		y = sf.Series
 	}
 	t = s.work.since(stage+": read", t)
-	if sf.SHA256 != in.SHA256 {
-		return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
-	}
-	y := sf.Series
 	if len(s.c.Keep) != y.P {
 		y = subset(y, s.c.Keep)
 	}
@@ -470,41 +516,98 @@ func parallel[R any](ctx context.Context, n, workers int, fn func(i int) (R, err
 }
 
 // sample is stage 1: every subject's windows once, keeping the
-// variance-peak windows (local maxima of the window variance) or all windows, at most a fair
-// share per subject; then a uniform cap over the pool.
+// variance-peak windows (local maxima of the window variance) or all
+// windows, at most a fair share per subject; the pool keeps a uniform
+// sample of at most FitCap of them (see fitPool), so its memory is bounded
+// by --fit-windows and --fit-memory, not by the cohort.
 func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 	n := len(s.c.Inputs)
 	s.prog.Stage("sampling windows", n)
-	D := compute.PairCount(s.p)
-	// The pool holds at most perSeries rows of each series and no more
-	// rows than there are windows; variance-peak windows (local maxima of a series
-	// that changes slowly from window to window) were about a fifth of
-	// the windows on generated cohorts, so a quarter is reserved up front
-	// (the memory is touched when reserved) and append grows the pool
-	// beyond that when needed.
-	reserve := min(int64(n)*int64(s.perSeries()), s.totalWindows)
+	// Variance-peak windows (local maxima of a series that changes slowly
+	// from window to window) were about a fifth of the windows on
+	// generated cohorts, so a quarter is reserved up front and the pool
+	// grows beyond that when needed, never beyond its cap.
+	hint := min(int64(n)*int64(s.perSeries()), s.totalWindows)
 	if s.o.FitSample == "peaks" {
-		reserve = min(reserve, s.totalWindows/4)
+		hint = min(hint, s.totalWindows/4)
 	}
-	pool := make([]float32, 0, int(reserve)*D)
-	rows := 0
+	pool := s.newPool(hint)
 	err := s.sampleRange(ctx, 0, n, func(i int, rowsOf []float32) error {
-		pool = append(pool, rowsOf...)
-		rows += len(rowsOf) / D
+		pool.add(rowsOf)
 		s.prog.Add(1)
 		return nil
 	})
 	if err != nil {
 		return compute.Matrix32{}, err
 	}
-	return s.capSample(compute.Matrix32{Rows: rows, Cols: D, Data: pool}), nil
+	return s.takePool(pool), nil
 }
 
 // perSeries is the most fitting-sample windows one series gives the fitting
-// sample: ceil(2 FitMax / N) for the N series of the cohort, at least 1.
+// sample: ceil(2 C / N) for the N series of the cohort and the pool's cap
+// C = FitCap, at least 1.
 func (s *stages) perSeries() int {
 	n := len(s.c.Inputs)
-	return max(1, (2*s.o.FitMax+n-1)/n)
+	c := s.o.FitCap(s.p)
+	return max(1, (2*c+n-1)/n)
+}
+
+// newPool returns the empty fitting pool of this run: at most FitCap rows,
+// hint rows reserved.
+func (s *stages) newPool(hint int64) *fitPool {
+	return newFitPool(s.o.FitCap(s.p), compute.PairCount(s.p), hint, s.o.Seed)
+}
+
+// takePool ends stage 1: the pool's rows as the fitting sample. It sets
+// fitRows.
+func (s *stages) takePool(p *fitPool) compute.Matrix32 {
+	m := p.matrix()
+	s.fitRows = m.Rows
+	return m
+}
+
+// fitPool is the fitting sample while stage 1 runs: a uniform sample
+// without replacement of at most max of the rows offered to it, in the
+// order offered (series order), by reservoir sampling (Vitter, "Random
+// sampling with a reservoir", ACM TOMS 11(1), 1985, Algorithm R) with a
+// generator seeded from (seed, 0). Its storage never exceeds max rows, so
+// the bytes of the pool are bounded whatever the number of windows; with
+// no more than max rows offered it keeps them all, in order.
+type fitPool struct {
+	max, d int
+	seen   int64 // rows offered so far
+	data   []float32
+	rng    *rand.Rand
+}
+
+func newFitPool(most, d int, hint int64, seed uint64) *fitPool {
+	rows := int(min(int64(most), max(hint, 1)))
+	return &fitPool{max: most, d: d, data: make([]float32, 0, rows*d), rng: rand.New(rand.NewPCG(seed, 0))}
+}
+
+// add offers rows (a whole number of rows of d values) to the pool.
+func (p *fitPool) add(rows []float32) {
+	for off := 0; off+p.d <= len(rows); off += p.d {
+		row := rows[off : off+p.d]
+		p.seen++
+		if n := len(p.data) / p.d; n < p.max {
+			if len(p.data)+p.d > cap(p.data) {
+				// Grow to at most max rows: doubling, capped.
+				grown := make([]float32, len(p.data), min(2*cap(p.data)+p.d, p.max*p.d))
+				copy(grown, p.data)
+				p.data = grown
+			}
+			p.data = append(p.data, row...)
+			continue
+		}
+		if j := p.rng.Int64N(p.seen); j < int64(p.max) {
+			copy(p.data[int(j)*p.d:], row)
+		}
+	}
+}
+
+func (p *fitPool) matrix() compute.Matrix32 {
+	return compute.Matrix32{Rows: len(p.data) / p.d, Cols: p.d, Data: p.data}
 }
 
 // sampleRange runs the per-series part of stage 1 for series lo..hi-1 of
@@ -545,30 +648,6 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 	}, func(j int, rowsOf []float32) error {
 		return sink(lo+j, rowsOf)
 	})
-}
-
-// capSample is the end of stage 1: the pooled fitting-sample windows of every series in
-// series order, capped to FitMax rows drawn uniformly with a generator
-// seeded from (seed, 0), compacted in place (m's rows are overwritten). It
-// sets fitRows.
-func (s *stages) capSample(m compute.Matrix32) compute.Matrix32 {
-	rows, D := m.Rows, m.Cols
-	if rows > s.o.FitMax {
-		rng := rand.New(rand.NewPCG(s.o.Seed, 0))
-		all := make([]int, rows)
-		for r := range all {
-			all[r] = r
-		}
-		keep := pick(rng, all, s.o.FitMax)
-		// Compact in place: keep is ascending, so row r moves to c <= r
-		// and no row is overwritten before it has moved.
-		for c, r := range keep {
-			copy(m.Row(c), m.Row(r))
-		}
-		m = compute.Matrix32{Rows: len(keep), Cols: D, Data: m.Data[:len(keep)*D]}
-	}
-	s.fitRows = m.Rows
-	return m
 }
 
 // pick returns k of idx chosen uniformly without replacement, in their
@@ -1056,6 +1135,7 @@ func IntoFile(ctx context.Context, path string, o Options, prog Progress) (*Summ
 	if err != nil {
 		return nil, err
 	}
+	defer c.Close()
 	db, err := schema.Open(path, false, nil)
 	if err != nil {
 		return nil, err

@@ -168,8 +168,10 @@ func TestIngestEndToEnd(t *testing.T) {
 	}
 }
 
-// Same seed, same tables, whatever the number of workers; a second
-// analysis sits beside the first.
+// Same seed, same tables, whatever the number of workers and with or
+// without the parsed-series cache; the fitting pool is capped (40 windows
+// of about 80 offered), so the reservoir's replacements are covered too. A
+// second analysis sits beside the first.
 func TestIngestReproducible(t *testing.T) {
 	dir := makeCohort(t, 5, 10, 160, 3, 9)
 	tmp := t.TempDir()
@@ -177,10 +179,14 @@ func TestIngestReproducible(t *testing.T) {
 	o := testOptions(dir)
 	o.States = 0
 	o.StatesMin, o.StatesMax = 2, 5
-	o.Workers = 1
-	ingestInto(t, a, o)
-	o.Workers = 3
-	ingestInto(t, b, o)
+	o.FitMax = 40
+	o.Workers, o.CacheSeries = 1, false
+	sa := ingestInto(t, a, o)
+	o.Workers, o.CacheSeries = 3, true
+	sb := ingestInto(t, b, o)
+	if sa.FitWindows != 40 || sb.FitWindows != 40 {
+		t.Errorf("fitting windows %d and %d, want the cap 40", sa.FitWindows, sb.FitWindows)
+	}
 	db, err := sql.Open("duckdb", "")
 	if err != nil {
 		t.Fatal(err)

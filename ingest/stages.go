@@ -586,7 +586,8 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 
 // readSample pools the fitting-sample windows of every shard in shard order, that is in
 // series order, as stage 1 of Run does.
-func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) {
+func (w *Work) readSample(ctx context.Context, st *stages) (compute.Matrix32, error) {
+	D := compute.PairCount(st.p)
 	marks := make([]*stageMark, w.Manifest.Shards)
 	var total int64
 	for i := range marks {
@@ -600,8 +601,7 @@ func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) 
 	if err := w.verify(marks...); err != nil {
 		return compute.Matrix32{}, err
 	}
-	pool := make([]float32, 0, total*int64(D))
-	rows := 0
+	pool := st.newPool(total)
 	next := 0 // series_index must not go back
 	for i := 1; i <= w.Manifest.Shards; i++ {
 		mk := marks[i-1]
@@ -627,7 +627,7 @@ func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) 
 					return fmt.Errorf("ingest: %s: series %d after series %d", path, s, next)
 				}
 				next = s
-				pool = append(pool, vals.Float32Values()[a:b]...)
+				pool.add(vals.Float32Values()[a:b])
 			}
 			got += l.Len()
 			return nil
@@ -638,9 +638,8 @@ func (w *Work) readSample(ctx context.Context, D int) (compute.Matrix32, error) 
 		if int64(got) != mk.Rows[sampleTable] {
 			return compute.Matrix32{}, fmt.Errorf("ingest: %s has %d windows, its shard wrote %d; run stage sample --shard %d/%d again", path, got, mk.Rows[sampleTable], i, w.Manifest.Shards)
 		}
-		rows += got
 	}
-	return compute.Matrix32{Rows: rows, Cols: D, Data: pool}, nil
+	return st.takePool(pool), nil
 }
 
 // Fit is stage 2, once: the fitting-sample windows of every shard pooled in series
@@ -663,11 +662,11 @@ func (w *Work) Fit(ctx context.Context, workers int, from *StatesFrom, prog Prog
 			return nil, err
 		}
 	} else {
-		x, err := w.readSample(ctx, compute.PairCount(st.p))
+		x, err := w.readSample(ctx, st)
 		if err != nil {
 			return nil, err
 		}
-		if err := st.fit(ctx, st.capSample(x)); err != nil {
+		if err := st.fit(ctx, x); err != nil {
 			return nil, err
 		}
 	}
@@ -808,6 +807,9 @@ func (w *Work) Merge(ctx context.Context, db *sql.DB, name string, prog Progress
 	}
 	prog.Stage("merging shards", w.Manifest.Shards)
 
+	if err := limitDB(ctx, db, DefaultDBMemory, ""); err != nil {
+		return nil, err
+	}
 	sw, err := schema.Begin(ctx, db, name, "")
 	if err != nil {
 		return nil, err

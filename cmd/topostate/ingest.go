@@ -50,6 +50,7 @@ func ingestFlags() []cli.Flag {
 		&cli.Uint64Flag{Name: "seed", Value: d.Seed, Usage: "`SEED` of every random choice; same seed, same results"},
 		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance `NAME`: euclidean (k-means proper: squared Euclidean distance, centroids are means) or manhattan (L1, centroids are medians); euclidean is the default because the rules for the number of states are defined on its W(k)"},
 		&cli.IntFlag{Name: "fit-windows", Value: d.FitMax, Usage: "at most `N` windows are used to fit the states (bounds the fit's time and memory whatever the cohort size)"},
+		&cli.StringFlag{Name: "fit-memory", Value: optionSize(d.FitMemory), Usage: "at most `SIZE` bytes (e.g. 1GiB, 512MiB) of fitting windows: with p regions a window holds p(p-1)/2 float32 values, so at most SIZE / (2 p(p-1)) windows, or --fit-windows if fewer; 0: no bound but --fit-windows"},
 		&cli.StringFlag{Name: "fit-sample", Value: d.FitSample, Usage: "`WHICH` windows the states are fitted on (at most --fit-windows): peaks (windows at local maxima of each series' window variance) or all"},
 		replicationFlags()[0], replicationFlags()[1],
 		&cli.IntFlag{Name: "core-timepoints", Value: d.CoreTimepoints, Usage: "`N` core time points (under windows of one state only) per subject and state for the core networks of the group topology test (0: the window width)"},
@@ -58,6 +59,7 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},
 		&cli.StringFlag{Name: "encoding", Value: "utf-8", Usage: "text `ENCODING` of participants.tsv: utf-8, or latin1 (ISO-8859-1 / Windows-1252, as some spreadsheets save; converted to UTF-8)"},
 		&cli.StringFlag{Name: "parquet", Usage: "also write every table of this analysis as Parquet into `FOLDER`"},
+		&cli.StringFlag{Name: "db-memory", Value: optionSize(d.DBMemory), Usage: "DuckDB's memory limit `SIZE` while writing (e.g. 1GiB); beyond it the rows being written spill to the run's temporary folder; 0: DuckDB's default (80% of the machine's memory)"},
 		&cli.IntFlag{Name: "workers", Value: 0, Usage: fmt.Sprintf("`N` parallel workers (0: all %d cores); results do not depend on it", runtime.GOMAXPROCS(0))},
 		&cli.BoolFlag{Name: "quiet", Aliases: []string{"q"}, Usage: "no progress bar"},
 	}
@@ -82,8 +84,27 @@ func checkWindowFlags(c *cli.Context) error {
 	return nil
 }
 
-func ingestOptions(c *cli.Context) ingest.Options {
-	return ingest.Options{
+// optionSize writes a size the way --fit-memory and --db-memory read it.
+func optionSize(n int64) string {
+	switch {
+	case n > 0 && n%(1<<30) == 0:
+		return fmt.Sprintf("%dGiB", n>>30)
+	case n > 0 && n%(1<<20) == 0:
+		return fmt.Sprintf("%dMiB", n>>20)
+	}
+	return fmt.Sprint(n)
+}
+
+func ingestOptions(c *cli.Context) (ingest.Options, error) {
+	fitMem, err := sizeFlag(c, "fit-memory")
+	if err != nil {
+		return ingest.Options{}, err
+	}
+	dbMem, err := sizeFlag(c, "db-memory")
+	if err != nil {
+		return ingest.Options{}, err
+	}
+	return ingest.Options{FitMemory: fitMem, DBMemory: dbMem, CacheSeries: true,
 		Input: c.String("input"), TR: c.Float64("tr"), Atlas: c.String("atlas"), AtlasLabels: c.String("atlas-labels"),
 		Window: c.Int("window"), MinFreq: c.Float64("min-freq"), Step: c.Int("step"), WindowSeconds: c.Float64("window-seconds"), StepSeconds: c.Float64("step-seconds"), Taper: c.String("taper"), TaperSD: c.Float64("taper-sigma"),
 		Detrend: c.Bool("detrend"), SmoothK: c.Int("smooth-k"), SmoothSD: c.Float64("smooth-sigma"), FisherZ: c.Bool("fisher-z"),
@@ -96,7 +117,24 @@ func ingestOptions(c *cli.Context) ingest.Options {
 		OnBadSubject:   c.String("on-bad-subject"), ConstantRegion: c.String("constant-region"), Encoding: strings.TrimPrefix(c.String("encoding"), "utf-8"),
 		Analysis: c.String("analysis"), Parquet: c.String("parquet"), Workers: c.Int("workers"),
 		Surrogates: c.Int("surrogates"), SurrogateFitWindows: c.Int("surrogate-fit-windows"), SurrogateRestarts: c.Int("surrogate-restarts"),
+	}, nil
+}
+
+// sizeFlag reads a memory size option; a flag the command does not have is
+// its default.
+func sizeFlag(c *cli.Context, name string) (int64, error) {
+	if !c.IsSet(name) && c.String(name) == "" {
+		d := ingest.Defaults()
+		if name == "fit-memory" {
+			return d.FitMemory, nil
+		}
+		return d.DBMemory, nil
 	}
+	n, err := ingest.ParseBytes(c.String(name))
+	if err != nil {
+		return 0, usagef("--%s %v", name, err)
+	}
+	return n, nil
 }
 
 // checkOptions is ingest.Options.Check plus what only the command line
@@ -134,7 +172,10 @@ func ingestCommand() *cli.Command {
 			if c.NArg() > 0 {
 				return usagef("ingest takes no arguments (got %q); name the cohort with --input", c.Args().First())
 			}
-			o := ingestOptions(c)
+			o, err := ingestOptions(c)
+			if err != nil {
+				return err
+			}
 			if err := checkWindowFlags(c); err != nil {
 				return err
 			}
@@ -177,6 +218,7 @@ func runIngest(c *cli.Context, o ingest.Options, dbPath string, out io.Writer) (
 	if err != nil {
 		return nil, err
 	}
+	defer cohort.Close() // the run's temporary folder: parsed series, DuckDB's spill
 	if err := c.Context.Err(); err != nil {
 		return nil, err // interrupted while validating: do not create or open the file
 	}

@@ -45,7 +45,11 @@ func stageCommand() *cli.Command {
 					if err := need(c, "work"); err != nil {
 						return err
 					}
-					o := ingestOptions(c)
+					o, err := ingestOptions(c)
+					if err != nil {
+						return err
+					}
+					o.CacheSeries = false // the stages run as other processes: they read the files
 					if err := checkWindowFlags(c); err != nil {
 						return err
 					}
@@ -194,7 +198,7 @@ func stageCommand() *cli.Command {
 // planFlags are the ingest options that shape the analysis; the warehouse
 // file, name and Parquet copy belong to merge, and --states-from to fit.
 func planFlags() []cli.Flag {
-	skip := []string{"db", "analysis", "parquet", "states-from", "states-db", "quiet"}
+	skip := []string{"db", "analysis", "parquet", "states-from", "states-db", "quiet", "db-memory"}
 	var out []cli.Flag
 	for _, f := range ingestFlags() {
 		if v, ok := f.(cli.VisibleFlag); ok && !v.IsVisible() {

@@ -1,8 +1,11 @@
 // Command bench measures topostate ingest on a generated cohort.
 //
-//	go run ./scripts/bench                    # 400 subjects x 1,200 time points x 116 regions
+//	go run ./scripts/bench                    # a typical cohort: 300 series x 960 time points x 100 regions
 //	go run ./scripts/bench -subjects 50       # a smaller cohort
-//	go run ./scripts/bench -sweep             # the scaling sweep of README.md "Performance"
+//	go run ./scripts/bench -scale             # the scale cohort: 1,000 series x 1,000 time points x 200 regions
+//	go run ./scripts/bench -scale -queries    # ... then time every bundled query, the report and export on it
+//	go run ./scripts/bench -sweep             # the region sweep of README.md "Performance": 100..400 regions
+//	go run ./scripts/bench -check-workers     # also ingest with --workers 1 and compare every table
 //	go run ./scripts/bench -reference         # also run scripts/bench/reference.py (NumPy/scikit-learn)
 //
 // It builds the topostate command, generates each cohort once into the
@@ -64,6 +67,8 @@ type config struct {
 	keep             bool
 	reference        bool
 	python           string
+	checkWorkers     bool
+	queries          bool
 }
 
 // result is one measured ingest.
@@ -88,6 +93,11 @@ type result struct {
 	Timings       timings        `json:"timings"`
 	DBBytes       int64          `json:"warehouse_bytes"`
 	Reference     map[string]any `json:"reference,omitempty"`
+	// SameWithOneWorker: every table of a second ingest with --workers 1
+	// is identical (row counts and order-free row hashes); nil: not checked.
+	SameWithOneWorker *bool    `json:"same_with_workers_1,omitempty"`
+	WorkersDiff       []string `json:"workers_diff,omitempty"`
+	Queries           []timed  `json:"queries,omitempty"`
 }
 
 // timings is what `topostate ingest --timings` writes.
@@ -133,18 +143,23 @@ func main() {
 
 func run(args []string, stdout, stderr io.Writer) error {
 	fs := flag.NewFlagSet("bench", flag.ContinueOnError)
-	subjects := fs.Int("subjects", 400, "subjects in the cohort")
-	timepoints := fs.Int("timepoints", 1200, "time points per series")
-	regions := fs.Int("regions", 116, "regions per series")
+	subjects := fs.Int("subjects", 300, "subjects in the cohort")
+	timepoints := fs.Int("timepoints", 960, "time points per series")
+	regions := fs.Int("regions", 100, "regions per series")
 	states := fs.Int("states", 4, "latent states of the generator")
 	seed := fs.Uint64("seed", 1, "generator seed")
-	tr := fs.Float64("tr", 0.72, "repetition time written to the sidecars")
+	tr := fs.Float64("tr", 0.9, "repetition time written to the sidecars")
+	scale := fs.Bool("scale", false, "the scale cohort: 1,000 series x 1,000 time points x 200 regions (overrides -subjects, -timepoints, -regions)")
+	sweepSubjects := fs.Int("sweep-subjects", 200, "series per cohort of -sweep (1,000 time points each)")
+	checkWorkers := fs.Bool("check-workers", false, "also ingest with --workers 1 and check that every table is identical")
+	warehouse := fs.String("warehouse", "", "only time the queries, the report and export on this existing warehouse FILE (one -queries run already built it)")
+	timeQs := fs.Bool("queries", false, "then time every bundled query (its defaults; groups A and B, covariate score), the report and export of every table on the warehouse")
 	window := fs.Int("window", 50, "ingest --window")
 	step := fs.Int("step", 1, "ingest --step")
 	workers := fs.Int("workers", 0, "ingest --workers (0: all cores)")
 	cache := fs.String("cache", "", "cache folder (default scripts/bench-cache in the repository)")
 	jsonOut := fs.String("json", "", "write the results as JSON to this file (- for stdout)")
-	sweep := fs.Bool("sweep", false, "measure the scaling sweep: subjects, time points and regions at three sizes each")
+	sweep := fs.Bool("sweep", false, "measure the region sweep: -sweep-subjects series x 1,000 time points x 100, 200, 300 and 400 regions")
 	extra := fs.String("ingest-args", "", "more ingest options, space-separated (e.g. \"--scan-restarts 2\")")
 	keep := fs.Bool("keep", false, "keep the warehouse files in the cache folder")
 	reference := fs.Bool("reference", false, "also run scripts/bench/reference.py (needs python3 with numpy, scipy, scikit-learn)")
@@ -157,7 +172,8 @@ func run(args []string, stdout, stderr io.Writer) error {
 		return err
 	}
 	cfg := config{root: root, cache: *cache, states: *states, seed: *seed, tr: *tr, window: *window,
-		step: *step, workers: *workers, keep: *keep, reference: *reference, python: *python}
+		step: *step, workers: *workers, keep: *keep || *timeQs, reference: *reference, python: *python,
+		checkWorkers: *checkWorkers, queries: *timeQs}
 	if cfg.cache == "" {
 		cfg.cache = filepath.Join(root, "scripts", "bench-cache")
 	}
@@ -174,11 +190,36 @@ func run(args []string, stdout, stderr io.Writer) error {
 	if err := build.Run(); err != nil {
 		return fmt.Errorf("go build: %w", err)
 	}
+	if *warehouse != "" {
+		dir, err := os.MkdirTemp(cfg.cache, "queries-")
+		if err != nil {
+			return err
+		}
+		defer os.RemoveAll(dir)
+		r := result{Date: time.Now().UTC().Format(time.RFC3339), Machine: describeMachine()}
+		if st, err := os.Stat(*warehouse); err == nil {
+			r.DBBytes = st.Size()
+		}
+		q, err := timeQueries(cfg, *warehouse, dir, stderr)
+		r.Queries = q
+		printQueries(stdout, r)
+		if err != nil {
+			return err
+		}
+		if *jsonOut != "" {
+			b, _ := json.MarshalIndent(r, "", "  ")
+			return os.WriteFile(*jsonOut, append(b, '\n'), 0o644)
+		}
+		return nil
+	}
 	timeCmd := findGNUTime(stderr)
 
 	sizes := []size{{*subjects, *timepoints, *regions}}
+	if *scale {
+		sizes = []size{scaleSize}
+	}
 	if *sweep {
-		sizes = sweepSizes()
+		sizes = sweepSizes(*sweepSubjects)
 	}
 	var results []result
 	for _, sz := range sizes {
@@ -189,6 +230,7 @@ func run(args []string, stdout, stderr io.Writer) error {
 		results = append(results, r)
 		if !*sweep {
 			printResult(stdout, r)
+			printQueries(stdout, r)
 		}
 	}
 	if *sweep {
@@ -216,14 +258,15 @@ func run(args []string, stdout, stderr io.Writer) error {
 	return nil
 }
 
-// sweepSizes: three sizes of each of subjects, time points and regions
-// around a 100 x 1,200 x 116 middle, small enough to finish in minutes.
-func sweepSizes() []size {
-	return []size{
-		{50, 1200, 116}, {100, 1200, 116}, {200, 1200, 116},
-		{100, 300, 116}, {100, 600, 116},
-		{100, 1200, 58}, {100, 1200, 82},
-	}
+// scaleSize is the cohort of the performance goal (README "Performance"):
+// 1,000 series x 1,000 time points x 200 regions, 951,000 windows of
+// 19,900 region pairs at window 50.
+var scaleSize = size{1000, 1000, 200}
+
+// sweepSizes: n series x 1,000 time points at 100, 200, 300 and 400
+// regions (4,950 to 79,800 region pairs per window).
+func sweepSizes(n int) []size {
+	return []size{{n, 1000, 100}, {n, 1000, 200}, {n, 1000, 300}, {n, 1000, 400}}
 }
 
 func moduleRoot() (string, error) {
@@ -363,6 +406,18 @@ func measure(cfg config, sz size, timeCmd string, stderr io.Writer) (result, err
 		fmt.Fprintf(stderr, "bench: state recovery not measured: %v\n", err)
 	} else {
 		r.ARI = &ari
+	}
+	if cfg.checkWorkers {
+		if err := compareWorkers(cfg, dir, db, args, &r, stderr); err != nil {
+			return r, err
+		}
+	}
+	if cfg.queries {
+		q, err := timeQueries(cfg, db, runDir, stderr)
+		if err != nil {
+			return r, err
+		}
+		r.Queries = q
 	}
 	if cfg.reference {
 		ref, err := runReference(cfg, dir, stderr)

@@ -6,7 +6,8 @@ import (
 )
 
 // The lines of GNU time -v that the harness reads, in the format of the
-// Debian "time" package (values from the 400-subject run of README.md).
+// Debian "time" package (the values are made up; the layout is that of
+// the package's output).
 func TestParseGNUTime(t *testing.T) {
 	out := `	Command being timed: "topostate ingest --input c --db d"
 	User time (seconds): 80.01

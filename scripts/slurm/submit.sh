@@ -27,32 +27,39 @@
 # an earlier analysis and the sample stage is skipped.
 #
 # Resource requests. Measured with `/usr/bin/time -f %M` (peak resident
-# memory) on a generated cohort of 48 series x 116 regions x 1200 time
-# points in 3 shards of 16 series, 2 workers per stage, on a 2-core machine
-# (README, "Large cohorts"). A series of T time points and p regions has
-# W = T - window + 1 windows of D = p(p-1)/2 values; one series' windows,
-# W x D x 4 bytes (31 MB here), are held per busy worker. Scale the numbers
-# for your own T, p and cohort size.
+# memory) on a generated cohort of 48 series x 100 regions x 960 time
+# points (window 50) in 3 shards of 16 series, 2 workers per stage, on a
+# 2-core machine that other jobs kept at a 1-minute load average of 37-40
+# (2 December 2026): the wall times below are those of a crowded machine,
+# the CPU times (user) what the stage itself needed. A series of T time
+# points and p regions has W = T - window + 1 windows of D = p(p-1)/2
+# values; one series' windows, W x D x 4 bytes (18 MB here), are held per
+# busy worker. Scale the numbers for your own T, p and cohort size.
 #
 #  plan     reads and checksums every file once (validation of the whole
 #           cohort: constant regions, one region list, duplicates) with all
-#           its cores: 62 MB, 0.3-0.9 s for 48 series (about 10 ms of one
+#           its cores: 63 MB, 0.6 s CPU for 48 series (about 12 ms of one
 #           core per series here: minutes for thousands).
-#  sample   260-290 MB per shard, nearly independent of its size (rows go
-#           to Parquet every 16 MB of values): about 200 MB plus one
-#           series' windows per worker. 1.0-1.5 s per 16 series.
-#  fit      the one large job: the pooled fitting sample, R rows x D x 4 bytes
-#           (R = 12,745 here: 340 MB; at most about 2 x --fit-windows rows,
-#           1.07 GB for p = 116 and the default 20,000), about 2.8 times that
-#           at the peak with k-means' work arrays: 960 MB here, so 4G covers
-#           p = 116 at the defaults. k-means uses every core it gets: 3.6-5 s
-#           for a fixed k = 4 (5 restarts), 45 s for the default elbow scan
-#           k = 2..10, on 2 cores.
-#  compute  165-225 MB per shard with 2 workers, independent of its size
-#           (rows go to Parquet every million rows). 0.7-1.2 s per 16 series.
+#  sample   200-215 MB per shard, nearly independent of its size (rows go
+#           to Parquet every 16 MB of values): about 170 MB plus one
+#           series' windows per worker. 1.0-1.1 s CPU per 16 series.
+#  fit      the one large job: the fitting pool, at most
+#           min(--fit-windows, --fit-memory / (4 D)) rows of D float32
+#           values (a uniform reservoir sample of the shards' windows, so
+#           it never holds more): 8,805 rows here (174 MB), 467 MB at the
+#           peak with k-means' work arrays. At the defaults the pool is at
+#           most 1 GiB whatever p (20,000 windows up to p = 164, fewer
+#           beyond: 13,489 at p = 200), so 4G covers any p. k-means uses
+#           every core it gets: 30 s CPU for the default elbow scan
+#           k = 2..10 here.
+#  compute  135-150 MB per shard with 2 workers, independent of its size
+#           (rows go to Parquet every million rows). 1.3-1.4 s CPU per 16
+#           series.
 #  merge    one DuckDB transaction over every shard's files, one core:
-#           400-440 MB, 1.2-1.9 s for 48 series (1.28 million filtration
-#           events); it grows with the cohort.
+#           347 MB, 0.9 s CPU for 48 series (712,800 filtration events).
+#           DuckDB's memory is capped at 1 GiB while it writes (beyond it
+#           the transaction spills to <warehouse>.tmp beside the file), so
+#           4G covers cohorts of any size.
 #
 # Times below are generous ceilings; --time must only be long enough, but a
 # shorter limit gets a job scheduled sooner on most clusters. Each stage's
