@@ -353,7 +353,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 	out := map[Key]*Tally{}
 	var skips []string
 	for _, q := range append(slices.Clip(qs), cfg.Extra...) {
-		values := map[string]string{"group_column": "group", "group_a": "A", "group_b": "B"}
+		values := map[string]string{"analysis": "latest", "group_column": "group", "group_a": "A", "group_b": "B"}
 		if _, ok := q.Param("n_perm"); ok && cfg.NPerm > 0 {
 			values["n_perm"] = strconv.Itoa(cfg.NPerm)
 		}
