@@ -215,8 +215,9 @@ func writeSurrogateTests(ctx context.Context, db *sql.DB, dbPath string, w io.Wr
 			return fmt.Errorf("info: %w", err)
 		}
 		t := tests[id]
+		name = schema.Printable(name) // a stored name may hold control characters
 		if len(t) == 0 {
-			fmt.Fprintf(w, "analysis %d (%s): no surrogate test; add one with 'topostate surrogates --db %s --analysis %s --n 99'\n", id, name, dbPath, name)
+			fmt.Fprintf(w, "analysis %d (%s): no surrogate test; add one with 'topostate surrogates --db %s --analysis %d --n 99'\n", id, name, shellWord(dbPath), id)
 			continue
 		}
 		fmt.Fprintf(w, "analysis %d (%s): %s\n", id, name, surrogateHeadline(t))
