@@ -854,6 +854,13 @@ func (w *Work) Merge(ctx context.Context, db *sql.DB, name string, prog Progress
 			return nil, err
 		}
 	}
+	// The covariates' descriptions (participants.json), written by plan
+	// beside the subjects; a plan without covariates has no file of them.
+	if n := w.Manifest.Counts[schema.Covariates]; n > 0 {
+		if err := appendFile(schema.Covariates, onceShard, n); err != nil {
+			return nil, err
+		}
+	}
 	for _, t := range []string{schema.Elbow, schema.StateCentroids} {
 		if err := appendFile(t, onceShard, fit.Rows[t]); err != nil {
 			return nil, err

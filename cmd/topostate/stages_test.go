@@ -80,7 +80,7 @@ func sameAnalysis(t *testing.T, a, b string, nonEmpty ...string) {
 	}
 	for _, table := range []string{"analyses", "inputs", "excluded_inputs", "subjects", "regions", "elbow", "state_centroids",
 		"state_sequence", "state_metrics", "subject_dynamics", "transitions", "betti_curves", "filtration_events", "state_networks",
-		"surrogate_tests"} {
+		"surrogate_tests", "covariates", "core_betti_curves"} {
 		cols := "*"
 		if table == "analyses" {
 			cols = "* EXCLUDE (created_at)"

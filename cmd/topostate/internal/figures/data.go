@@ -29,9 +29,10 @@ var ErrUsage = errors.New("figures: bad request")
 type Data struct {
 	AnalysisID int
 	Name       string
-	States     int  // k
-	Regions    int  // p, regions in the networks
-	FisherZ    bool // centroids are Fisher z, not r
+	States     int    // k
+	Regions    int    // p, regions in the networks
+	FisherZ    bool   // centroids are Fisher z, not r
+	KRule      string // --k-rule that picked k from the scan ("chord" for analyses from before --k-rule)
 	Group      string
 	Groups     []Group // in sorted order of their names
 
@@ -87,8 +88,9 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 	if err != nil {
 		return nil, err
 	}
-	err = db.QueryRowContext(ctx, `SELECT analysis_id, name, n_states, n_regions, coalesce(parameters->>'fisher_z' = 'true', false)
-		FROM analyses WHERE analysis_id = ?`, a.ID).Scan(&d.AnalysisID, &d.Name, &d.States, &d.Regions, &d.FisherZ)
+	err = db.QueryRowContext(ctx, `SELECT analysis_id, name, n_states, n_regions, coalesce(parameters->>'fisher_z' = 'true', false),
+		coalesce(nullif(parameters->>'k_rule', ''), 'chord')
+		FROM analyses WHERE analysis_id = ?`, a.ID).Scan(&d.AnalysisID, &d.Name, &d.States, &d.Regions, &d.FisherZ, &d.KRule)
 	if err != nil {
 		return nil, fmt.Errorf("figures: %w", err)
 	}

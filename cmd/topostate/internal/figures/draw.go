@@ -368,10 +368,10 @@ func elbowFigure(d *Data) *Figure {
 		var glyph draw.GlyphDrawer
 		var col color.Color
 		switch {
-		case e.Chosen && e.SecondDf:
-			label, glyph, col = fmt.Sprintf("used: k = %d (farthest from the chord; the largest second difference agrees)", e.K), draw.RingGlyph{}, markColour
+		case e.Chosen && e.SecondDf && d.KRule != "second-diff":
+			label, glyph, col = fmt.Sprintf("used: k = %d (%s; the largest second difference agrees)", e.K, kRuleLabel(d.KRule)), draw.RingGlyph{}, markColour
 		case e.Chosen:
-			label, glyph, col = fmt.Sprintf("used: k = %d", e.K), draw.RingGlyph{}, markColour
+			label, glyph, col = fmt.Sprintf("used: k = %d (%s)", e.K, kRuleLabel(d.KRule)), draw.RingGlyph{}, markColour
 		case e.SecondDf:
 			label, glyph, col = fmt.Sprintf("largest second difference: k = %d (not used)", e.K), draw.TriangleGlyph{}, groupColours[0]
 		default:
@@ -387,6 +387,22 @@ func elbowFigure(d *Data) *Figure {
 	p.Legend.Top = true
 	f.Panels[0][0] = p
 	return f
+}
+
+// kRuleLabel names the --k-rule that picked k, for the elbow figure's
+// legend (docs/methods.md §3).
+func kRuleLabel(rule string) string {
+	switch rule {
+	case "strength":
+		return "prediction strength"
+	case "gap":
+		return "gap statistic"
+	case "chord":
+		return "farthest from the chord"
+	case "second-diff":
+		return "largest second difference"
+	}
+	return "rule " + rule
 }
 
 // metricFigure: per state, one box per group (median, quartiles, whiskers

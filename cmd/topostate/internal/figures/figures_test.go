@@ -513,3 +513,40 @@ func TestBettiRange(t *testing.T) {
 		})
 	}
 }
+
+// The elbow figure's legend names the rule that picked k (the analysis's
+// stored k_rule), not the chord elbow whatever the rule: an analysis whose
+// k was chosen by prediction strength once read "farthest from the chord".
+func TestElbowLegendNamesRule(t *testing.T) {
+	db := openRO(t)
+	d := load(t, db)
+	var stored string
+	if err := db.QueryRow(`SELECT parameters->>'k_rule' FROM analyses WHERE name = 'figs'`).Scan(&stored); err != nil {
+		t.Fatal(err)
+	}
+	if d.KRule != stored || stored != "chord" {
+		t.Fatalf("KRule %q, stored k_rule %q (the fixture pins chord)", d.KRule, stored)
+	}
+	for rule, want := range map[string]string{"chord": "farthest from the chord", "strength": "prediction strength",
+		"gap": "gap statistic", "second-diff": "largest second difference"} {
+		dd := *d
+		dd.KRule = rule
+		f := elbowFigure(&dd)
+		path := filepath.Join(t.TempDir(), "elbow.svg")
+		if err := f.Write(path, 72); err != nil {
+			t.Fatal(err)
+		}
+		var used []string
+		for _, s := range svgTexts(t, path) {
+			if strings.HasPrefix(s, "used: k = ") {
+				used = append(used, s)
+			}
+		}
+		if len(used) != 1 || !strings.Contains(used[0], "("+want) {
+			t.Errorf("rule %s: legend %q, want one 'used: k = %d (%s...'", rule, used, d.States, want)
+		}
+		if rule != "chord" && strings.Contains(used[0], "chord") {
+			t.Errorf("rule %s: legend %q names the chord", rule, used[0])
+		}
+	}
+}

@@ -132,8 +132,10 @@ type Covariate struct {
 type Elbow struct {
 	Fixed      bool // k was given with --states
 	Used       int
-	Chord      int // k of the chord-distance rule (0: none recorded)
-	SecondDiff int // k of the largest second difference (0: none recorded)
+	Rule       string // --k-rule that picked k (stored k_rule; "chord" before --k-rule)
+	RuleName   string // Rule in words
+	Chord      int    // k of the chord-distance rule (0: none recorded)
+	SecondDiff int    // k of the largest second difference (0: none recorded)
 	Table      *Table
 }
 
@@ -227,33 +229,40 @@ func (r *Report) loadAnalysis(ctx context.Context, conn *sql.Conn, d *figures.Da
 // settingMeaning explains the ingest options stored in analyses.parameters
 // (the JSON names of ingest.Options).
 var settingMeaning = map[string]string{
-	"input":             "cohort folder read",
-	"tr_seconds_option": "repetition time given on the command line, s (0: each file's sidecar or header)",
-	"window":            "sliding-window width, time points",
-	"step":              "step between window starts, time points",
-	"taper":             "window weights: none (rectangle) or gauss (rectangle convolved with a Gaussian)",
-	"taper_sigma":       "Gaussian sigma of the taper, time points",
-	"detrend":           "a linear trend removed from every region first",
-	"smooth_k":          "cosine-series terms kept (0: no smoothing)",
-	"smooth_sigma":      "heat-kernel weight of the cosine smoothing",
-	"fisher_z":          "windows clustered as Fisher z = atanh(r)",
-	"states":            "number of states fixed by the user (0: chosen by the elbow)",
-	"states_min":        "smallest k of the elbow scan",
-	"states_max":        "largest k of the elbow scan",
-	"k_rule":            "rule that picked k from the scan: gap, chord or second-diff (absent: chord)",
-	"gap_references":    "uniform reference sets of the gap statistic (B)",
-	"gap_windows":       "most fitting windows used by the gap statistic",
-	"restarts":          "k-means restarts; the lowest within-cluster sum of squares is kept",
-	"max_iter":          "k-means iterations at most",
-	"seed":              "random seed of sampling and k-means",
-	"distance":          "k-means distance: euclidean (squared Euclidean, means) or manhattan (L1, medians)",
-	"fit_windows":       "most windows used to fit the states",
-	"fit_sample":        "windows the states were fitted on: peaks (local maxima of each series' window variance) or all",
-	"grid":              "Betti-curve thresholds lo:hi:n, correlation scale",
-	"on_bad_subject":    "a series with problems stops the run (fail) or is left out (skip)",
-	"constant_region":   "a constant region stops the run (fail) or is dropped everywhere (drop)",
-	"atlas":             "label image the region means of NIfTI inputs came from",
-	"atlas_labels":      "label table naming the atlas regions",
+	"input":              "cohort folder read",
+	"tr_seconds_option":  "repetition time given on the command line, s (0: each file's sidecar or header)",
+	"window":             "sliding-window width, time points",
+	"step":               "step between window starts, time points",
+	"taper":              "window weights: none (rectangle) or gauss (rectangle convolved with a Gaussian)",
+	"taper_sigma":        "Gaussian sigma of the taper, time points",
+	"detrend":            "a linear trend removed from every region first",
+	"smooth_k":           "cosine-series terms kept (0: no smoothing)",
+	"smooth_sigma":       "heat-kernel weight of the cosine smoothing",
+	"fisher_z":           "windows clustered as Fisher z = atanh(r)",
+	"states":             "number of states fixed by the user (0: chosen from the scan by k_rule)",
+	"states_min":         "smallest k of the scan",
+	"states_max":         "largest k of the scan",
+	"k_rule":             "rule that picked k from the scan: strength (prediction strength), gap, chord or second-diff (absent: chord)",
+	"strength_splits":    "prediction strength: random halvings of the fitting windows",
+	"strength_windows":   "prediction strength: most fitting windows used",
+	"strength_threshold": "prediction strength a k must reach to be picked",
+	"scan_restarts":      "k-means restarts per k of the scan (0: restarts)",
+	"min_freq_hz":        "slowest frequency the series keep, Hz; sets the default window (1 / (min_freq_hz x TR) time points)",
+	"fit_memory_bytes":   "most bytes of fitting windows (0: only fit_windows bounds them)",
+	"core_timepoints":    "core time points per subject and state for the group topology test (0: the window width)",
+	"gap_references":     "uniform reference sets of the gap statistic (B)",
+	"gap_windows":        "most fitting windows used by the gap statistic",
+	"restarts":           "k-means restarts; the lowest within-cluster sum of squares is kept",
+	"max_iter":           "k-means iterations at most",
+	"seed":               "random seed of sampling and k-means",
+	"distance":           "k-means distance: euclidean (squared Euclidean, means) or manhattan (L1, medians)",
+	"fit_windows":        "most windows used to fit the states",
+	"fit_sample":         "windows the states were fitted on: peaks (local maxima of each series' window variance) or all",
+	"grid":               "Betti-curve thresholds lo:hi:n, correlation scale",
+	"on_bad_subject":     "a series with problems stops the run (fail) or is left out (skip)",
+	"constant_region":    "a constant region stops the run (fail) or is dropped everywhere (drop)",
+	"atlas":              "label image the region means of NIfTI inputs came from",
+	"atlas_labels":       "label table naming the atlas regions",
 }
 
 // settings reads a JSON object's members in their stored order; scalar
@@ -467,6 +476,12 @@ func (r *Report) loadFigures(d *figures.Data) error {
 func (r *Report) loadElbow(d *figures.Data) {
 	e := &r.Elbow
 	e.Used = d.States
+	e.Rule = d.KRule
+	e.RuleName = map[string]string{"strength": "prediction strength", "gap": "the gap statistic",
+		"chord": "the chord rule", "second-diff": "the largest second difference"}[d.KRule]
+	if e.RuleName == "" {
+		e.RuleName = "rule " + d.KRule
+	}
 	if len(d.Elbow) == 0 {
 		e.Fixed = true
 		return

@@ -478,6 +478,20 @@ func TestCohortSummary(t *testing.T) {
 		!strings.Contains(states, fmt.Sprintf("picks k = %d", chord)) || !strings.Contains(states, fmt.Sprintf("curve picks k = %d", second)) {
 		t.Errorf("elbow picks: report %d/%d, table %d/%d; text: %s", r.Elbow.Chord, r.Elbow.SecondDiff, chord, second, states)
 	}
+	// The rule that chose k is the stored k_rule, named in words (an analysis
+	// whose k came from prediction strength once read as chosen by the chord).
+	var rule string
+	db.QueryRow(`SELECT parameters->>'k_rule' FROM analyses`).Scan(&rule)
+	words := map[string]string{"strength": "prediction strength", "gap": "the gap statistic", "chord": "the chord rule", "second-diff": "the largest second difference"}[rule]
+	if words == "" || !strings.Contains(states, "chosen by "+words+" (--k-rule "+rule+";") {
+		t.Errorf("k_rule %q not named in: %s", rule, states)
+	}
+	// Every stored setting has its meaning beside it.
+	for _, st := range r.Settings {
+		if st.Meaning == "" {
+			t.Errorf("setting %s has no meaning in the report", st.Key)
+		}
+	}
 }
 
 // ---- the numbers ----
