@@ -20,7 +20,7 @@
 #
 # Usage:
 #   INPUT=/data/cohort WORK=/scratch/$USER/tsw DB=/data/warehouse.duckdb \
-#   ANALYSIS=discovery SHARDS=40 INGEST_OPTS="--window 30 --seed 7" \
+#   ANALYSIS=discovery SHARDS=40 INGEST_OPTS="--seed 7" \
 #   scripts/slurm/submit.sh
 #
 # With STATES_FROM=NAME STATES_DB=FILE the fit stage reuses the states of
@@ -50,8 +50,9 @@
 #           peak with k-means' work arrays. At the defaults the pool is at
 #           most 1 GiB whatever p (20,000 windows up to p = 164, fewer
 #           beyond: 13,489 at p = 200), so 4G covers any p. k-means uses
-#           every core it gets: 30 s CPU for the default elbow scan
-#           k = 2..10 here.
+#           every core it gets: 30 s CPU for the elbow scan k = 2..10
+#           of an earlier default here (the default choice of k now
+#           also computes prediction strength: README, Number of states).
 #  compute  135-150 MB per shard with 2 workers, independent of its size
 #           (rows go to Parquet every million rows). 1.3-1.4 s CPU per 16
 #           series.
