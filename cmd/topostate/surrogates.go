@@ -13,6 +13,7 @@ import (
 	"github.com/urfave/cli/v2"
 
 	"github.com/topostate/topostate/ingest"
+	"github.com/topostate/topostate/queries"
 	"github.com/topostate/topostate/schema"
 )
 
@@ -36,7 +37,7 @@ func surrogatesCommand() *cli.Command {
 			"touches no other row. docs/methods.md §10.",
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE`"},
-			&cli.StringFlag{Name: "analysis", Usage: "`NAME` of the analysis to test (see 'topostate info')"},
+			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.IntFlag{Name: "n", Usage: "`N` surrogates (19 or more; 99 for p down to 0.01)"},
 			&cli.IntFlag{Name: "fit-windows", Usage: fmt.Sprintf("each run fits its states on at most `N` windows (0: %d)", ingest.DefaultSurrogateFitWindows)},
 			&cli.IntFlag{Name: "restarts", Usage: fmt.Sprintf("k-means restarts of each run, `N` (0: %d)", ingest.DefaultSurrogateRestarts)},
@@ -49,10 +50,7 @@ func surrogatesCommand() *cli.Command {
 			if c.NArg() > 0 {
 				return usagef("surrogates takes no arguments (got %q)", c.Args().First())
 			}
-			name, path := c.String("analysis"), c.String("db")
-			if name == "" {
-				return usagef("surrogates: --analysis NAME is required; 'topostate info --db %s' lists the analyses", path)
-			}
+			path := c.String("db")
 			if c.Int("workers") < 0 {
 				return usagef("surrogates: --workers %d: must not be negative", c.Int("workers"))
 			}
@@ -74,6 +72,13 @@ func surrogatesCommand() *cli.Command {
 				return err
 			}
 			defer db.Close()
+			// One rule for which analysis (queries.FindAnalysis): left out,
+			// the only one; else an id, a name or latest.
+			a, err := queries.FindAnalysis(c.Context, db, c.String("analysis"))
+			if err != nil {
+				return usageError{fmt.Errorf("surrogates: %w", err)}
+			}
+			name := a.Name
 			var prog ingest.Progress
 			if p := newProgress(c.App.ErrWriter, c.Bool("quiet")); p != nil {
 				prog = p

@@ -81,10 +81,12 @@ func TestSurrogatesCommand(t *testing.T) {
 		t.Fatalf("ingest: %s", r.stderr)
 	}
 	later := filepath.Join(tmp, "later.duckdb")
-	if r := runCmd(t, cmdOpts{args: []string{"info", "--db", later}}); !strings.Contains(r.stdout, "no surrogate test") {
-		t.Errorf("info without a test:\n%s", r.stdout)
+	if r := runCmd(t, cmdOpts{args: []string{"info", "--db", later}}); !strings.Contains(r.stdout, "no surrogate test") || !strings.Contains(r.stdout, "--analysis 1 --n 99") {
+		t.Errorf("info without a test (want the command naming the analysis by id):\n%s", r.stdout)
 	}
-	r = runCmd(t, cmdOpts{args: []string{"surrogates", "-q", "--db", later, "--analysis", "a", "--n", "19", "--workers", "1"}})
+	// The command info suggests names the analysis by id; an id, a name or
+	// nothing (the only analysis) pick it, as in every command.
+	r = runCmd(t, cmdOpts{args: []string{"surrogates", "-q", "--db", later, "--analysis", "1", "--n", "19", "--workers", "1"}})
 	if r.code != 0 || !strings.Contains(r.stdout, "states more distinct") {
 		t.Fatalf("surrogates: exit %d\n%s%s", r.code, r.stdout, r.stderr)
 	}
