@@ -625,16 +625,7 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 			return nil, err
 		}
 		defer s.work.since("sample: peaks", time.Now())
-		idx := make([]int, m.Rows)
-		for r := range idx {
-			idx[r] = r
-		}
-		if s.o.FitSample == "peaks" {
-			idx = compute.LocalMaxima(compute.WindowVariance(m))
-			if len(idx) == 0 {
-				idx = []int{m.Rows / 2}
-			}
-		}
+		idx := fitCandidates(m, s.o.FitSample)
 		if len(idx) > perSubject {
 			rng := rand.New(rand.NewPCG(s.o.Seed, uint64(i)+1))
 			idx = pick(rng, idx, perSubject)
@@ -1142,4 +1133,23 @@ func IntoFile(ctx context.Context, path string, o Options, prog Progress) (*Summ
 	}
 	defer db.Close()
 	return Run(ctx, db, c, o, prog)
+}
+
+// fitCandidates returns the windows (rows of m) of one series that may enter
+// the fitting sample: every window with --fit-sample all, else the local
+// maxima of window variance, or the middle window when there is none
+// (docs/methods.md §3). The analysis's sample and every surrogate run draw
+// from it.
+func fitCandidates(m compute.Matrix32, fitSample string) []int {
+	if fitSample == "peaks" {
+		if idx := compute.LocalMaxima(compute.WindowVariance(m)); len(idx) > 0 {
+			return idx
+		}
+		return []int{m.Rows / 2}
+	}
+	idx := make([]int, m.Rows)
+	for r := range idx {
+		idx[r] = r
+	}
+	return idx
 }

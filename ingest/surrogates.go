@@ -225,16 +225,7 @@ func (s *stages) surrogateRun(ctx context.Context, cache *seriesCache, set Surro
 		if s.k < 2 {
 			continue
 		}
-		idx := make([]int, m.Rows)
-		for r := range idx {
-			idx[r] = r
-		}
-		if s.o.FitSample == "peaks" {
-			idx = compute.LocalMaxima(compute.WindowVariance(m))
-			if len(idx) == 0 {
-				idx = []int{m.Rows / 2}
-			}
-		}
+		idx := fitCandidates(m, s.o.FitSample)
 		if len(idx) > perSeries {
 			idx = pick(rand.New(rand.NewPCG(s.o.Seed, surrStream(streamPick, run, i))), idx, perSeries)
 		}
