@@ -759,15 +759,7 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 		s.c.Warnings = append(s.c.Warnings, fmt.Sprintf("the k-means fit at k = %d stopped at --max-iter %d before converging (relative change of W above 1e-6); its states may move with more iterations: raise --max-iter", s.k, s.o.MaxIter))
 	}
 	// Relabel: most frequent state first, ties by old label.
-	count := make([]int, s.k)
-	for _, l := range res.Labels {
-		count[l]++
-	}
-	order := make([]int, s.k)
-	for i := range order {
-		order[i] = i
-	}
-	slices.SortStableFunc(order, func(a, b int) int { return cmp.Compare(count[b], count[a]) })
+	order, count := frequencyOrder(res.Labels, s.k)
 	s.cent = compute.NewMatrix32(s.k, x.Cols)
 	s.sampleK = make([]int, s.k)
 	for newL, oldL := range order {
@@ -1152,4 +1144,21 @@ func fitCandidates(m compute.Matrix32, fitSample string) []int {
 		idx[r] = r
 	}
 	return idx
+}
+
+// frequencyOrder returns the k labels ordered by how often they occur in
+// labels, most frequent first, ties by label (the relabelling that makes
+// state 1 the most frequent state of the fitting sample), and the count of
+// each label.
+func frequencyOrder(labels []int, k int) (order, count []int) {
+	count = make([]int, k)
+	for _, l := range labels {
+		count[l]++
+	}
+	order = make([]int, k)
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortStableFunc(order, func(a, b int) int { return cmp.Compare(count[b], count[a]) })
+	return order, count
 }

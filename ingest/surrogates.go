@@ -265,15 +265,7 @@ func (s *stages) surrogateRun(ctx context.Context, cache *seriesCache, set Surro
 	}
 	quality := compute.ClusterQuality(res.WCSS, res1.WCSS)
 	// Relabel as the analysis does: most frequent state in the sample first.
-	count := make([]int, s.k)
-	for _, l := range res.Labels {
-		count[l]++
-	}
-	order := make([]int, s.k)
-	for i := range order {
-		order[i] = i
-	}
-	slices.SortStableFunc(order, func(a, b int) int { return count[b] - count[a] })
+	order, _ := frequencyOrder(res.Labels, s.k)
 	cent := compute.NewMatrix32(s.k, D)
 	for newL, oldL := range order {
 		copy(cent.Row(newL), res.Centroids.Row(oldL))
