@@ -30,7 +30,7 @@ type timed struct {
 // requiredParam fills the parameters a bundled query declares without a
 // default, for the generated cohort: its groups are A and B and its
 // numeric covariate is score (topostate simulate).
-var requiredParam = map[string]string{"group_a": "A", "group_b": "B", "covariate": "score"}
+var requiredParam = map[string]string{"analysis": "latest", "group_a": "A", "group_b": "B", "covariate": "score"}
 
 // Goals of README "Performance": a bundled query with its defaults in
 // under 1 s, the report in under 10 s; export has none (it is timed).
