@@ -1,6 +1,7 @@
 package main
 
 import (
+	"context"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -74,19 +75,9 @@ func stageCommand() *cli.Command {
 				Name:  "sample",
 				Usage: "stage 1 for one shard: the fitting-sample windows its series contribute to the fit",
 				Flags: []cli.Flag{work, shard, workers, quiet},
-				Action: func(c *cli.Context) error {
-					w, sh, err := openShard(c)
-					if err != nil {
-						return err
-					}
-					lowerGC()
-					s, err := w.Sample(c.Context, sh, c.Int("workers"), progress(c))
-					if err != nil {
-						return err
-					}
-					fmt.Fprintf(c.App.Writer, "shard %s: %d series, %d fitting-sample windows (%.1fs)\n", s.Shard, s.Series, s.Rows["fit_sample"], s.Seconds)
-					return nil
-				},
+				Action: shardStage((*ingest.Work).Sample, func(s *ingest.ShardSummary) string {
+					return fmt.Sprintf("%d series, %d fitting-sample windows", s.Series, s.Rows["fit_sample"])
+				}),
 			},
 			{
 				Name:  "fit",
@@ -128,41 +119,21 @@ func stageCommand() *cli.Command {
 				Name:  "compute",
 				Usage: "stage 3 for one shard: assign every window, dwell times, transitions, Betti curves and events",
 				Flags: []cli.Flag{work, shard, workers, quiet},
-				Action: func(c *cli.Context) error {
-					w, sh, err := openShard(c)
-					if err != nil {
-						return err
-					}
-					lowerGC()
-					s, err := w.Compute(c.Context, sh, c.Int("workers"), progress(c))
-					if err != nil {
-						return err
-					}
+				Action: shardStage((*ingest.Work).Compute, func(s *ingest.ShardSummary) string {
 					var rows int64
 					for _, n := range s.Rows {
 						rows += n
 					}
-					fmt.Fprintf(c.App.Writer, "shard %s: %d series, %d rows (%.1fs)\n", s.Shard, s.Series, rows, s.Seconds)
-					return nil
-				},
+					return fmt.Sprintf("%d series, %d rows", s.Series, rows)
+				}),
 			},
 			{
 				Name:  "surrogates",
 				Usage: "after fit, per shard: the surrogate-data test runs of this shard (plan with --surrogates N)",
 				Flags: []cli.Flag{work, shard, workers, quiet},
-				Action: func(c *cli.Context) error {
-					w, sh, err := openShard(c)
-					if err != nil {
-						return err
-					}
-					lowerGC()
-					s, err := w.Surrogates(c.Context, sh, c.Int("workers"), progress(c))
-					if err != nil {
-						return err
-					}
-					fmt.Fprintf(c.App.Writer, "shard %s: %d surrogate runs (%.1fs)\n", s.Shard, s.Series, s.Seconds)
-					return nil
-				},
+				Action: shardStage((*ingest.Work).Surrogates, func(s *ingest.ShardSummary) string {
+					return fmt.Sprintf("%d surrogate runs", s.Series)
+				}),
 			},
 			{
 				Name:  "merge",
@@ -244,6 +215,25 @@ func openShard(c *cli.Context) (*ingest.Work, ingest.Shard, error) {
 	}
 	w, err := ingest.OpenWork(c.String("work"))
 	return w, sh, err
+}
+
+// shardStage is the action of a stage run per shard (sample, compute,
+// surrogates): open the work folder and the shard, run the stage, and print
+// one line, "shard i/n: <what> (seconds)".
+func shardStage(run func(*ingest.Work, context.Context, ingest.Shard, int, ingest.Progress) (*ingest.ShardSummary, error), what func(*ingest.ShardSummary) string) cli.ActionFunc {
+	return func(c *cli.Context) error {
+		w, sh, err := openShard(c)
+		if err != nil {
+			return err
+		}
+		lowerGC()
+		s, err := run(w, c.Context, sh, c.Int("workers"), progress(c))
+		if err != nil {
+			return err
+		}
+		fmt.Fprintf(c.App.Writer, "shard %s: %s (%.1fs)\n", s.Shard, what(s), s.Seconds)
+		return nil
+	}
 }
 
 func progress(c *cli.Context) ingest.Progress {
