@@ -4,6 +4,7 @@ import (
 	"context"
 	"database/sql"
 	"errors"
+	"fmt"
 	"os"
 	"path/filepath"
 	"strings"
@@ -147,7 +148,6 @@ func TestOpenRefusesOptionPaths(t *testing.T) {
 // state_networks gains core_timepoints, NULL for the old rows, and the old
 // rows are kept. DuckDB's information_schema is the referee.
 func TestUpgradeLayout2(t *testing.T) {
-	ctx := context.Background()
 	ddl := DDL()
 	i := strings.Index(ddl, "CREATE TABLE IF NOT EXISTS core_betti_curves (")
 	j := i + strings.Index(ddl[i:], "\n);") + 3
@@ -159,28 +159,7 @@ func TestUpgradeLayout2(t *testing.T) {
 		t.Fatal("the DDL no longer has the layout-3 additions this test removes")
 	}
 	ddl = ddl[:k] + "    tree_weight DOUBLE NOT NULL\n" + ddl[end:]
-	path := tempPath(t)
-	c, err := duckdb.NewConnector(path, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	raw := sql.OpenDB(c)
-	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (2, now())`,
-		`INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5)`} {
-		if _, err := raw.Exec(q); err != nil {
-			raw.Close()
-			t.Fatalf("%v\n%s", err, q)
-		}
-	}
-	raw.Close()
-	db, err := Open(path, false, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
-	if from, err := Upgrade(ctx, db); err != nil || from != 2 {
-		t.Fatalf("Upgrade: from %d, %v", from, err)
-	}
+	db := upgradedFrom(t, ddl, 2, `INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5)`)
 	for _, tc := range []struct{ table, column string }{{"core_betti_curves", "betti"}, {"state_networks", "core_timepoints"}} {
 		var n int
 		db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = ? AND column_name = ?`, tc.table, tc.column).Scan(&n)
@@ -200,7 +179,6 @@ func TestUpgradeLayout2(t *testing.T) {
 // 4: the four columns appear, NULL for the old rows, and the old values
 // are kept.
 func TestUpgradeLayout3(t *testing.T) {
-	ctx := context.Background()
 	ddl := ddlV1
 	for _, c := range []string{"n_complete_dwells", "n_censored_dwells", "complete_dwell_windows", "complete_dwell_seconds"} {
 		i := strings.Index(ddl, "    "+c+" ")
@@ -212,28 +190,7 @@ func TestUpgradeLayout3(t *testing.T) {
 	}
 	// The last column left now ends with a comma before ");".
 	ddl = strings.Replace(ddl, "mean_dwell_seconds DOUBLE,", "mean_dwell_seconds DOUBLE ", 1)
-	path := tempPath(t)
-	c, err := duckdb.NewConnector(path, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	raw := sql.OpenDB(c)
-	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (3, now())`,
-		`INSERT INTO state_metrics VALUES (1, 's1', '', 1, 0.5, 3, 4.0, 8.0)`} {
-		if _, err := raw.Exec(q); err != nil {
-			raw.Close()
-			t.Fatalf("%v\n%s", err, q)
-		}
-	}
-	raw.Close()
-	db, err := Open(path, false, nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
-	if from, err := Upgrade(ctx, db); err != nil || from != 3 {
-		t.Fatalf("Upgrade: from %d, %v", from, err)
-	}
+	db := upgradedFrom(t, ddl, 3, `INSERT INTO state_metrics VALUES (1, 's1', '', 1, 0.5, 3, 4.0, 8.0)`)
 	var v int
 	if err := db.QueryRow(`SELECT max(version) FROM schema_version`).Scan(&v); err != nil || v != 4 || Version != 4 {
 		t.Errorf("version %d after the upgrade (%v), want 4", v, err)
@@ -252,7 +209,6 @@ func TestUpgradeLayout3(t *testing.T) {
 // surrogate_tests table of layout 4) in place: the table appears and the
 // old rows are kept. DuckDB's information_schema is the referee.
 func TestUpgradeLayout3Surrogates(t *testing.T) {
-	ctx := context.Background()
 	ddl := DDL()
 	i := strings.Index(ddl, "CREATE TABLE IF NOT EXISTS surrogate_tests (")
 	if i < 0 {
@@ -260,14 +216,27 @@ func TestUpgradeLayout3Surrogates(t *testing.T) {
 	}
 	j := i + strings.Index(ddl[i:], "\n);") + 3
 	ddl = ddl[:i] + ddl[j:]
+	db := upgradedFrom(t, ddl, 3, `INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5, NULL)`)
+	var n, rows int
+	db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = 'surrogate_tests'`).Scan(&n)
+	db.QueryRow(`SELECT count(*) FROM state_networks`).Scan(&rows)
+	if n != 13 || rows != 1 {
+		t.Errorf("after the upgrade: surrogate_tests has %d columns (want 13), state_networks %d rows (want 1)", n, rows)
+	}
+}
+
+// upgradedFrom writes a file of layout `from` with ddl and the rows of
+// inserts, opens it and upgrades it in place (schema.Upgrade must report
+// `from`), and returns the open database, closed when the test ends.
+func upgradedFrom(t *testing.T, ddl string, from int, inserts ...string) *sql.DB {
+	t.Helper()
 	path := tempPath(t)
 	c, err := duckdb.NewConnector(path, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
 	raw := sql.OpenDB(c)
-	for _, q := range []string{ddl, `INSERT INTO schema_version VALUES (3, now())`,
-		`INSERT INTO state_networks VALUES (1, 'sub-01', '', 1, 10, 0.2, 1.5, NULL)`} {
+	for _, q := range append([]string{ddl, fmt.Sprintf("INSERT INTO schema_version VALUES (%d, now())", from)}, inserts...) {
 		if _, err := raw.Exec(q); err != nil {
 			raw.Close()
 			t.Fatalf("%v\n%s", err, q)
@@ -278,14 +247,9 @@ func TestUpgradeLayout3Surrogates(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer db.Close()
-	if from, err := Upgrade(ctx, db); err != nil || from != 3 {
-		t.Fatalf("Upgrade: from %d, %v", from, err)
+	t.Cleanup(func() { db.Close() })
+	if got, err := Upgrade(context.Background(), db); err != nil || got != int64(from) {
+		t.Fatalf("Upgrade: from %d, %v; want from %d", got, err, from)
 	}
-	var n, rows int
-	db.QueryRow(`SELECT count(*) FROM information_schema.columns WHERE table_name = 'surrogate_tests'`).Scan(&n)
-	db.QueryRow(`SELECT count(*) FROM state_networks`).Scan(&rows)
-	if n != 13 || rows != 1 {
-		t.Errorf("after the upgrade: surrogate_tests has %d columns (want 13), state_networks %d rows (want 1)", n, rows)
-	}
+	return db
 }
