@@ -376,7 +376,8 @@ func (h *elkan) assignRow(i int, buf *scratch, b int) {
 		h.upper[i] = u
 		return
 	}
-	bd := h.dist2(i, a)
+	xn := h.f.xn[i]
+	bd := max(xn+h.cn[a]-2*dot32(x.Row(i), h.c.Row(a)), 0) // dist2 from the float32 centre, the same value
 	u = math.Sqrt(bd)
 	lo[a] = u
 	keep := cand[:0]
@@ -388,8 +389,7 @@ func (h *elkan) assignRow(i int, buf *scratch, b int) {
 	best := a
 	if len(keep) > 0 {
 		dots := buf.dots[:len(keep)]
-		dotsIdx(x.Row(i), h.cw, keep, dots)
-		xn := h.f.xn[i]
+		dotsIdx32(x.Row(i), h.c, keep, dots)
 		for t, c := range keep {
 			dc := max(xn+h.cn[c]-2*dots[t], 0)
 			lo[c] = math.Sqrt(dc)
