@@ -43,6 +43,7 @@ type Data struct {
 	Transitions [][][]float64  // [group][from-1][to-1]: mean probability over series; NaN when no series left from
 	TransN      [][][]int      // [group][from-1][to-1]: series averaged into each cell
 	Centroids   [][][]float64  // [state-1][i][j]: centroid weight, symmetric; NaN on the diagonal
+	RegionNames []string       // [region_index-1]: region_name of table regions; nil when the analysis stores none
 	Notes       []string       // what was left out, for the caller to print
 	groupIndex  map[string]int // group name -> index in Groups
 }
@@ -124,6 +125,7 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 		func() error { return d.loadMetrics(ctx, db, groupExpr, from("state_metrics")) },
 		func() error { return d.loadTransitions(ctx, db, groupExpr, from("transitions")) },
 		func() error { return d.loadCentroids(ctx, db) },
+		func() error { return d.loadRegionNames(ctx, db) },
 	} {
 		if err := step(); err != nil {
 			return nil, fmt.Errorf("figures: analysis %q: %w", d.Name, err)
@@ -349,4 +351,39 @@ func (d *Data) loadCentroids(ctx context.Context, db *sql.DB) error {
 		d.Centroids[s-1][j-1][i-1] = w
 	}
 	return rows.Err()
+}
+
+// loadRegionNames reads the names of the regions in the networks (table
+// regions, by region_index). It leaves RegionNames nil when the indexes do
+// not run 1..Regions or when every name is the one ingest generates for a
+// .npy column without names (region_001, ...): such names say no more
+// than the number.
+func (d *Data) loadRegionNames(ctx context.Context, db *sql.DB) error {
+	rows, err := db.QueryContext(ctx, `SELECT region_index, column_index, region_name FROM regions
+		WHERE analysis_id = ? AND region_index IS NOT NULL ORDER BY region_index`, d.AnalysisID)
+	if err != nil {
+		return err
+	}
+	defer rows.Close()
+	var names []string
+	generated := true
+	for rows.Next() {
+		var idx, col int
+		var name string
+		if err := rows.Scan(&idx, &col, &name); err != nil {
+			return err
+		}
+		if idx != len(names)+1 {
+			return fmt.Errorf("table regions: region_index %d follows %d", idx, len(names))
+		}
+		names = append(names, name)
+		generated = generated && name == fmt.Sprintf("region_%03d", col)
+	}
+	if err := rows.Err(); err != nil {
+		return err
+	}
+	if len(names) == d.Regions && !generated {
+		d.RegionNames = names
+	}
+	return nil
 }
