@@ -1,6 +1,7 @@
 package main
 
 import (
+	"fmt"
 	"os"
 	"path/filepath"
 	"regexp"
@@ -478,5 +479,94 @@ func TestSessionIDCodebook(t *testing.T) {
 	csvb, _ := os.ReadFile(filepath.Join(out, "inputs.csv"))
 	if !strings.Contains(string(csvb), "sub-001,,") {
 		t.Errorf("inputs.csv:\n%s", csvb)
+	}
+}
+
+// flatten sets column col (0-based) of a series file to one value on the
+// time points from..from+n-1 (0-based; line 1 is the header).
+func flattenStretch(t *testing.T, path string, col, from, n int) {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(string(b), "\n"), "\n")
+	if from+n >= len(lines) {
+		t.Fatalf("%s has %d time points", path, len(lines)-1)
+	}
+	for tp := from; tp < from+n; tp++ {
+		cells := strings.Split(lines[1+tp], "\t")
+		cells[col] = "100.25"
+		lines[1+tp] = strings.Join(cells, "\t")
+	}
+	if err := os.WriteFile(path, []byte(strings.Join(lines, "\n")+"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// With --window-seconds in a cohort of two TRs, the undefined-window check
+// at validation (shared by ingest, --on-bad-subject skip and stage plan)
+// uses each series' own window in points, not one window for the cohort:
+// 16 s is 20 points at TR 0.8 s and 8 points at TR 2 s. A region constant
+// over exactly 20 points of a TR-0.8 series makes one of its windows
+// undefined: refused at validation, skipped with --on-bad-subject skip
+// (it once reached the computation, which stopped the run even under
+// skip). A region constant over 7 points of a TR-2 series is fine at its
+// own 8 points and must not be refused, although a 7-point window (what
+// --min-freq 0.2 gives at the cohort's shortest TR) would be undefined.
+func TestWindowSecondsUndefinedWindowPerSeries(t *testing.T) {
+	tmp := t.TempDir()
+	run := func(args ...string) result { return runCmd(t, cmdOpts{args: args}) }
+	series := func(dir, sub string) string {
+		return filepath.Join(dir, sub, "func", sub+"_task-rest_timeseries.tsv")
+	}
+
+	// Fine at its own window: 7 constant points in a TR-2 series (window 8).
+	fine := mixedTRCohort(t)
+	flattenStretch(t, series(fine, "sub-004"), 1, 30, 7)
+	for _, extra := range [][]string{nil, {"--min-freq", "0.2"}} {
+		db := filepath.Join(tmp, fmt.Sprintf("fine%d.duckdb", len(extra)))
+		r := run(append([]string{"ingest", "--input", fine, "--db", db, "--window-seconds", "16", "--states", "2", "-q"}, extra...)...)
+		if r.code != 0 {
+			t.Fatalf("7 constant points at a window of 8 (%v): exit %d\n%s", extra, r.code, r.stderr)
+		}
+		if got := querySQL(t, db, `SELECT count(*) || ' ' || max(window_points) FILTER (WHERE subject_id = 'sub-004') FROM inputs`); got != "6 8" {
+			t.Errorf("%v: inputs %q, want 6 series with sub-004 at 8 points", extra, got)
+		}
+	}
+
+	// Undefined at its own window: 20 constant points in a TR-0.8 series.
+	bad := mixedTRCohort(t)
+	flattenStretch(t, series(bad, "sub-001"), 1, 40, 20)
+	want := `sub-001_task-rest_timeseries.tsv: column 2: a window's correlations are undefined: region "node002" does not vary over time points 41..60, lines 42..61 (window 41 of 20 time points)`
+	db := filepath.Join(tmp, "bad.duckdb")
+	r := run("ingest", "--input", bad, "--db", db, "--window-seconds", "16", "--states", "2", "-q")
+	if r.code != 1 || !strings.Contains(r.stderr, want) || !strings.Contains(r.stderr, "nothing was written") {
+		t.Errorf("20 constant points at a window of 20: exit %d\n%s", r.code, r.stderr)
+	}
+	if _, err := os.Stat(db); err == nil {
+		t.Error("the refused ingest left a warehouse")
+	}
+	// 19 constant points are fine at 20.
+	ok19 := mixedTRCohort(t)
+	flattenStretch(t, series(ok19, "sub-001"), 1, 40, 19)
+	if r := run("ingest", "--input", ok19, "--db", filepath.Join(tmp, "ok19.duckdb"), "--window-seconds", "16", "--states", "2", "-q"); r.code != 0 {
+		t.Errorf("19 constant points at a window of 20: exit %d\n%s", r.code, r.stderr)
+	}
+	// --on-bad-subject skip: left out at validation, by ingest and stage plan.
+	r = run("ingest", "--input", bad, "--db", db, "--window-seconds", "16", "--states", "2", "-q", "--on-bad-subject", "skip")
+	if r.code != 0 {
+		t.Fatalf("skip: exit %d\n%s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM excluded_inputs WHERE path LIKE '%sub-001%' AND reason LIKE '%does not vary over time points 41..60%'`); got != "1" {
+		t.Errorf("excluded_inputs: %s rows for sub-001", got)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM inputs`); got != "5" {
+		t.Errorf("%s series analysed, want 5", got)
+	}
+	out := mustRun(t, "stage", "plan", "--work", filepath.Join(tmp, "work"), "--shards", "2", "--input", bad,
+		"--window-seconds", "16", "--states", "2", "--on-bad-subject", "skip")
+	if !strings.Contains(out, "planned 5 series") || !strings.Contains(out, "(1 excluded)") {
+		t.Errorf("stage plan with skip: %s", out)
 	}
 }
