@@ -332,7 +332,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 			c.Warnings = append(c.Warnings, ch.warning)
 		}
 	}
-	if err := mixedTR(o, c.Inputs); err != nil {
+	if err := mixedTR(o, c.Window, c.Inputs); err != nil {
 		problems = append(problems, err)
 	}
 	c.Warnings = append(c.Warnings, windowDurations(o, c.Inputs)...)

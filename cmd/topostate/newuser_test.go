@@ -521,6 +521,13 @@ func TestWindowSecondsUndefinedWindowPerSeries(t *testing.T) {
 		return filepath.Join(dir, sub, "func", sub+"_task-rest_timeseries.tsv")
 	}
 
+	// Without a window option the refusal names the default window (125
+	// points: ceil(1 / (0.01 Hz x 0.8 s))), not "--window 0".
+	r := run("ingest", "--input", mixedTRCohort(t), "--db", filepath.Join(tmp, "default.duckdb"), "--states", "2", "-q")
+	if r.code != exitUsage || !strings.Contains(r.stderr, "the default window (125 time points: 1/--min-freq at the shortest TR) counts time points") || strings.Contains(r.stderr, "--window 0") {
+		t.Errorf("mixed TR, default window: exit %d: %s", r.code, r.stderr)
+	}
+
 	// Fine at its own window: 7 constant points in a TR-2 series (window 8).
 	fine := mixedTRCohort(t)
 	flattenStretch(t, series(fine, "sub-004"), 1, 30, 7)
@@ -540,7 +547,7 @@ func TestWindowSecondsUndefinedWindowPerSeries(t *testing.T) {
 	flattenStretch(t, series(bad, "sub-001"), 1, 40, 20)
 	want := `sub-001_task-rest_timeseries.tsv: column 2: a window's correlations are undefined: region "node002" does not vary over time points 41..60, lines 42..61 (window 41 of 20 time points)`
 	db := filepath.Join(tmp, "bad.duckdb")
-	r := run("ingest", "--input", bad, "--db", db, "--window-seconds", "16", "--states", "2", "-q")
+	r = run("ingest", "--input", bad, "--db", db, "--window-seconds", "16", "--states", "2", "-q")
 	if r.code != 1 || !strings.Contains(r.stderr, want) || !strings.Contains(r.stderr, "nothing was written") {
 		t.Errorf("20 constant points at a window of 20: exit %d\n%s", r.code, r.stderr)
 	}

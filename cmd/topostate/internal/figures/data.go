@@ -25,6 +25,18 @@ const NoGroup = "all series"
 // error.
 var ErrUsage = errors.New("figures: bad request")
 
+// requestError is a usage error whose message is only what went wrong
+// (the command names itself); errors.Is(err, ErrUsage) holds.
+type requestError struct{ err error }
+
+func (e *requestError) Error() string        { return e.err.Error() }
+func (e *requestError) Unwrap() error        { return e.err }
+func (e *requestError) Is(target error) bool { return target == ErrUsage }
+
+func usagef(format string, args ...any) error {
+	return &requestError{fmt.Errorf(format, args...)}
+}
+
 // Data is everything the figures of one analysis show.
 type Data struct {
 	AnalysisID int
@@ -84,7 +96,7 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 	d := &Data{}
 	a, err := queries.FindAnalysis(ctx, db, name)
 	if errors.Is(err, queries.ErrNoAnalysis) || errors.Is(err, queries.ErrAnalysisAmbiguous) {
-		return nil, fmt.Errorf("%w: %w", ErrUsage, err)
+		return nil, &requestError{err}
 	}
 	if err != nil {
 		return nil, err
@@ -109,7 +121,7 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 		case defaultGroup:
 			d.Notes = append(d.Notes, fmt.Sprintf("the subjects table has no column %q; every series is drawn as one group (choose a column with --group)", group))
 		default:
-			return nil, fmt.Errorf("%w: the subjects table has no column %q; its covariates are: %s", ErrUsage, group, strings.Join(cols, ", "))
+			return nil, usagef("the subjects table has no column %q; its covariates are: %s", group, strings.Join(cols, ", "))
 		}
 	}
 	from := func(table string) string {
@@ -171,7 +183,7 @@ func (d *Data) loadGroups(ctx context.Context, db *sql.DB, groupExpr, from strin
 		return fmt.Errorf("figures: %w", err)
 	}
 	if len(d.Groups) > MaxGroups {
-		return fmt.Errorf("%w: column %q has %d values; the figures compare at most %d groups (choose a grouping column with --group)", ErrUsage, d.Group, len(d.Groups), MaxGroups)
+		return usagef("column %q has %d values; the figures compare at most %d groups (choose a grouping column with --group)", d.Group, len(d.Groups), MaxGroups)
 	}
 	if len(d.Groups) == 0 {
 		return fmt.Errorf("figures: analysis %q has no series", d.Name)
