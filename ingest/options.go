@@ -64,7 +64,7 @@ type Options struct {
 	// whatever KRule is (scripts/kchoice compares the rules on one scan).
 	AllRules bool `json:"-"`
 	Restarts int  `json:"restarts"`
-	// ScanRestarts is the number of restarts per k of the elbow scan; the
+	// ScanRestarts is the number of restarts per k of the scan of k; the
 	// picked k then gets the rest up to Restarts. 0 means Restarts.
 	ScanRestarts int    `json:"scan_restarts"`
 	MaxIter      int    `json:"max_iter"`

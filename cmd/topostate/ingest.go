@@ -45,7 +45,7 @@ func ingestFlags() []cli.Flag {
 		&cli.IntFlag{Name: "gap-references", Value: d.GapReferences, Usage: "`B` uniform reference sets of the gap statistic"},
 		&cli.IntFlag{Name: "gap-windows", Value: d.GapWindows, Usage: "the gap statistic uses at most `N` of the fitting windows (a uniform subsample)"},
 		&cli.IntFlag{Name: "restarts", Value: d.Restarts, Usage: "k-means restarts: the best of `N` fits is kept (3: on simulated cohorts with 3 and 5 states, 3 restarts always reached the best W(k) found with up to 10; scripts/convergence)"},
-		&cli.IntFlag{Name: "scan-restarts", Value: d.ScanRestarts, Usage: "`N` restarts per k of the elbow scan (0: --restarts); the picked k gets the rest up to --restarts"},
+		&cli.IntFlag{Name: "scan-restarts", Value: d.ScanRestarts, Usage: "`N` restarts per k of the scan of k (0: --restarts); the picked k gets the rest up to --restarts"},
 		&cli.IntFlag{Name: "max-iter", Value: d.MaxIter, Usage: "at most `N` k-means iterations per restart (50: the best restart converged within 25 on simulated cohorts, about 13 on average; a fit that reaches the cap is reported)"},
 		&cli.Uint64Flag{Name: "seed", Value: d.Seed, Usage: "`SEED` of every random choice; same seed, same results"},
 		&cli.StringFlag{Name: "distance", Value: d.Distance, Usage: "k-means distance `NAME`: euclidean (k-means proper: squared Euclidean distance, centroids are means) or manhattan (L1, centroids are medians); euclidean is the default because the rules for the number of states are defined on its W(k)"},

@@ -383,7 +383,7 @@ func TestReadmeOptionsMatchHelp(t *testing.T) {
 	}
 	// Commands in README's table exist; no help shows a bare "value".
 	for _, args := range [][]string{{"demo"}, {"ingest"}, {"stage", "plan"}, {"stage", "sample"}, {"stage", "fit"}, {"stage", "compute"},
-		{"stage", "merge"}, {"simulate"}, {"info"}, {"drop"}, {"upgrade"}, {"query"}, {"export"}, {"plot"}, {"report"}} {
+		{"stage", "surrogates"}, {"stage", "merge"}, {"simulate"}, {"info"}, {"drop"}, {"surrogates"}, {"upgrade"}, {"query"}, {"export"}, {"plot"}, {"report"}} {
 		code, out, _ := topostate(append(args, "--help")...)
 		if code != 0 || !strings.Contains(readme, "`topostate "+args[0]) {
 			t.Errorf("%v: exit %d, or not in README's commands table", args, code)
@@ -394,6 +394,48 @@ func TestReadmeOptionsMatchHelp(t *testing.T) {
 		if strings.Contains(out, "--analysis") && !strings.Contains(out, "--analysis ID") && args[0] != "ingest" && args[0] != "stage" {
 			t.Errorf("%v: --analysis is not shown as ID", args)
 		}
+	}
+	// The placeholders README shows (`--out FOLDER`, `--param KEY=VALUE`,
+	// `-n N`) are the ones --help shows, in the commands table and in the
+	// ingest options table.
+	i = strings.Index(readme, "| command | what it does |")
+	if i < 0 {
+		t.Fatal("README has no commands table")
+	}
+	commands := readme[i:]
+	commands = commands[:strings.Index(commands, "\n\n")]
+	placeholder := regexp.MustCompile("(-{1,2}[a-z][a-z-]*) ([A-Z][A-Z=]*)\\b")
+	checked := 0
+	for _, line := range strings.Split(commands, "\n") {
+		m := regexp.MustCompile("^\\| `topostate ([a-z]+)([^`]*)`").FindStringSubmatch(line)
+		if m == nil {
+			continue
+		}
+		args := []string{m[1]}
+		if m[1] == "stage" {
+			args = append(args, "plan")
+		}
+		_, out, _ := topostate(append(args, "--help")...)
+		for _, p := range placeholder.FindAllStringSubmatch(m[2], -1) {
+			checked++
+			if !regexp.MustCompile(`(^|\n|, )\s*` + regexp.QuoteMeta(p[0]) + `(\s|,)`).MatchString(out) {
+				t.Errorf("README's commands table shows %q for %s; %v --help does not", p[0], m[1], args)
+			}
+		}
+	}
+	for _, line := range strings.Split(table, "\n") {
+		if !strings.HasPrefix(line, "| `--") {
+			continue
+		}
+		for _, p := range placeholder.FindAllStringSubmatch(strings.Split(line, " | ")[0], -1) {
+			checked++
+			if !strings.Contains(help, "   "+p[0]+" ") && !strings.Contains(help, "   "+p[0]+",") {
+				t.Errorf("README's options table shows %q; ingest --help does not", p[0])
+			}
+		}
+	}
+	if checked < 15 {
+		t.Errorf("%d placeholders checked", checked)
 	}
 	if strings.Contains(help, "--tr SECONDS") && strings.Contains(help, "(default: 0)") && regexp.MustCompile(`--tr SECONDS.*\(default: 0\)`).MatchString(help) {
 		t.Error("--tr shows (default: 0)")

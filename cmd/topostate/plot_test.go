@@ -66,7 +66,7 @@ func TestPlotCommand(t *testing.T) {
 	if code, _, se := call("ingest", "--input", cohort, "--db", db, "--window", "20", "--states", "2", "--fisher-z", "--analysis", "z", "-q"); code != 0 {
 		t.Fatalf("ingest: %d %s", code, se)
 	}
-	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.Contains(se, `holds 2 analyses: 1 ("t"), 2 ("z")`) {
+	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.HasPrefix(se, `plot: no analysis chosen: the warehouse holds 2 analyses: 1 ("t"), 2 ("z")`) {
 		t.Errorf("two analyses without --analysis: %d %s", code, se)
 	}
 	zdir := filepath.Join(dir, "z")
