@@ -85,7 +85,10 @@ type Options struct {
 	// every covering window carries the state's label) from which each
 	// subject's core state network is computed for the group test of
 	// topology (docs/methods.md §7); a subject and state with fewer has no
-	// core network. 0 means the window width.
+	// core network. 0 means the window width; with WindowSeconds, the
+	// widest window in points of any series (N must be one number for
+	// every subject, and no core network is then estimated from fewer
+	// points than a window).
 	CoreTimepoints int `json:"core_timepoints"`
 
 	// Surrogates is N, the phase-randomised surrogates of the surrogate-data

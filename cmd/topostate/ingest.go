@@ -53,7 +53,7 @@ func ingestFlags() []cli.Flag {
 		&cli.StringFlag{Name: "fit-memory", Value: optionSize(d.FitMemory), Usage: "at most `SIZE` bytes (e.g. 1GiB, 512MiB) of fitting windows: with p regions a window holds p(p-1)/2 float32 values, so at most SIZE / (2 p(p-1)) windows, or --fit-windows if fewer; 0: no bound but --fit-windows"},
 		&cli.StringFlag{Name: "fit-sample", Value: d.FitSample, Usage: "`WHICH` windows the states are fitted on (at most --fit-windows): peaks (windows at local maxima of each series' window variance) or all"},
 		replicationFlags()[0], replicationFlags()[1],
-		&cli.IntFlag{Name: "core-timepoints", Value: d.CoreTimepoints, Usage: "`N` core time points (under windows of one state only) per subject and state for the core networks of the group topology test (0: the window width)"},
+		&cli.IntFlag{Name: "core-timepoints", Value: d.CoreTimepoints, Usage: "`N` core time points (under windows of one state only) per subject and state for the core networks of the group topology test (0: the window width; with --window-seconds, the widest window in points of any series)"},
 		&cli.StringFlag{Name: "grid", Value: d.Grid, Usage: "Betti-curve thresholds `lo:hi:n` on the correlation scale"},
 		&cli.StringFlag{Name: "on-bad-subject", Value: d.OnBadSubject, Usage: "`POLICY` fail, or skip a series with problems (recorded in excluded_inputs)"},
 		&cli.StringFlag{Name: "constant-region", Value: d.ConstantRegion, Usage: "`POLICY` fail, or drop a constant region from every subject (recorded in regions)"},

@@ -583,6 +583,18 @@ func TestWindowSecondsUndefinedWindowPerSeries(t *testing.T) {
 			t.Errorf("%v: inputs %q, want 6 series with sub-004 at 8 points", extra, got)
 		}
 	}
+	// The core networks of the group topology test (docs/methods.md §7)
+	// are over N = the widest window in points, 20, for every series (N
+	// was once the --min-freq window, 125 points, which no series used, so
+	// nearly no subject had a core network): a subject and state has one
+	// exactly when it has at least 20 core time points.
+	db0 := filepath.Join(tmp, "fine0.duckdb")
+	if got := querySQL(t, db0, `SELECT count(*) FILTER (WHERE (n.core_timepoints >= 20) <> (c.subject_id IS NOT NULL))
+		|| ' ' || count(DISTINCT i.tr_seconds) FILTER (WHERE c.subject_id IS NOT NULL)
+		FROM state_networks n JOIN inputs i USING (analysis_id, subject_id, session_id)
+		LEFT JOIN (SELECT DISTINCT analysis_id, subject_id, session_id, state FROM core_betti_curves) c USING (analysis_id, subject_id, session_id, state)`); got != "0 2" {
+		t.Errorf("core networks: %q, want 0 disagreeing with N = 20 and core networks at both TRs", got)
+	}
 
 	// Undefined at its own window: 20 constant points in a TR-0.8 series.
 	bad := mixedTRCohort(t)
