@@ -2,9 +2,11 @@ package main
 
 import (
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"regexp"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -629,5 +631,50 @@ func TestWindowSecondsUndefinedWindowPerSeries(t *testing.T) {
 		"--window-seconds", "16", "--states", "2", "--on-bad-subject", "skip")
 	if !strings.Contains(out, "planned 5 series") || !strings.Contains(out, "(1 excluded)") {
 		t.Errorf("stage plan with skip: %s", out)
+	}
+}
+
+// Through the binary: the same contrast named in either order gives the
+// same permutation p-values and the opposite difference (the seed stream
+// does not depend on which group is named first; a mean difference
+// changes sign when the groups swap, by its definition); and pearson_test
+// with a NULL refuses with advice that keeps x and y paired.
+func TestContrastOrderAndPairing(t *testing.T) {
+	run := func(args ...string) result { return runCmd(t, cmdOpts{args: args}) }
+	rows := func(a, b string) map[string][]string {
+		r := run("query", "--db", warehouse, "state_dwell_by_group", "--param", "group_a="+a, "--param", "group_b="+b, "--param", "n_perm=999", "-f", "csv")
+		if r.code != 0 {
+			t.Fatalf("%s vs %s: exit %d: %s", a, b, r.code, r.stderr)
+		}
+		lines := strings.Split(strings.TrimSpace(r.stdout), "\n")
+		head := strings.Split(lines[0], ",")
+		out := map[string][]string{}
+		for _, l := range lines[1:] {
+			cells := strings.Split(l, ",")
+			for i, h := range head {
+				out[h] = append(out[h], cells[i])
+			}
+		}
+		return out
+	}
+	ab, ba := rows("A", "B"), rows("B", "A")
+	if len(ab["perm_p"]) < 4 {
+		t.Fatalf("%d rows", len(ab["perm_p"]))
+	}
+	for i := range ab["perm_p"] {
+		for _, col := range []string{"perm_p", "perm_p_bh", "welch_p"} {
+			if ab[col][i] != ba[col][i] {
+				t.Errorf("row %d %s: %s for A vs B, %s for B vs A", i+1, col, ab[col][i], ba[col][i])
+			}
+		}
+		x, err1 := strconv.ParseFloat(ab["difference"][i], 64)
+		y, err2 := strconv.ParseFloat(ba["difference"][i], 64)
+		if err1 != nil || err2 != nil || math.Abs(x+y) > 1e-9*math.Max(1, math.Abs(x)) {
+			t.Errorf("row %d: difference %s for A vs B, %s for B vs A", i+1, ab["difference"][i], ba["difference"][i])
+		}
+	}
+	r := run("query", "--db", warehouse, "--sql", "SELECT pearson_test([1.0, NULL, 3.0, 4.0], [1.0, 2.0, 3.0, 5.0])")
+	if r.code == 0 || !strings.Contains(r.stderr, "FILTER (WHERE x IS NOT NULL AND y IS NOT NULL)") || !strings.Contains(r.stderr, "breaks the pairing") {
+		t.Errorf("pearson_test with a NULL: exit %d: %s", r.code, r.stderr)
 	}
 }

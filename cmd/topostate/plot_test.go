@@ -86,6 +86,10 @@ func TestPlotCommand(t *testing.T) {
 // when they fit (8 regions here), and numbers with a note when the
 // analysis has too many regions to name.
 func TestPlotLabels(t *testing.T) {
+	topostate := func(args ...string) (int, string, string) { // the built binary
+		r := runCmd(t, cmdOpts{args: args})
+		return r.code, r.stdout, r.stderr
+	}
 	dir := t.TempDir()
 	cohort, db := filepath.Join(dir, "cohort"), filepath.Join(dir, "w.duckdb")
 	if code, _, se := topostate("simulate", "--out", cohort, "--subjects", "9", "--regions", "8", "--timepoints", "150", "--seed", "5"); code != 0 {
