@@ -280,8 +280,8 @@ func LoadCohort(o Options) (*Cohort, error) {
 	// vary for a window's length) in a region that is analysed: the series
 	// is refused like any bad series (skipped under --on-bad-subject skip),
 	// here and in stage plan, so the computation never meets one.
-	if ref >= 0 && c.Window > 0 {
-		if o.Window == 0 { // the window was derived from the cohort: the files are read again
+	if ref >= 0 && (c.Window > 0 || o.WindowSeconds > 0) {
+		if o.Window == 0 && o.WindowSeconds == 0 { // the window was derived from the cohort: the files are read again
 			ow := o
 			ow.Window = c.Window
 			pre, win := computeOptions(ow)
@@ -332,7 +332,7 @@ func LoadCohort(o Options) (*Cohort, error) {
 			c.Warnings = append(c.Warnings, ch.warning)
 		}
 	}
-	if err := mixedTR(o, c.Inputs); err != nil {
+	if err := mixedTR(o, c.Window, c.Inputs); err != nil {
 		problems = append(problems, err)
 	}
 	c.Warnings = append(c.Warnings, windowDurations(o, c.Inputs)...)
@@ -384,10 +384,6 @@ func checkFile(src *Source, in Input, o Options, cache string) fileCheck {
 		ch.cache = cache
 	}
 	ch.constant = compute.ConstantRegions(sf.Series)
-	if o.Window > 0 && sf.Series.T >= o.Window { // a derived window is checked in LoadCohort
-		pre, win := computeOptions(o)
-		ch.windows = compute.RegionWindowProblems(sf.Series, pre, win)
-	}
 	// TR precedence: --tr, then the sidecar's RepetitionTime, then what
 	// the file itself states (a NIfTI header's pixdim[4] with its unit).
 	// A header that contradicts its sidecar is reported and the sidecar's
@@ -432,6 +428,16 @@ func checkFile(src *Source, in Input, o Options, cache string) fileCheck {
 			ch.err = &ParseError{Path: in.Path, Err: fmt.Errorf("%w: %d time points, --window-seconds %g at TR %g s is %d; use a shorter window or leave this series out", ErrTooShort, sf.Series.T, o.WindowSeconds, ch.tr, ch.window)}
 			return ch
 		}
+	}
+	// Windows whose correlations would be undefined, at the window this
+	// series is computed with: --window, or its own points from
+	// --window-seconds. A window derived from --min-freq is known only
+	// when every file has been read; LoadCohort checks it then.
+	if ch.window > 0 && sf.Series.T >= ch.window {
+		ow := o
+		ow.Window, ow.Step = ch.window, ch.step
+		pre, win := computeOptions(ow)
+		ch.windows = compute.RegionWindowProblems(sf.Series, pre, win)
 	}
 	return ch
 }

@@ -64,7 +64,7 @@ type Options struct {
 	// whatever KRule is (scripts/kchoice compares the rules on one scan).
 	AllRules bool `json:"-"`
 	Restarts int  `json:"restarts"`
-	// ScanRestarts is the number of restarts per k of the elbow scan; the
+	// ScanRestarts is the number of restarts per k of the scan of k; the
 	// picked k then gets the rest up to Restarts. 0 means Restarts.
 	ScanRestarts int    `json:"scan_restarts"`
 	MaxIter      int    `json:"max_iter"`
@@ -85,7 +85,10 @@ type Options struct {
 	// every covering window carries the state's label) from which each
 	// subject's core state network is computed for the group test of
 	// topology (docs/methods.md §7); a subject and state with fewer has no
-	// core network. 0 means the window width.
+	// core network. 0 means the window width; with WindowSeconds, the
+	// widest window in points of any series (N must be one number for
+	// every subject, and no core network is then estimated from fewer
+	// points than a window).
 	CoreTimepoints int `json:"core_timepoints"`
 
 	// Surrogates is N, the phase-randomised surrogates of the surrogate-data

@@ -342,6 +342,24 @@ type stages struct {
 	fits     []FitStat
 }
 
+// coreDefault is N of the core networks when --core-timepoints is 0: the
+// window width, or with --window-seconds the widest window in points of
+// any series of the cohort (each series has its own; docs/methods.md §7).
+// It was once the window from --min-freq, which no series used.
+func coreDefault(o Options, inputs []SubjectInput) int {
+	if o.WindowSeconds <= 0 {
+		return o.Window
+	}
+	n := 0
+	for _, in := range inputs {
+		n = max(n, in.Window)
+	}
+	if n == 0 {
+		return o.Window
+	}
+	return n
+}
+
 func (s *stages) setup() error {
 	s.pre, s.win = computeOptions(s.o)
 	if s.o.Distance == "manhattan" {
@@ -354,7 +372,7 @@ func (s *stages) setup() error {
 	s.grid = compute.Grid(lo, hi, n)
 	s.core = s.o.CoreTimepoints
 	if s.core == 0 {
-		s.core = s.o.Window
+		s.core = coreDefault(s.o, s.c.Inputs)
 	}
 	s.p = len(s.c.Keep)
 	if c := s.o.FitCap(s.p); s.o.StatesFrom == nil && c < 10 {

@@ -58,7 +58,7 @@ func windowPoints(o Options, tr float64) (window, step int) {
 // mixedTR returns a refusal listing the distinct repetition times of the
 // cohort with their files, or nil when every series has one TR (or the
 // windows are given in seconds, which makes a mixed cohort comparable).
-func mixedTR(o Options, inputs []SubjectInput) error {
+func mixedTR(o Options, window int, inputs []SubjectInput) error {
 	if o.WindowSeconds > 0 || len(inputs) == 0 {
 		return nil
 	}
@@ -76,7 +76,11 @@ func mixedTR(o Options, inputs []SubjectInput) error {
 		return nil
 	}
 	var b strings.Builder
-	fmt.Fprintf(&b, "the series have %d different repetition times, and --window %d counts time points, so windows would last different times at different TRs (states and dwell times would differ by site, not by subject):", len(trs), o.Window)
+	what := fmt.Sprintf("--window %d counts", o.Window)
+	if o.Window == 0 { // the default window: no --window was given
+		what = fmt.Sprintf("the default window (%d time points: 1/--min-freq at the shortest TR) counts", window)
+	}
+	fmt.Fprintf(&b, "the series have %d different repetition times, and %s time points, so windows would last different times at different TRs (states and dwell times would differ by site, not by subject):", len(trs), what)
 	for i, tr := range trs {
 		f := files[i]
 		more := ""

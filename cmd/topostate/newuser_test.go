@@ -1,9 +1,12 @@
 package main
 
 import (
+	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"regexp"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -382,7 +385,7 @@ func TestReadmeOptionsMatchHelp(t *testing.T) {
 	}
 	// Commands in README's table exist; no help shows a bare "value".
 	for _, args := range [][]string{{"demo"}, {"ingest"}, {"stage", "plan"}, {"stage", "sample"}, {"stage", "fit"}, {"stage", "compute"},
-		{"stage", "merge"}, {"simulate"}, {"info"}, {"drop"}, {"upgrade"}, {"query"}, {"export"}, {"plot"}, {"report"}} {
+		{"stage", "surrogates"}, {"stage", "merge"}, {"simulate"}, {"info"}, {"drop"}, {"surrogates"}, {"upgrade"}, {"query"}, {"export"}, {"plot"}, {"report"}} {
 		code, out, _ := topostate(append(args, "--help")...)
 		if code != 0 || !strings.Contains(readme, "`topostate "+args[0]) {
 			t.Errorf("%v: exit %d, or not in README's commands table", args, code)
@@ -393,6 +396,48 @@ func TestReadmeOptionsMatchHelp(t *testing.T) {
 		if strings.Contains(out, "--analysis") && !strings.Contains(out, "--analysis ID") && args[0] != "ingest" && args[0] != "stage" {
 			t.Errorf("%v: --analysis is not shown as ID", args)
 		}
+	}
+	// The placeholders README shows (`--out FOLDER`, `--param KEY=VALUE`,
+	// `-n N`) are the ones --help shows, in the commands table and in the
+	// ingest options table.
+	i = strings.Index(readme, "| command | what it does |")
+	if i < 0 {
+		t.Fatal("README has no commands table")
+	}
+	commands := readme[i:]
+	commands = commands[:strings.Index(commands, "\n\n")]
+	placeholder := regexp.MustCompile("(-{1,2}[a-z][a-z-]*) ([A-Z][A-Z=]*)\\b")
+	checked := 0
+	for _, line := range strings.Split(commands, "\n") {
+		m := regexp.MustCompile("^\\| `topostate ([a-z]+)([^`]*)`").FindStringSubmatch(line)
+		if m == nil {
+			continue
+		}
+		args := []string{m[1]}
+		if m[1] == "stage" {
+			args = append(args, "plan")
+		}
+		_, out, _ := topostate(append(args, "--help")...)
+		for _, p := range placeholder.FindAllStringSubmatch(m[2], -1) {
+			checked++
+			if !regexp.MustCompile(`(^|\n|, )\s*` + regexp.QuoteMeta(p[0]) + `(\s|,)`).MatchString(out) {
+				t.Errorf("README's commands table shows %q for %s; %v --help does not", p[0], m[1], args)
+			}
+		}
+	}
+	for _, line := range strings.Split(table, "\n") {
+		if !strings.HasPrefix(line, "| `--") {
+			continue
+		}
+		for _, p := range placeholder.FindAllStringSubmatch(strings.Split(line, " | ")[0], -1) {
+			checked++
+			if !strings.Contains(help, "   "+p[0]+" ") && !strings.Contains(help, "   "+p[0]+",") {
+				t.Errorf("README's options table shows %q; ingest --help does not", p[0])
+			}
+		}
+	}
+	if checked < 15 {
+		t.Errorf("%d placeholders checked", checked)
 	}
 	if strings.Contains(help, "--tr SECONDS") && strings.Contains(help, "(default: 0)") && regexp.MustCompile(`--tr SECONDS.*\(default: 0\)`).MatchString(help) {
 		t.Error("--tr shows (default: 0)")
@@ -478,5 +523,158 @@ func TestSessionIDCodebook(t *testing.T) {
 	csvb, _ := os.ReadFile(filepath.Join(out, "inputs.csv"))
 	if !strings.Contains(string(csvb), "sub-001,,") {
 		t.Errorf("inputs.csv:\n%s", csvb)
+	}
+}
+
+// flatten sets column col (0-based) of a series file to one value on the
+// time points from..from+n-1 (0-based; line 1 is the header).
+func flattenStretch(t *testing.T, path string, col, from, n int) {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(string(b), "\n"), "\n")
+	if from+n >= len(lines) {
+		t.Fatalf("%s has %d time points", path, len(lines)-1)
+	}
+	for tp := from; tp < from+n; tp++ {
+		cells := strings.Split(lines[1+tp], "\t")
+		cells[col] = "100.25"
+		lines[1+tp] = strings.Join(cells, "\t")
+	}
+	if err := os.WriteFile(path, []byte(strings.Join(lines, "\n")+"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// With --window-seconds in a cohort of two TRs, the undefined-window check
+// at validation (shared by ingest, --on-bad-subject skip and stage plan)
+// uses each series' own window in points, not one window for the cohort:
+// 16 s is 20 points at TR 0.8 s and 8 points at TR 2 s. A region constant
+// over exactly 20 points of a TR-0.8 series makes one of its windows
+// undefined: refused at validation, skipped with --on-bad-subject skip
+// (it once reached the computation, which stopped the run even under
+// skip). A region constant over 7 points of a TR-2 series is fine at its
+// own 8 points and must not be refused, although a 7-point window (what
+// --min-freq 0.2 gives at the cohort's shortest TR) would be undefined.
+func TestWindowSecondsUndefinedWindowPerSeries(t *testing.T) {
+	tmp := t.TempDir()
+	run := func(args ...string) result { return runCmd(t, cmdOpts{args: args}) }
+	series := func(dir, sub string) string {
+		return filepath.Join(dir, sub, "func", sub+"_task-rest_timeseries.tsv")
+	}
+
+	// Without a window option the refusal names the default window (125
+	// points: ceil(1 / (0.01 Hz x 0.8 s))), not "--window 0".
+	r := run("ingest", "--input", mixedTRCohort(t), "--db", filepath.Join(tmp, "default.duckdb"), "--states", "2", "-q")
+	if r.code != exitUsage || !strings.Contains(r.stderr, "the default window (125 time points: 1/--min-freq at the shortest TR) counts time points") || strings.Contains(r.stderr, "--window 0") {
+		t.Errorf("mixed TR, default window: exit %d: %s", r.code, r.stderr)
+	}
+
+	// Fine at its own window: 7 constant points in a TR-2 series (window 8).
+	fine := mixedTRCohort(t)
+	flattenStretch(t, series(fine, "sub-004"), 1, 30, 7)
+	for _, extra := range [][]string{nil, {"--min-freq", "0.2"}} {
+		db := filepath.Join(tmp, fmt.Sprintf("fine%d.duckdb", len(extra)))
+		r := run(append([]string{"ingest", "--input", fine, "--db", db, "--window-seconds", "16", "--states", "2", "-q"}, extra...)...)
+		if r.code != 0 {
+			t.Fatalf("7 constant points at a window of 8 (%v): exit %d\n%s", extra, r.code, r.stderr)
+		}
+		if got := querySQL(t, db, `SELECT count(*) || ' ' || max(window_points) FILTER (WHERE subject_id = 'sub-004') FROM inputs`); got != "6 8" {
+			t.Errorf("%v: inputs %q, want 6 series with sub-004 at 8 points", extra, got)
+		}
+	}
+	// The core networks of the group topology test (docs/methods.md §7)
+	// are over N = the widest window in points, 20, for every series (N
+	// was once the --min-freq window, 125 points, which no series used, so
+	// nearly no subject had a core network): a subject and state has one
+	// exactly when it has at least 20 core time points.
+	db0 := filepath.Join(tmp, "fine0.duckdb")
+	if got := querySQL(t, db0, `SELECT count(*) FILTER (WHERE (n.core_timepoints >= 20) <> (c.subject_id IS NOT NULL))
+		|| ' ' || count(DISTINCT i.tr_seconds) FILTER (WHERE c.subject_id IS NOT NULL)
+		FROM state_networks n JOIN inputs i USING (analysis_id, subject_id, session_id)
+		LEFT JOIN (SELECT DISTINCT analysis_id, subject_id, session_id, state FROM core_betti_curves) c USING (analysis_id, subject_id, session_id, state)`); got != "0 2" {
+		t.Errorf("core networks: %q, want 0 disagreeing with N = 20 and core networks at both TRs", got)
+	}
+
+	// Undefined at its own window: 20 constant points in a TR-0.8 series.
+	bad := mixedTRCohort(t)
+	flattenStretch(t, series(bad, "sub-001"), 1, 40, 20)
+	want := `sub-001_task-rest_timeseries.tsv: column 2: a window's correlations are undefined: region "node002" does not vary over time points 41..60, lines 42..61 (window 41 of 20 time points)`
+	db := filepath.Join(tmp, "bad.duckdb")
+	r = run("ingest", "--input", bad, "--db", db, "--window-seconds", "16", "--states", "2", "-q")
+	if r.code != 1 || !strings.Contains(r.stderr, want) || !strings.Contains(r.stderr, "nothing was written") {
+		t.Errorf("20 constant points at a window of 20: exit %d\n%s", r.code, r.stderr)
+	}
+	if _, err := os.Stat(db); err == nil {
+		t.Error("the refused ingest left a warehouse")
+	}
+	// 19 constant points are fine at 20.
+	ok19 := mixedTRCohort(t)
+	flattenStretch(t, series(ok19, "sub-001"), 1, 40, 19)
+	if r := run("ingest", "--input", ok19, "--db", filepath.Join(tmp, "ok19.duckdb"), "--window-seconds", "16", "--states", "2", "-q"); r.code != 0 {
+		t.Errorf("19 constant points at a window of 20: exit %d\n%s", r.code, r.stderr)
+	}
+	// --on-bad-subject skip: left out at validation, by ingest and stage plan.
+	r = run("ingest", "--input", bad, "--db", db, "--window-seconds", "16", "--states", "2", "-q", "--on-bad-subject", "skip")
+	if r.code != 0 {
+		t.Fatalf("skip: exit %d\n%s", r.code, r.stderr)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM excluded_inputs WHERE path LIKE '%sub-001%' AND reason LIKE '%does not vary over time points 41..60%'`); got != "1" {
+		t.Errorf("excluded_inputs: %s rows for sub-001", got)
+	}
+	if got := querySQL(t, db, `SELECT count(*) FROM inputs`); got != "5" {
+		t.Errorf("%s series analysed, want 5", got)
+	}
+	out := mustRun(t, "stage", "plan", "--work", filepath.Join(tmp, "work"), "--shards", "2", "--input", bad,
+		"--window-seconds", "16", "--states", "2", "--on-bad-subject", "skip")
+	if !strings.Contains(out, "planned 5 series") || !strings.Contains(out, "(1 excluded)") {
+		t.Errorf("stage plan with skip: %s", out)
+	}
+}
+
+// Through the binary: the same contrast named in either order gives the
+// same permutation p-values and the opposite difference (the seed stream
+// does not depend on which group is named first; a mean difference
+// changes sign when the groups swap, by its definition); and pearson_test
+// with a NULL refuses with advice that keeps x and y paired.
+func TestContrastOrderAndPairing(t *testing.T) {
+	run := func(args ...string) result { return runCmd(t, cmdOpts{args: args}) }
+	rows := func(a, b string) map[string][]string {
+		r := run("query", "--db", warehouse, "state_dwell_by_group", "--param", "group_a="+a, "--param", "group_b="+b, "--param", "n_perm=999", "-f", "csv")
+		if r.code != 0 {
+			t.Fatalf("%s vs %s: exit %d: %s", a, b, r.code, r.stderr)
+		}
+		lines := strings.Split(strings.TrimSpace(r.stdout), "\n")
+		head := strings.Split(lines[0], ",")
+		out := map[string][]string{}
+		for _, l := range lines[1:] {
+			cells := strings.Split(l, ",")
+			for i, h := range head {
+				out[h] = append(out[h], cells[i])
+			}
+		}
+		return out
+	}
+	ab, ba := rows("A", "B"), rows("B", "A")
+	if len(ab["perm_p"]) < 4 {
+		t.Fatalf("%d rows", len(ab["perm_p"]))
+	}
+	for i := range ab["perm_p"] {
+		for _, col := range []string{"perm_p", "perm_p_bh", "welch_p"} {
+			if ab[col][i] != ba[col][i] {
+				t.Errorf("row %d %s: %s for A vs B, %s for B vs A", i+1, col, ab[col][i], ba[col][i])
+			}
+		}
+		x, err1 := strconv.ParseFloat(ab["difference"][i], 64)
+		y, err2 := strconv.ParseFloat(ba["difference"][i], 64)
+		if err1 != nil || err2 != nil || math.Abs(x+y) > 1e-9*math.Max(1, math.Abs(x)) {
+			t.Errorf("row %d: difference %s for A vs B, %s for B vs A", i+1, ab["difference"][i], ba["difference"][i])
+		}
+	}
+	r := run("query", "--db", warehouse, "--sql", "SELECT pearson_test([1.0, NULL, 3.0, 4.0], [1.0, 2.0, 3.0, 5.0])")
+	if r.code == 0 || !strings.Contains(r.stderr, "FILTER (WHERE x IS NOT NULL AND y IS NOT NULL)") || !strings.Contains(r.stderr, "breaks the pairing") {
+		t.Errorf("pearson_test with a NULL: exit %d: %s", r.code, r.stderr)
 	}
 }

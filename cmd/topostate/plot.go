@@ -49,7 +49,7 @@ func plotCommand() *cli.Command {
 			defer db.Close()
 			d, err := figures.Load(c.Context, db, c.String("analysis"), c.String("group"), !c.IsSet("group"))
 			if errors.Is(err, figures.ErrUsage) {
-				return usageError{err}
+				return usageError{fmt.Errorf("plot: %w", err)}
 			}
 			if err != nil {
 				return err

@@ -66,7 +66,7 @@ func TestPlotCommand(t *testing.T) {
 	if code, _, se := call("ingest", "--input", cohort, "--db", db, "--window", "20", "--states", "2", "--fisher-z", "--analysis", "z", "-q"); code != 0 {
 		t.Fatalf("ingest: %d %s", code, se)
 	}
-	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.Contains(se, `holds 2 analyses: 1 ("t"), 2 ("z")`) {
+	if code, _, se := call("plot", "--db", db, "--out", out); code != exitUsage || !strings.HasPrefix(se, `plot: no analysis chosen: the warehouse holds 2 analyses: 1 ("t"), 2 ("z")`) {
 		t.Errorf("two analyses without --analysis: %d %s", code, se)
 	}
 	zdir := filepath.Join(dir, "z")
@@ -76,5 +76,91 @@ func TestPlotCommand(t *testing.T) {
 	b, err := os.ReadFile(filepath.Join(zdir, "centroids.svg"))
 	if err != nil || !strings.Contains(string(b), "Fisher z") || strings.Contains(string(b), ">correlation r<") {
 		t.Errorf("Fisher-z centroids not labelled in z (%v)", err)
+	}
+}
+
+// The labels of the figures through the binary: with --group site every
+// legend of groups is titled "group (site)" and the transition panels
+// read "site = 1 (n=...)", not a bare "1" beside states 1..3; the
+// regions' names from the series files' header label the centroid axes
+// when they fit (8 regions here), and numbers with a note when the
+// analysis has too many regions to name.
+func TestPlotLabels(t *testing.T) {
+	topostate := func(args ...string) (int, string, string) { // the built binary
+		r := runCmd(t, cmdOpts{args: args})
+		return r.code, r.stdout, r.stderr
+	}
+	dir := t.TempDir()
+	cohort, db := filepath.Join(dir, "cohort"), filepath.Join(dir, "w.duckdb")
+	if code, _, se := topostate("simulate", "--out", cohort, "--subjects", "9", "--regions", "8", "--timepoints", "150", "--seed", "5"); code != 0 {
+		t.Fatalf("simulate: %d %s", code, se)
+	}
+	// A site column (1, 2, 3) beside the groups.
+	pt := filepath.Join(cohort, "participants.tsv")
+	b, err := os.ReadFile(pt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimRight(string(b), "\n"), "\n")
+	for i := range lines {
+		if i == 0 {
+			lines[i] += "\tsite"
+		} else {
+			lines[i] += "\t" + string(rune('1'+i%3))
+		}
+	}
+	if err := os.WriteFile(pt, []byte(strings.Join(lines, "\n")+"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if code, _, se := topostate("ingest", "--input", cohort, "--db", db, "--window", "20", "--states", "3", "--analysis", "few", "-q"); code != 0 {
+		t.Fatalf("ingest: %d %s", code, se)
+	}
+	out := filepath.Join(dir, "figs")
+	if code, _, se := topostate("plot", "--db", db, "--out", out, "--group", "site", "--format", "svg"); code != 0 {
+		t.Fatalf("plot: %d %s", code, se)
+	}
+	read := func(name string) string {
+		b, err := os.ReadFile(filepath.Join(out, name+".svg"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		return string(b)
+	}
+	for name, want := range map[string][]string{
+		"betti0":      {">group (site)<", ">1 (n=3)<"},
+		"betti1":      {">group (site)<"},
+		"occupancy":   {">group (site)<", ">3 (n=3)<"},
+		"dwell":       {">group (site)<"},
+		"transitions": {">site = 1 (n=3)<", ">site = 3 (n=3)<"},
+		"centroids":   {">node001<", ">node008<", "regions named as in table regions"},
+	} {
+		svg := read(name)
+		for _, w := range want {
+			if !strings.Contains(svg, w) {
+				t.Errorf("%s.svg lacks %s", name, w)
+			}
+		}
+	}
+	// The default column "group": the legend title is "group".
+	out = filepath.Join(dir, "figs-group")
+	if code, _, se := topostate("plot", "--db", db, "--out", out, "--format", "svg"); code != 0 {
+		t.Fatalf("plot: %d %s", code, se)
+	}
+	if svg := read("occupancy"); !strings.Contains(svg, ">group<") || !strings.Contains(svg, ">A (n=5)<") {
+		t.Error("occupancy.svg: no legend title 'group' over A (n=5)")
+	}
+	// 24 regions: numbered, and the subtitle says why.
+	cohort2, out := filepath.Join(dir, "cohort24"), filepath.Join(dir, "figs24")
+	if code, _, se := topostate("simulate", "--out", cohort2, "--subjects", "4", "--regions", "24", "--timepoints", "150", "--seed", "5"); code != 0 {
+		t.Fatalf("simulate: %d %s", code, se)
+	}
+	if code, _, se := topostate("ingest", "--input", cohort2, "--db", db, "--window", "30", "--states", "2", "--analysis", "many", "-q"); code != 0 {
+		t.Fatalf("ingest: %d %s", code, se)
+	}
+	if code, _, se := topostate("plot", "--db", db, "--analysis", "many", "--out", out, "--format", "svg"); code != 0 {
+		t.Fatalf("plot: %d %s", code, se)
+	}
+	if svg := read("centroids"); strings.Contains(svg, ">node001<") || !strings.Contains(svg, "24 regions are too many to name on the axes") || !strings.Contains(svg, ">22<") {
+		t.Error("centroids.svg of 24 regions: names drawn, or no note, or no numbers")
 	}
 }

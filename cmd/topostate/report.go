@@ -75,7 +75,7 @@ func reportCommand() *cli.Command {
 			})
 			var perr *queries.ParamError
 			if errors.Is(err, figures.ErrUsage) || errors.As(err, &perr) {
-				return usageError{err}
+				return usageError{fmt.Errorf("report: %w", err)}
 			}
 			if err != nil {
 				return err

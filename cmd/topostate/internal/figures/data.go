@@ -25,6 +25,18 @@ const NoGroup = "all series"
 // error.
 var ErrUsage = errors.New("figures: bad request")
 
+// requestError is a usage error whose message is only what went wrong
+// (the command names itself); errors.Is(err, ErrUsage) holds.
+type requestError struct{ err error }
+
+func (e *requestError) Error() string        { return e.err.Error() }
+func (e *requestError) Unwrap() error        { return e.err }
+func (e *requestError) Is(target error) bool { return target == ErrUsage }
+
+func usagef(format string, args ...any) error {
+	return &requestError{fmt.Errorf(format, args...)}
+}
+
 // Data is everything the figures of one analysis show.
 type Data struct {
 	AnalysisID int
@@ -43,6 +55,7 @@ type Data struct {
 	Transitions [][][]float64  // [group][from-1][to-1]: mean probability over series; NaN when no series left from
 	TransN      [][][]int      // [group][from-1][to-1]: series averaged into each cell
 	Centroids   [][][]float64  // [state-1][i][j]: centroid weight, symmetric; NaN on the diagonal
+	RegionNames []string       // [region_index-1]: region_name of table regions; nil when the analysis stores none
 	Notes       []string       // what was left out, for the caller to print
 	groupIndex  map[string]int // group name -> index in Groups
 }
@@ -83,7 +96,7 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 	d := &Data{}
 	a, err := queries.FindAnalysis(ctx, db, name)
 	if errors.Is(err, queries.ErrNoAnalysis) || errors.Is(err, queries.ErrAnalysisAmbiguous) {
-		return nil, fmt.Errorf("%w: %w", ErrUsage, err)
+		return nil, &requestError{err}
 	}
 	if err != nil {
 		return nil, err
@@ -108,7 +121,7 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 		case defaultGroup:
 			d.Notes = append(d.Notes, fmt.Sprintf("the subjects table has no column %q; every series is drawn as one group (choose a column with --group)", group))
 		default:
-			return nil, fmt.Errorf("%w: the subjects table has no column %q; its covariates are: %s", ErrUsage, group, strings.Join(cols, ", "))
+			return nil, usagef("the subjects table has no column %q; its covariates are: %s", group, strings.Join(cols, ", "))
 		}
 	}
 	from := func(table string) string {
@@ -124,6 +137,7 @@ func Load(ctx context.Context, db *sql.DB, name, group string, defaultGroup bool
 		func() error { return d.loadMetrics(ctx, db, groupExpr, from("state_metrics")) },
 		func() error { return d.loadTransitions(ctx, db, groupExpr, from("transitions")) },
 		func() error { return d.loadCentroids(ctx, db) },
+		func() error { return d.loadRegionNames(ctx, db) },
 	} {
 		if err := step(); err != nil {
 			return nil, fmt.Errorf("figures: analysis %q: %w", d.Name, err)
@@ -169,7 +183,7 @@ func (d *Data) loadGroups(ctx context.Context, db *sql.DB, groupExpr, from strin
 		return fmt.Errorf("figures: %w", err)
 	}
 	if len(d.Groups) > MaxGroups {
-		return fmt.Errorf("%w: column %q has %d values; the figures compare at most %d groups (choose a grouping column with --group)", ErrUsage, d.Group, len(d.Groups), MaxGroups)
+		return usagef("column %q has %d values; the figures compare at most %d groups (choose a grouping column with --group)", d.Group, len(d.Groups), MaxGroups)
 	}
 	if len(d.Groups) == 0 {
 		return fmt.Errorf("figures: analysis %q has no series", d.Name)
@@ -349,4 +363,39 @@ func (d *Data) loadCentroids(ctx context.Context, db *sql.DB) error {
 		d.Centroids[s-1][j-1][i-1] = w
 	}
 	return rows.Err()
+}
+
+// loadRegionNames reads the names of the regions in the networks (table
+// regions, by region_index). It leaves RegionNames nil when the indexes do
+// not run 1..Regions or when every name is the one ingest generates for a
+// .npy column without names (region_001, ...): such names say no more
+// than the number.
+func (d *Data) loadRegionNames(ctx context.Context, db *sql.DB) error {
+	rows, err := db.QueryContext(ctx, `SELECT region_index, column_index, region_name FROM regions
+		WHERE analysis_id = ? AND region_index IS NOT NULL ORDER BY region_index`, d.AnalysisID)
+	if err != nil {
+		return err
+	}
+	defer rows.Close()
+	var names []string
+	generated := true
+	for rows.Next() {
+		var idx, col int
+		var name string
+		if err := rows.Scan(&idx, &col, &name); err != nil {
+			return err
+		}
+		if idx != len(names)+1 {
+			return fmt.Errorf("table regions: region_index %d follows %d", idx, len(names))
+		}
+		names = append(names, name)
+		generated = generated && name == fmt.Sprintf("region_%03d", col)
+	}
+	if err := rows.Err(); err != nil {
+		return err
+	}
+	if len(names) == d.Regions && !generated {
+		d.RegionNames = names
+	}
+	return nil
 }

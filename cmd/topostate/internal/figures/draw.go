@@ -9,6 +9,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -39,6 +40,7 @@ const (
 	panelH   = 180
 	headingH = 36
 	sideW    = 84
+	sideGap  = 18 // white between the last column of panels and the colour bar's label
 	margin   = 6
 )
 
@@ -82,7 +84,7 @@ func newFigure(name, heading, subtitle string, rows, cols int, w, h float64, sid
 	}
 	f.Width = vg.Points(float64(cols)*w + 2*margin)
 	if side {
-		f.Width += vg.Points(sideW)
+		f.Width += vg.Points(sideW + sideGap)
 	}
 	f.subLines = wrap(subtitle, subtitleSize, f.Width-vg.Points(2*margin+8))
 	f.Height = vg.Points(float64(rows)*h + headingH + 2*margin + 11*float64(max(0, len(f.subLines)-1)))
@@ -142,7 +144,7 @@ func (f *Figure) Draw(c vg.CanvasSizer) {
 	if f.Side != nil {
 		side := draw.Crop(body, body.Max.X-body.Min.X-vg.Points(sideW), 0, vg.Points(20), -vg.Points(20))
 		f.Side.Draw(side)
-		body = draw.Crop(body, 0, -vg.Points(sideW), 0, 0)
+		body = draw.Crop(body, 0, -vg.Points(sideW+sideGap), 0, 0)
 	}
 	rows, cols := len(f.Panels), len(f.Panels[0])
 	tiles := draw.Tiles{Rows: rows, Cols: cols, PadX: vg.Points(10), PadY: vg.Points(8)}
@@ -231,6 +233,25 @@ func WriteAll(d *Data, dir string, formats []string, dpi int) ([]string, error) 
 	return files, nil
 }
 
+// groupTitle is the title of a legend of groups: "group", or "group
+// (site)" when the groups are the values of a column not called group,
+// so values such as 1, 2, 3 are not read as states.
+func (d *Data) groupTitle() string {
+	if d.Group == "" || d.Group == "group" {
+		return "group"
+	}
+	return "group (" + d.Group + ")"
+}
+
+// groupPanelTitle names group g over a panel of its own (transitions):
+// the label, after "site = " when the column is not called group.
+func (d *Data) groupPanelTitle(g int) string {
+	if d.Group == "" || d.Group == "group" {
+		return d.groupLabel(g, d.Groups[g].Series)
+	}
+	return d.Group + " = " + d.groupLabel(g, d.Groups[g].Series)
+}
+
 // groupLabel names group g in a legend or panel title with its n. n counts
 // subjects, the unit of the group tests; when a subject has several
 // sessions the series are given too, and a curve drawn from fewer series
@@ -255,7 +276,7 @@ func bettiFigure(d *Data, dim int) *Figure {
 	if dim == 1 {
 		heading, yLabel, what = "Betti-1 curves by state", "Betti-1 (independent cycles)", "independent cycles"
 	}
-	sub := fmt.Sprintf("analysis %s · %s of each series' state network keeping the edges with weight > e · line: group mean, band: ± 1 standard error · n: series that visited the state", d.Name, what)
+	sub := fmt.Sprintf("analysis %s · %s of each series' state network keeping the edges with weight > e · line: group mean, band: ± 1 standard error · n: subjects; \"m of M series\": only m of the group's M series visited the state", d.Name, what)
 	rows, cols := grid(d.States, 3)
 	f := newFigure(fmt.Sprintf("betti%d", dim), heading, sub, rows, cols, panelW, panelH, false)
 	lo, hi := bettiRange(d, dim)
@@ -264,6 +285,7 @@ func bettiFigure(d *Data, dim int) *Figure {
 		p.Y.Min = 0
 		p.X.Min, p.X.Max = lo, hi
 		p.Legend.Top, p.Legend.Left = true, dim == 0
+		titled := false
 		for _, c := range d.Betti {
 			if c.State != s || c.Dim != dim {
 				continue
@@ -296,6 +318,10 @@ func bettiFigure(d *Data, dim int) *Figure {
 			}
 			l.Color, l.Width = col, vg.Points(1.4)
 			p.Add(l)
+			if !titled {
+				p.Legend.Add(d.groupTitle())
+				titled = true
+			}
 			p.Legend.Add(d.groupLabel(c.Group, c.N), l)
 		}
 		f.Panels[(s-1)/cols][(s-1)%cols] = p
@@ -355,6 +381,7 @@ func elbowFigure(d *Data) *Figure {
 	line.Color, line.Width = color.Black, vg.Points(1.2)
 	pts.Shape, pts.Color, pts.Radius = draw.CircleGlyph{}, color.Black, vg.Points(2.5)
 	p.Add(chord, line, pts)
+	p.Legend.Add("choosing k")
 	p.Legend.Add("chord from the first to the last k", chord)
 	p.X.Tick.Marker = integerTicks(1, strconv.Itoa)
 	p.X.Min, p.X.Max = float64(d.Elbow[0].K)-0.5, float64(d.Elbow[len(d.Elbow)-1].K)+0.5
@@ -444,6 +471,7 @@ func metricFigure(d *Data, name, heading, sub, yLabel string, values [][][]float
 			legend[g] = sc
 		}
 	}
+	p.Legend.Add(d.groupTitle())
 	for g, sc := range legend {
 		if sc != nil {
 			p.Legend.Add(d.groupLabel(g, d.Groups[g].Series), sc)
@@ -493,9 +521,9 @@ func (m cells) DataRange() (xmin, xmax, ymin, ymax float64) {
 	return 0.5, float64(len(m.z[0])) + 0.5, 0.5, float64(len(m.z)) + 0.5
 }
 
-// matrixTicks label rows (flipped: y = n+1-row) or columns 1..n, every
-// step-th from 1.
-func matrixTicks(n, step int, rows bool) plot.Ticker {
+// matrixTicks label rows (flipped: y = n+1-row) or columns 1..n: every
+// step-th number from 1, or every name when names is not nil.
+func matrixTicks(n, step int, names []string, rows bool) plot.Ticker {
 	return plot.TickerFunc(func(_, _ float64) []plot.Tick {
 		var ts []plot.Tick
 		for l := 1; l <= n; l += step {
@@ -503,19 +531,77 @@ func matrixTicks(n, step int, rows bool) plot.Ticker {
 			if rows {
 				v = float64(n + 1 - l)
 			}
-			ts = append(ts, plot.Tick{Value: v, Label: strconv.Itoa(l)})
+			label := strconv.Itoa(l)
+			if names != nil {
+				label = names[l-1]
+			}
+			ts = append(ts, plot.Tick{Value: v, Label: label})
 		}
 		return ts
 	})
 }
 
-func heatPanel(title, xLabel, yLabel string, z [][]float64, cm *ramp, step int) *plot.Plot {
+// heatPanel draws z as a matrix with its rows and columns numbered (every
+// step-th) or, with names, named: row names at the left, column names
+// turned upright under the matrix, in a font of nameSize points.
+func heatPanel(title, xLabel, yLabel string, z [][]float64, cm *ramp, names *axisNames) *plot.Plot {
 	p := newPlot(title, xLabel, yLabel)
 	p.Add(cells{z: z, cm: cm})
 	n := len(z)
-	p.X.Tick.Marker, p.Y.Tick.Marker = matrixTicks(len(z[0]), step, false), matrixTicks(n, step, true)
+	step, list := 1, []string(nil)
+	if names != nil {
+		step, list = names.step, names.names
+	}
+	p.X.Tick.Marker, p.Y.Tick.Marker = matrixTicks(len(z[0]), step, list, false), matrixTicks(n, step, list, true)
+	if list != nil {
+		p.X.Tick.Label.Font, p.Y.Tick.Label.Font = face(names.size), face(names.size)
+		p.X.Tick.Label.Rotation = math.Pi / 2
+		p.X.Tick.Label.XAlign, p.X.Tick.Label.YAlign = draw.XRight, draw.YCenter
+	}
 	p.X.Padding, p.Y.Padding = 0, 0
 	return p
+}
+
+// axisNames says how a matrix's rows and columns are labelled: names (nil
+// for numbers) in a font of size points, or every step-th number.
+type axisNames struct {
+	names []string
+	size  vg.Length
+	step  int
+}
+
+// Region names go on the centroid axes when every row can have its own
+// line: at most maxNamedRegions regions, each name at most maxNameRunes
+// characters, in a font of 8 points shrinking with the number of regions
+// down to a floor of 6 points (a rule of our own: 20 rows of 6-point text
+// fill the 150 points or so of a 216-point panel's matrix).
+const (
+	maxNamedRegions = 20
+	maxNameRunes    = 16
+)
+
+// regionAxes chooses names or numbers for d's centroid matrices and says,
+// for the subtitle, which it chose and why.
+func regionAxes(d *Data) (*axisNames, string) {
+	p := d.Regions
+	numbered := &axisNames{step: max(1, (p+7)/8)}
+	if d.RegionNames == nil {
+		return numbered, "regions numbered by region_index (table regions; the series files named no regions)"
+	}
+	longest := ""
+	for _, n := range d.RegionNames {
+		if utf8.RuneCountInString(n) > utf8.RuneCountInString(longest) {
+			longest = n
+		}
+	}
+	switch {
+	case p > maxNamedRegions:
+		return numbered, fmt.Sprintf("regions numbered by region_index: %d regions are too many to name on the axes (at most %d; their names are in table regions)", p, maxNamedRegions)
+	case utf8.RuneCountInString(longest) > maxNameRunes:
+		return numbered, fmt.Sprintf("regions numbered by region_index: names such as %q are too long for the axes (at most %d characters; table regions holds them)", longest, maxNameRunes)
+	}
+	size := math.Max(6, math.Min(8, 120/float64(p)))
+	return &axisNames{names: d.RegionNames, size: vg.Points(size), step: 1}, "regions named as in table regions"
 }
 
 // transitionFigure: per group, the k x k matrix of mean transition
@@ -530,7 +616,7 @@ func transitionFigure(d *Data) *Figure {
 	cm := newRamp(sequentialStops, 0, 1)
 	size := vg.Points(math.Max(5, math.Min(9, 120/float64(k))))
 	for g := range d.Groups {
-		p := heatPanel(d.groupLabel(g, d.Groups[g].Series), "to state (window w+1)", "from state (window w)", d.Transitions[g], cm, 1)
+		p := heatPanel(d.groupPanelTitle(g), "to state (window w+1)", "from state (window w)", d.Transitions[g], cm, nil)
 		var xy plotter.XYs
 		var labels []string
 		var styles []text.Style
@@ -568,8 +654,9 @@ func centroidFigure(d *Data) *Figure {
 	if d.FisherZ {
 		what, unit = "Fisher z = atanh(r)", "Fisher z"
 	}
+	axes, axesNote := regionAxes(d)
 	f := newFigure("centroids", "State centroids: the connectivity pattern of each state",
-		fmt.Sprintf("analysis %s · %s of every region pair at the centre of the state's cluster · regions numbered by region_index (table regions) · grey: diagonal", d.Name, what),
+		fmt.Sprintf("analysis %s · %s of every region pair at the centre of the state's cluster · %s · grey: diagonal", d.Name, what, axesNote),
 		rows, cols, panelW, panelW, true)
 	lim := 0.0
 	for _, m := range d.Centroids {
@@ -583,9 +670,8 @@ func centroidFigure(d *Data) *Figure {
 	}
 	lim = math.Max(0.1, math.Ceil(lim*10)/10)
 	cm := newRamp(divergingStops, -lim, lim)
-	step := max(1, (d.Regions+7)/8)
 	for s := range d.States {
-		f.Panels[s/cols][s%cols] = heatPanel(fmt.Sprintf("state %d", s+1), "region", "region", d.Centroids[s], cm, step)
+		f.Panels[s/cols][s%cols] = heatPanel(fmt.Sprintf("state %d", s+1), "region", "region", d.Centroids[s], cm, axes)
 	}
 	bar := newPlot("", "", unit)
 	bar.Add(&plotter.ColorBar{ColorMap: cm, Vertical: true})

@@ -334,13 +334,14 @@ func TestWriteAll(t *testing.T) {
 		t.Fatal(err)
 	}
 	labels := map[string][]string{
-		"betti0":      {"threshold e (correlation r)", "Betti-0 (components)", "A (n=5)", "B (n=5)"},
+		"betti0":      {"threshold e (correlation r)", "Betti-0 (components)", "group", "A (n=5)", "B (n=5)"},
 		"betti1":      {"threshold e (correlation r)", "Betti-1 (independent cycles)"},
-		"elbow":       {"number of states k", "within-cluster sum of squares"},
-		"occupancy":   {"connectivity state", "fractional occupancy (share of windows)", "A (n=5)", "B (n=5)"},
-		"dwell":       {"connectivity state", "mean dwell time (s)"},
+		"elbow":       {"number of states k", "within-cluster sum of squares", "choosing k"},
+		"occupancy":   {"connectivity state", "fractional occupancy (share of windows)", "group", "A (n=5)", "B (n=5)"},
+		"dwell":       {"connectivity state", "mean dwell time (s)", "group"},
 		"transitions": {"to state (window w+1)", "from state (window w)", "A (n=5)", "B (n=5)"},
-		"centroids":   {"region", "correlation r", "state 1", "state 3"},
+		// The fixture's regions are named n01..n10 in the series files.
+		"centroids": {"region", "correlation r", "state 1", "state 3", "n01", "n10"},
 	}
 	if len(files) != 2*len(labels) || len(figs) != len(labels) {
 		t.Fatalf("%d files, %d figures", len(files), len(figs))
@@ -547,6 +548,99 @@ func TestElbowLegendNamesRule(t *testing.T) {
 		}
 		if rule != "chord" && strings.Contains(used[0], "chord") {
 			t.Errorf("rule %s: legend %q names the chord", rule, used[0])
+		}
+	}
+}
+
+// Region names go on the centroid axes under the stated rule (at most 20
+// regions, names of at most 16 characters); otherwise the regions are
+// numbered and the subtitle says why. Names ingest generates for unnamed
+// .npy columns (region_001, ...) count as no names.
+func TestRegionAxes(t *testing.T) {
+	d := load(t, openRO(t))
+	if want := []string{"n01", "n02", "n03", "n04", "n05", "n06", "n07", "n08", "n09", "n10"}; !slices.Equal(d.RegionNames, want) {
+		t.Fatalf("RegionNames %v, want the fixture's header %v", d.RegionNames, want)
+	}
+	named := func(p, runes int) []string {
+		out := make([]string, p)
+		for i := range out {
+			out[i] = fmt.Sprintf("%0*d", runes, i+1)
+		}
+		return out
+	}
+	cases := []struct {
+		name  string
+		d     *Data
+		names bool
+		note  string
+	}{
+		{"fixture", d, true, "regions named as in table regions"},
+		{"20 regions", &Data{Regions: 20, RegionNames: named(20, 16)}, true, "named"},
+		{"21 regions", &Data{Regions: 21, RegionNames: named(21, 4)}, false, "21 regions are too many to name on the axes (at most 20"},
+		{"17 characters", &Data{Regions: 8, RegionNames: named(8, 17)}, false, "are too long for the axes (at most 16 characters"},
+		{"no names", &Data{Regions: 8}, false, "the series files named no regions"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			a, note := regionAxes(c.d)
+			if (a.names != nil) != c.names || !strings.Contains(note, c.note) {
+				t.Errorf("names %v, note %q; want names %v, note with %q", a.names != nil, note, c.names, c.note)
+			}
+			if c.names && (a.size < 6 || a.size > 8) {
+				t.Errorf("name font %v points, want 6..8", a.size)
+			}
+		})
+	}
+	// In the drawing: every name on both axes of every panel, or numbers
+	// and the note.
+	for _, c := range []struct {
+		d            *Data
+		drawn, notes []string
+		count        int // times each name is drawn
+	}{
+		{synthCentroids(2, 12, false, named(12, 6)), []string{"000001", "000012"}, []string{"regions named as in table regions"}, 2 * 2},
+		{synthCentroids(2, 36, false, named(36, 6)), []string{"1", "36"}, []string{"36 regions are too many to name"}, 0},
+	} {
+		texts := map[string]int{}
+		var all []string
+		for _, dr := range record(centroidFigure(c.d)) {
+			texts[dr.text]++
+			all = append(all, dr.text)
+		}
+		for _, w := range c.drawn {
+			if texts[w] == 0 {
+				t.Errorf("%d regions: %q not drawn", c.d.Regions, w)
+			}
+		}
+		for _, w := range c.notes {
+			if !strings.Contains(strings.Join(all, "\n"), w) {
+				t.Errorf("%d regions: no note %q", c.d.Regions, w)
+			}
+		}
+		for _, n := range c.d.RegionNames {
+			if texts[n] != c.count {
+				t.Errorf("%d regions: name %q drawn %d times, want %d", c.d.Regions, n, texts[n], c.count)
+			}
+		}
+	}
+}
+
+// A legend of groups is titled, naming the column when it is not called
+// group, so that the values of a column such as site (1, 2, 3) are not
+// read as states; n counts subjects, and series too when sessions make
+// them differ (the group tests count subjects).
+func TestGroupLegendTitleAndN(t *testing.T) {
+	d := &Data{Group: "site", Groups: []Group{{"1", 6, 3}, {"2", 4, 4}}}
+	for _, c := range []struct{ got, want string }{
+		{d.groupTitle(), "group (site)"},
+		{d.groupPanelTitle(1), "site = 2 (n=4)"},
+		{d.groupLabel(0, 6), "1 (n=3 subjects, 6 series)"},
+		{d.groupLabel(0, 5), "1 (5 of 6 series)"},
+		{(&Data{Group: "group", Groups: d.Groups}).groupTitle(), "group"},
+		{(&Data{Groups: d.Groups}).groupPanelTitle(1), "2 (n=4)"},
+	} {
+		if c.got != c.want {
+			t.Errorf("%q, want %q", c.got, c.want)
 		}
 	}
 }

@@ -258,7 +258,7 @@ var settingMeaning = map[string]string{
 	"scan_restarts":      "k-means restarts per k of the scan (0: restarts)",
 	"min_freq_hz":        "slowest frequency the series keep, Hz; sets the default window (1 / (min_freq_hz x TR) time points)",
 	"fit_memory_bytes":   "most bytes of fitting windows (0: only fit_windows bounds them)",
-	"core_timepoints":    "core time points per subject and state for the group topology test (0: the window width)",
+	"core_timepoints":    "core time points per subject and state for the group topology test (0: the window width; with window_seconds, the widest window in points of any series)",
 	"gap_references":     "uniform reference sets of the gap statistic (B)",
 	"gap_windows":        "most fitting windows used by the gap statistic",
 	"restarts":           "k-means restarts; the lowest within-cluster sum of squares is kept",
