@@ -38,7 +38,7 @@ func surrogatesCommand() *cli.Command {
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "db", Value: "topostate.duckdb", Usage: "warehouse `FILE`"},
 			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
-			&cli.IntFlag{Name: "n", Usage: "`N` surrogates (19 or more; 99 for p down to 0.01)"},
+			&cli.IntFlag{Name: "n", Usage: "`N` surrogates (19 or more; 99 for p down to 0.01)", DefaultText: "none, required"},
 			&cli.IntFlag{Name: "fit-windows", Usage: fmt.Sprintf("each run fits its states on at most `N` windows (0: %d)", ingest.DefaultSurrogateFitWindows)},
 			&cli.IntFlag{Name: "restarts", Usage: fmt.Sprintf("k-means restarts of each run, `N` (0: %d)", ingest.DefaultSurrogateRestarts)},
 			&cli.StringFlag{Name: "input", Usage: "cohort `FOLDER` when it moved since the analysis (default: the folder recorded); its series must be byte-identical"},

@@ -242,6 +242,8 @@ var settingMeaning = map[string]string{
 	"tr_seconds_option":  "repetition time given on the command line, s (0: each file's sidecar or header)",
 	"window":             "sliding-window width, time points",
 	"step":               "step between window starts, time points",
+	"window_seconds":     "sliding-window width in seconds; each series gets round(window_seconds / its TR) time points (0: window)",
+	"step_seconds":       "step between window starts in seconds, with window_seconds (0: step)",
 	"taper":              "window weights: none (rectangle) or gauss (rectangle convolved with a Gaussian)",
 	"taper_sigma":        "Gaussian sigma of the taper, time points",
 	"detrend":            "a linear trend removed from every region first",
@@ -312,6 +314,22 @@ func settings(text string) ([]Setting, error) {
 		}
 		key, val = currentSetting(key, val)
 		out = append(out, Setting{Key: key, Value: val, Meaning: settingMeaning[key]})
+	}
+	// With window_seconds each series has its own window in points
+	// (inputs.window_points); the stored window is then the --min-freq
+	// window, which no series used, and must not read as the width.
+	for _, s := range out {
+		if s.Key != "window_seconds" {
+			continue
+		}
+		if f, err := strconv.ParseFloat(s.Value, 64); err != nil || !(f > 0) {
+			break
+		}
+		for i := range out {
+			if out[i].Key == "window" {
+				out[i].Meaning = "not used: window_seconds gives each series its own width in time points (inputs.window_points)"
+			}
+		}
 	}
 	return out, nil
 }

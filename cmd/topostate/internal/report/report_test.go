@@ -986,3 +986,31 @@ func TestDescriptiveApartAndAdjustAll(t *testing.T) {
 		}
 	}
 }
+
+// TestSettingsWindowSeconds: with window_seconds the stored window (the
+// --min-freq window, which no series used) must not read as the width.
+func TestSettingsWindowSeconds(t *testing.T) {
+	meaning := func(text, key string) string {
+		t.Helper()
+		got, err := settings(text)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, s := range got {
+			if s.Key == key {
+				return s.Meaning
+			}
+		}
+		t.Fatalf("%s: no setting %s", text, key)
+		return ""
+	}
+	if m := meaning(`{"window":125,"window_seconds":16}`, "window"); !strings.HasPrefix(m, "not used") {
+		t.Errorf("window with window_seconds 16: meaning %q, want it marked not used", m)
+	}
+	if m := meaning(`{"window":50,"window_seconds":0}`, "window"); m != settingMeaning["window"] {
+		t.Errorf("window without window_seconds: meaning %q, want %q", m, settingMeaning["window"])
+	}
+	if m := meaning(`{"window":50}`, "window"); m != settingMeaning["window"] {
+		t.Errorf("window alone: meaning %q", m)
+	}
+}
