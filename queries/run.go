@@ -53,7 +53,8 @@ func (d *DB) Close() error {
 }
 
 // ParamError reports a parameter value that cannot be used: a usage error
-// of the caller rather than a failure of the query.
+// of the caller rather than a failure of the query. Its text has no package
+// prefix: the command that reports it names itself.
 type ParamError struct {
 	Param string
 	Err   error
@@ -61,9 +62,9 @@ type ParamError struct {
 
 func (e *ParamError) Error() string {
 	if e.Param == "" {
-		return "queries: " + e.Err.Error()
+		return e.Err.Error()
 	}
-	return fmt.Sprintf("queries: parameter %s: %v", e.Param, e.Err)
+	return fmt.Sprintf("parameter %s: %v", e.Param, e.Err)
 }
 
 func (e *ParamError) Unwrap() error { return e.Err }

@@ -49,7 +49,7 @@ func exportCommand() *cli.Command {
 				Protect: []string{c.String("db")}})
 			var pe *queries.ParamError
 			if errors.As(err, &pe) {
-				return usageError{err}
+				return usageError{fmt.Errorf("export: %w", err)}
 			}
 			if err != nil {
 				return err

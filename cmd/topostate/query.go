@@ -45,7 +45,10 @@ func queryCommand() *cli.Command {
 				err = queryAction(c, o)
 			}
 			var pe *queries.ParamError
-			if errors.As(err, &pe) || errors.Is(err, queries.ErrNoQuery) {
+			if errors.As(err, &pe) {
+				return usageError{fmt.Errorf("query: %w", err)}
+			}
+			if errors.Is(err, queries.ErrNoQuery) {
 				return usageError{err}
 			}
 			return err
