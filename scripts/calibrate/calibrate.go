@@ -519,7 +519,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 		return nil, err
 	}
 	o := ingest.Defaults()
-	o.Input, o.Window, o.States, o.Restarts, o.Seed, o.Workers = cohort, cfg.Window, cfg.FitStates, cfg.Restarts, spec.Seed, 1
+	o.Input, o.Window, o.States, o.Restarts, o.Seed, o.Workers = cohort, cfg.Window, cfg.FitStates, cfg.Restarts, ingestSeed(spec.Seed), 1
 	if cfg.Grid != "" {
 		o.Grid = cfg.Grid
 	}
@@ -537,7 +537,7 @@ func replicate(ctx context.Context, cfg Config, qs []*queries.Query, null string
 		if noPColumn[q.Name] && r > 0 {
 			continue
 		}
-		values, missing := paramValues(q, cfg, spec.Seed)
+		values, missing := paramValues(q, cfg, ingestSeed(spec.Seed))
 		if missing != "" {
 			return nil, fmt.Errorf("%s: required parameter %s has no calibration value", q.Name, missing)
 		}
@@ -617,6 +617,16 @@ func mean(x []float64) float64 {
 	}
 	return s / float64(len(x))
 }
+
+// ingestSeed is the seed of the ingest and of the queries' permutations for
+// a cohort simulated with seed: the simulator draws subject i from
+// rand.NewPCG(seed, i), and ingest with the same seed would draw from those
+// very streams (series i's fitting-sample pick from (seed, i+1), the pool
+// from (seed, 0), k-means restart r from (seed, r)), so its random choices
+// would be functions of particular subjects' data, and the permutations
+// (seed + state...) those of another replicate's subjects. Offset by 2^40,
+// the streams are distinct for every seed below 2^40.
+func ingestSeed(seed uint64) uint64 { return seed + 1<<40 }
 
 // addNetworkEffect adds, while the subject's latent state is 0, a shared
 // white component of variance v to the first m regions (0: 4; fewer if the
