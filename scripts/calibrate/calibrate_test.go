@@ -97,6 +97,13 @@ func TestCalibrationSmall(t *testing.T) {
 	for _, s := range res.Skipped {
 		t.Logf("not run: %s", s)
 	}
+	// The Betti-0 area of adjusted_group_contrast is descriptive: its p
+	// columns are NULL, so no row of it may be counted.
+	for k := range res.Tallies {
+		if strings.Contains(k.Row, "betti0_area") {
+			t.Errorf("%s %s (%s) under %s: a p-value of the descriptive Betti-0 area was counted", k.Query, k.Column, k.Row, NullNames[k.Null])
+		}
+	}
 	// Every p column of these queries (those the report and the demo
 	// show) must have been counted on some row under every null kind.
 	for q, cols := range map[string][]string{
