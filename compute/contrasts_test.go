@@ -68,6 +68,10 @@ func TestPermutationTestMeanEnumeration(t *testing.T) {
 		{"5v5 null", normals(rng, 5, 0), normals(rng, 5, 0), 20000},
 		{"3v6 reversed", normals(rng, 3, -1), normals(rng, 6, 0), 20000},
 		{"ties", []float64{1, 2, 2, 3}, []float64{2, 3, 3, 4, 1}, 20000},
+		// occupancy of a state one group never visits: zeros, group A
+		// constant, relabellings with infinite T* (both groups constant)
+		{"zeros, one group constant", []float64{0, 0, 0, 0}, []float64{0, 0.4, 0, 0.1, 0.4}, 20000},
+		{"zeros", []float64{0, 0.2, 0, 0}, []float64{0.3, 0, 0.1, 0, 0, 0.3}, 20000},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			pooled := append(append([]float64{}, c.a...), c.b...)

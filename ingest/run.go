@@ -1068,7 +1068,7 @@ func (b *outBatches) add(id int, in SubjectInput, r *subjectResult, s *stages) {
 		}
 		var cw, cs *float64 // complete runs only (docs/methods.md §4)
 		if d.CompleteDwells[st] > 0 {
-			a, c := d.CompleteMeanDwell[st], d.CompleteMeanDwell[st]*float64(s.o.Step)*in.TR
+			a, c := d.CompleteMeanDwell[st], d.CompleteMeanDwell[st]*float64(step)*in.TR
 			cw, cs = &a, &c
 		}
 		b.metrics.Row(id, sub, ses, st+1, d.Occupancy[st], d.Dwells[st], mw, ms,

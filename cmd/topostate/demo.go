@@ -2,14 +2,12 @@ package main
 
 import (
 	"context"
-	"database/sql"
 	"fmt"
 	"io"
-	"math"
-	"math/rand/v2"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"text/tabwriter"
 
@@ -17,6 +15,7 @@ import (
 
 	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/ingest"
+	"github.com/topostate/topostate/queries"
 )
 
 // The demo's scenario is invented for this tool: the "Quiet Ridge" study,
@@ -96,7 +95,7 @@ func demoCommand() *cli.Command {
 			if err := demoSurrogates(c, out, dbPath, o.Analysis, c.Int("surrogates")); err != nil {
 				return err
 			}
-			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID); err != nil {
+			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID, self); err != nil {
 				return err
 			}
 			db, a := shellWord(dbPath), o.Analysis
@@ -105,7 +104,7 @@ func demoCommand() *cli.Command {
 				fmt.Fprintln(out, "  (topostate ran through 'go run'; 'go build -o topostate ./cmd/topostate' makes a program you can call as ./topostate)")
 			}
 			fmt.Fprintf(out, "  %s info   --db %s\n", self, db)
-			fmt.Fprintf(out, "  %s query  --db %s state_dwell_by_group --param group_a=practice --param group_b=waitlist\n", self, db)
+			fmt.Fprintf(out, "  %s query  --db %s state_dwell_by_group --param group_a=practice --param group_b=waitlist   (occupancy too)\n", self, db)
 			fmt.Fprintf(out, "  %s plot   --db %s --analysis %s --out %s\n", self, db, a, shellWord(filepath.Join(dir, "figures")))
 			fmt.Fprintf(out, "  %s report --db %s --analysis %s --out %s\n", self, db, a, shellWord(filepath.Join(dir, "report.html")))
 			fmt.Fprintln(out, "  (or open the file in DuckDB and ask your own questions in SQL)")
@@ -129,70 +128,89 @@ func demoFound(found, truth int) string {
 	}
 }
 
-// demoContrasts prints mean dwell time by group per state with Welch and
-// permutation p-values, BH-adjusted across states.
-func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int) error {
-	db, err := openRead(ctx, dbPath)
+// demoDwellParams are the parameters with which the demo runs the bundled
+// query state_dwell_by_group (the command it prints runs the same).
+var demoDwellParams = []string{"group_a=practice", "group_b=waitlist", "n_perm=4999", "seed=7"}
+
+// demoContrasts prints the dwell-time rows of the bundled query
+// state_dwell_by_group, practice against waiting list: the mean length of
+// the complete runs of each state (runs cut by the scan's start or end left
+// out, docs/methods.md §4), per group, the subjects left out (no visit to
+// the state, or only runs cut by the scan), and the query's Welch and
+// permutation p-values with BH across states. The demo shows the query's
+// own numbers, so that they are the calibrated tests of README
+// "Calibration" and equal what the printed command gives.
+func demoContrasts(ctx context.Context, out io.Writer, dbPath string, id int, self string) error {
+	db, err := queries.Open(ctx, dbPath)
 	if err != nil {
 		return err
 	}
 	defer db.Close()
-	k, err := scalarInt(ctx, db, `SELECT n_states FROM analyses WHERE analysis_id = ?`, id)
+	q, err := queries.Lookup(queries.FS, "state_dwell_by_group")
 	if err != nil {
 		return err
 	}
-	type row struct {
-		state              int
-		waitlist, practice []float64
-		welch              compute.WelchResult
-		perm               compute.TestResult
+	values := map[string]string{"analysis": strconv.Itoa(id)}
+	for _, kv := range demoDwellParams {
+		k, v, _ := strings.Cut(kv, "=")
+		values[k] = v
 	}
-	rs := make([]row, k)
-	rows, err := db.QueryContext(ctx, `
-		SELECT m.state, s."group", m.mean_dwell_seconds
-		FROM state_metrics m JOIN subjects s USING (analysis_id, subject_id)
-		WHERE m.analysis_id = ? AND m.mean_dwell_seconds IS NOT NULL
-		ORDER BY m.state, m.subject_id, m.session_id`, id)
+	rows, err := queries.Run(ctx, db.Conn, q, values)
 	if err != nil {
 		return err
 	}
+	defer rows.Close()
+	cols, err := rows.Columns()
+	if err != nil {
+		return err
+	}
+	fmt.Fprintln(out, "3. mean dwell time per state, practice vs waiting list: complete runs only (seconds; runs cut by the")
+	fmt.Fprintln(out, "   scan's start or end are left out, and so is a subject without a complete run of the state; Welch")
+	fmt.Fprintln(out, "   t-test, permutation test with 4,999 relabellings, BH across states), the dwell rows of")
+	fmt.Fprintf(out, "   %s query --db %s state_dwell_by_group --param %s\n", self, shellWord(dbPath), strings.Join(demoDwellParams, " --param "))
+	tw := tabwriter.NewWriter(out, 0, 2, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "state\tpractice\twaitlist\tleft out: no visit\tcut runs only\tt\tdf\tp (Welch)\tp (BH)\tp (perm.)\t")
 	for rows.Next() {
-		var st int
-		var g string
-		var v float64
-		if err := rows.Scan(&st, &g, &v); err != nil {
-			rows.Close()
+		v := make([]any, len(cols))
+		ptr := make([]any, len(cols))
+		for i := range v {
+			ptr[i] = &v[i]
+		}
+		if err := rows.Scan(ptr...); err != nil {
 			return err
 		}
-		rs[st-1].state = st
-		if g == "waitlist" {
-			rs[st-1].waitlist = append(rs[st-1].waitlist, v)
-		} else {
-			rs[st-1].practice = append(rs[st-1].practice, v)
+		row := map[string]any{}
+		for i, c := range cols {
+			row[c] = v[i]
 		}
-	}
-	rows.Close()
-	ps := make([]float64, k)
-	for i := range rs {
-		rs[i].state = i + 1
-		ps[i] = math.NaN()
-		w, err := compute.WelchTTest(rs[i].practice, rs[i].waitlist)
-		if err != nil {
+		if row["measure"] != "dwell_seconds" {
 			continue
 		}
-		rs[i].welch = w
-		rs[i].perm, _ = compute.PermutationTestMean(rs[i].practice, rs[i].waitlist, 4999, rand.New(rand.NewPCG(7, uint64(i))))
-		ps[i] = w.PValue
+		fmt.Fprintf(tw, "%v\t%s (n=%v)\t%s (n=%v)\t%v + %v\t%v + %v\t%s\t%s\t%s\t%s\t%s\t\n", row["state"],
+			demoNum(row["mean_a"], "%.1f"), row["n_a"], demoNum(row["mean_b"], "%.1f"), row["n_b"],
+			row["n_without_visit_a"], row["n_without_visit_b"], row["n_censored_only_a"], row["n_censored_only_b"],
+			demoNum(row["welch_t"], "%.2f"), demoNum(row["welch_df"], "%.1f"), demoNum(row["welch_p"], "%.4f"),
+			demoNum(row["welch_p_bh"], "%.4f"), demoNum(row["perm_p"], "%.4f"))
 	}
-	adj := compute.BenjaminiHochberg(ps)
-	fmt.Fprintln(out, "3. mean dwell time per state, practice vs waiting list (seconds; Welch t-test, permutation test with 4,999 relabellings; BH across states)")
-	tw := tabwriter.NewWriter(out, 0, 2, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "state\twaitlist\tpractice\tt\tdf\tp (Welch)\tp (BH)\tp (perm.)\t")
-	for i, r := range rs {
-		fmt.Fprintf(tw, "%d\t%.1f (n=%d)\t%.1f (n=%d)\t%.2f\t%.1f\t%.4f\t%.4f\t%.4f\t\n", r.state, mean(r.waitlist), len(r.waitlist),
-			mean(r.practice), len(r.practice), r.welch.T, r.welch.DF, r.welch.PValue, adj[i], r.perm.PValue)
+	if err := rows.Err(); err != nil {
+		return err
 	}
-	return tw.Flush()
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	fmt.Fprintln(out, "   (left out: practice + waitlist subjects; a state with fewer than 2 subjects in a group has no test, -)")
+	return nil
+}
+
+// demoNum formats a number of a query's row, "-" for NULL.
+func demoNum(v any, format string) string {
+	switch x := v.(type) {
+	case float64:
+		return fmt.Sprintf(format, x)
+	case nil:
+		return "-"
+	}
+	return fmt.Sprint(v)
 }
 
 // shellWord quotes s for a POSIX shell when it holds anything but plain
@@ -202,20 +220,6 @@ func shellWord(s string) string {
 		return s
 	}
 	return "'" + strings.ReplaceAll(s, "'", `'\''`) + "'"
-}
-
-func mean(x []float64) float64 {
-	s := 0.0
-	for _, v := range x {
-		s += v
-	}
-	return s / float64(len(x))
-}
-
-func scalarInt(ctx context.Context, db *sql.DB, q string, args ...any) (int, error) {
-	var n int
-	err := db.QueryRowContext(ctx, q, args...).Scan(&n)
-	return n, err
 }
 
 // selfCommand is how the user can call this program again, for the lines

@@ -204,15 +204,20 @@ func TestRepetitionTime(t *testing.T) {
 		t.Errorf("per-series windows %q, want 0.8:20/5 2.0:8/2", got)
 	}
 	// Dwell in seconds = mean dwell in windows x step points x TR, per
-	// series (docs/methods.md, the dwell-time definition); window centres
-	// at (start + (window-1)/2) x TR.
+	// series (docs/methods.md, the dwell-time definition), for all runs and
+	// for complete runs; window centres at (start + (window-1)/2) x TR.
 	bad := querySQL(t, db, `SELECT count(*) FROM state_metrics m JOIN inputs i USING (analysis_id, subject_id, session_id)
-		WHERE abs(m.mean_dwell_seconds - m.mean_dwell_windows * i.step_points * i.tr_seconds) > 1e-9`)
+		WHERE abs(m.mean_dwell_seconds - m.mean_dwell_windows * i.step_points * i.tr_seconds) > 1e-9
+		   OR abs(m.complete_dwell_seconds - m.complete_dwell_windows * i.step_points * i.tr_seconds) > 1e-9`)
 	bad2 := querySQL(t, db, `SELECT count(*) FROM state_sequence s JOIN inputs i USING (analysis_id, subject_id, session_id)
 		WHERE abs(s.center_seconds - (s.window_start + (i.window_points - 1) / 2.0) * i.tr_seconds) > 1e-9
 		   OR s.window_start <> (s.window_index - 1) * i.step_points`)
 	if bad != "0" || bad2 != "0" {
 		t.Errorf("%s dwell rows and %s window rows disagree with the per-series window", bad, bad2)
+	}
+	if n := querySQL(t, db, `SELECT count(*) FROM state_metrics m JOIN inputs i USING (analysis_id, subject_id, session_id)
+		WHERE m.complete_dwell_seconds IS NOT NULL AND i.step_points > 1`); n == "0" {
+		t.Error("no complete run in a series with a step above 1 point: the complete-run dwell check above checked nothing")
 	}
 	if p := querySQL(t, db, `SELECT parameters->>'window_seconds' FROM analyses`); p != "16" {
 		t.Errorf("parameters window_seconds %q", p)

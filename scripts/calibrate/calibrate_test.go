@@ -1,10 +1,20 @@
 package main
 
 import (
+	"bytes"
 	"context"
+	"math"
 	"math/big"
+	"math/rand/v2"
+	"reflect"
+	"slices"
 	"strings"
 	"testing"
+
+	"gonum.org/v1/gonum/stat"
+
+	"github.com/topostate/topostate/compute"
+	"github.com/topostate/topostate/queries"
 )
 
 // binomCDFExact is P(X <= k) for X ~ Binomial(n, 1/20) summed exactly in
@@ -87,6 +97,35 @@ func TestCalibrationSmall(t *testing.T) {
 	for _, s := range res.Skipped {
 		t.Logf("not run: %s", s)
 	}
+	// The Betti-0 area of adjusted_group_contrast is descriptive: its p
+	// columns are NULL, so no row of it may be counted.
+	for k := range res.Tallies {
+		if strings.Contains(k.Row, "betti0_area") {
+			t.Errorf("%s %s (%s) under %s: a p-value of the descriptive Betti-0 area was counted", k.Query, k.Column, k.Row, NullNames[k.Null])
+		}
+	}
+	// Every p column of these queries (those the report and the demo
+	// show) must have been counted on some row under every null kind.
+	for q, cols := range map[string][]string{
+		"state_dwell_by_group":      {"welch_p", "perm_p"},
+		"filtration_tests_by_group": {"curve_perm_p"},
+		"adjusted_group_contrast":   {"p", "perm_p"},
+		"covariate_association":     {"p"},
+	} {
+		for _, c := range cols {
+			for _, n := range cfg.Nulls {
+				tests := 0
+				for k, tl := range res.Tallies {
+					if k.Null == n && k.Query == q && k.Column == c {
+						tests += tl.Tests
+					}
+				}
+				if tests == 0 {
+					t.Errorf("%s %s: no p-value counted under %s", q, c, NullNames[n])
+				}
+			}
+		}
+	}
 	for _, k := range res.Keys() {
 		c := res.Tallies[k]
 		if !IsNull(k) {
@@ -95,6 +134,147 @@ func TestCalibrationSmall(t *testing.T) {
 		if lim := TailLimit(c.Tests, 0.05, 1e-4); c.Rejections >= lim {
 			t.Errorf("%s %s (%s) under %s: %d of %d p-values below 0.05 (P < 1e-4 at the nominal rate; limit %d)",
 				k.Query, k.Column, k.Row, NullNames[k.Null], c.Rejections, c.Tests, lim)
+		}
+	}
+}
+
+// TestEveryQueryCounted: each bundled query is run by the harness (every
+// required parameter has a calibration value) or excluded with a reason,
+// and each exclusion names a bundled query; adjusted_group_contrast is
+// run with the null covariates and covariate_association with age.
+func TestEveryQueryCounted(t *testing.T) {
+	cfg := smallConfig()
+	counted, err := countedQueries(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	all, err := queries.List(queries.FS)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var names []string
+	for _, q := range counted {
+		names = append(names, q.Name)
+	}
+	for _, q := range all {
+		_, excluded := Excluded[q.Name]
+		if excluded == slices.Contains(names, q.Name) {
+			t.Errorf("bundled query %s: counted %v, excluded %v (want exactly one)", q.Name, !excluded, excluded)
+		}
+	}
+	for name := range Excluded {
+		if _, err := queries.Lookup(queries.FS, name); err != nil {
+			t.Errorf("Excluded names %s, which is no bundled query: %v", name, err)
+		}
+	}
+	for _, q := range counted {
+		v, _ := paramValues(q, cfg, 3)
+		switch q.Name {
+		case "adjusted_group_contrast":
+			if v["adjust"] != AdjustFor {
+				t.Errorf("adjusted_group_contrast runs with adjust=%q, want %q", v["adjust"], AdjustFor)
+			}
+		case "covariate_association":
+			if v["covariate"] != NullCovariate {
+				t.Errorf("covariate_association runs with covariate=%q", v["covariate"])
+			}
+		}
+	}
+}
+
+// TestNullCovariates: the sex column has both levels, in equal numbers, in
+// each group (so that adjusting for it is never rank-deficient), and age
+// lies in 20..69; the same seed gives the same cells.
+func TestNullCovariates(t *testing.T) {
+	subs, err := compute.SimulateCohort(compute.CohortSpec{Subjects: 10, Regions: 3, Timepoints: 20, States: 2, Seed: 5})
+	if err != nil {
+		t.Fatal(err)
+	}
+	cov := nullCovariates(subs, 9)
+	count := map[string]int{}
+	for i, s := range subs {
+		count[s.Group+cov[i][1]]++
+		if a := cov[i][0]; len(a) != 2 || a < "20" || a > "69" {
+			t.Errorf("age %q outside 20..69", a)
+		}
+	}
+	if count["AF"] == 0 || count["AM"] == 0 || count["BF"] == 0 || count["BM"] == 0 ||
+		count["AF"]-count["AM"] > 1 || count["BF"]-count["BM"] > 1 {
+		t.Errorf("sex per group: %v", count)
+	}
+	if !reflect.DeepEqual(cov, nullCovariates(subs, 9)) {
+		t.Error("nullCovariates is not reproducible")
+	}
+}
+
+// TestMoments: mean and standard error of the mean against gonum's
+// stat.Mean and stat.StdDev (sample SD, n - 1) divided by sqrt(n).
+func TestMoments(t *testing.T) {
+	r := rand.New(rand.NewPCG(1, 2))
+	x := make([]float64, 57)
+	var m Moments
+	for i := range x {
+		x[i] = 3 + 2*r.NormFloat64()
+		m.Add(x[i])
+	}
+	mean, se, z := m.Mean()
+	wm, wse := stat.Mean(x, nil), stat.StdDev(x, nil)/math.Sqrt(float64(len(x)))
+	if math.Abs(mean-wm) > 1e-12 || math.Abs(se-wse) > 1e-12 || math.Abs(z-wm/wse) > 1e-9 {
+		t.Errorf("Moments: %v %v %v, gonum %v %v", mean, se, z, wm, wse)
+	}
+}
+
+// TestSaveLoad: a result written with Save and read with Load prints the
+// same tables.
+func TestSaveLoad(t *testing.T) {
+	r := &Result{
+		Tallies:     map[Key]*Tally{{NullNone, "q", "p", "state 1"}: {3, 20}, {NullDwell, "q", "p", "measure dwell, state 1"}: {9, 20}},
+		Differences: map[Key]*Moments{{NullNone, "q", "difference", "state 1"}: {N: 3, Sum: 0.3, SumSq: 0.05}},
+		Latent:      map[Key]*Tally{{NullNone, "latent", "welch_p", "latent occupancy, rank 1"}: {1, 20}},
+		LatentDiff:  map[Key]*Moments{{NullNone, "latent", "difference", "latent occupancy, rank 1"}: {N: 2, Sum: 0.1, SumSq: 0.01}},
+		PColumns:    map[string][]string{"q": {"p"}, "r": {}},
+		Skipped:     []string{"s: why"},
+	}
+	var buf bytes.Buffer
+	if err := r.Save(&buf); err != nil {
+		t.Fatal(err)
+	}
+	back, err := Load(&buf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	print := func(r *Result) string {
+		var b strings.Builder
+		r.WriteTable(&b, []string{NullNone, NullDwell}, 0.05)
+		r.WriteCoverage(&b)
+		r.WriteDiagnostics(&b, []string{NullNone, NullDwell}, 0.05)
+		return b.String()
+	}
+	if a, b := print(r), print(back); a != b {
+		t.Errorf("tables differ after Save and Load:\n%s\n---\n%s", a, b)
+	}
+}
+
+// TestIsNull: under (b) the group contrasts of dwell, switch rate and the
+// occupancy of ranked states are power, the curve test is a null, and associations with the
+// null covariate are nulls whatever they measure.
+func TestIsNull(t *testing.T) {
+	for _, c := range []struct {
+		k    Key
+		want bool
+	}{
+		{Key{NullDwell, "state_dwell_by_group", "perm_p", "measure dwell_seconds, state 1"}, false},
+		{Key{NullDwell, "adjusted_group_contrast", "p", "measure switch_rate, state <nil>"}, false},
+		{Key{NullDwell, "state_dwell_by_group", "perm_p", "measure occupancy, state 1"}, false},
+		{Key{NullNone, "state_dwell_by_group", "perm_p", "measure occupancy, state 1"}, true},
+		{Key{NullOne, "adjusted_group_contrast", "perm_p", "measure occupancy, state 3"}, true},
+		{Key{NullDwell, "filtration_tests_by_group", "curve_perm_p", "state 1, dimension 0"}, true},
+		{Key{NullDwell, "covariate_association", "p", "measure dwell_seconds, state 2"}, true},
+		{Key{NullNone, "state_dwell_by_group", "perm_p", "measure dwell_seconds, state 1"}, true},
+		{Key{Power, "filtration_tests_by_group", "curve_perm_p", "state 1, dimension 0"}, false},
+	} {
+		if got := IsNull(c.k); got != c.want {
+			t.Errorf("IsNull(%v) = %v, want %v", c.k, got, c.want)
 		}
 	}
 }

@@ -1,20 +1,28 @@
 // Command calibrate measures the false-positive rate of every p-value column
-// of the bundled group queries on simulated null cohorts (docs/methods.md
-// §12). For each null kind, (a) two groups and nothing differs, (b) the
-// groups differ only in dwell time with identical state networks
+// of the bundled queries on simulated null cohorts (docs/methods.md §12).
+// For each null kind, (a) two groups and nothing differs, (b) the groups
+// differ only in dwell time with identical state networks
 // (compute.CohortSpec.GroupEffect, `topostate simulate --group-effect`), (c)
 // one latent state (`--states 1`), it simulates -replicates cohorts with
 // compute.SimulateCohort (AR(1) latent autocorrelation at its default),
-// writes each in the input layout and ingests it with ingest.IntoFile (the
-// code path of `topostate ingest`) into a warehouse of its own, runs every
-// bundled query that takes group_a and group_b, and counts per p column
-// (named p or ending in _p) and per row (state, dimension, measure...) how
-// many p-values fall below 0.05. Each count is set against the 95 % quantile
-// of Binomial(replicates, 0.05), the largest count consistent with a test
-// at its nominal level.
+// writes each in the input layout with two null covariates (age and sex,
+// independent of everything) and ingests it with ingest.IntoFile (the code
+// path of `topostate ingest`) into a warehouse of its own, runs every
+// bundled query but those of Excluded (surrogate_summary, measured by
+// scripts/surrcalib) with groups A and B, covariate=age and adjust=age,sex,
+// and counts per p column (named p or ending in _p) and per row (state,
+// dimension, measure...) how many p-values fall below 0.05. Each count is
+// set against the 95 % quantile of Binomial(replicates, 0.05), the largest
+// count consistent with a test at its nominal level. Below the table it
+// prints the mean over the replicates of each group difference
+// (state_dwell_by_group's difference) and a reference from the simulator's
+// truth: the Welch test of the latent occupancy, latent states ranked by
+// frequency as ingest ranks the fitted ones.
 //
 //	nice -n 10 go run ./scripts/calibrate > calibration.md   # the README table
 //	go run ./scripts/calibrate -replicates 10                # a quick look
+//	go run ./scripts/calibrate -latent-only -replicates 2000 # the truth only
+//	go run ./scripts/calibrate -render counts.json           # tables of a -json run
 //	go run ./scripts/calibrate -nulls b,power -replicates 40 -all-window
 //
 // The last line measures power as well: kind "power" is null (a) with a
@@ -59,6 +67,9 @@ func main() {
 	flag.Float64Var(&cfg.NetworkEffect, "network-effect", 0.5, "kind power: variance of the component shared by regions 1-4 in group B's first state")
 	flag.IntVar(&cfg.NetworkRegions, "network-regions", 4, "kind power: regions (from the first) sharing the component")
 	flag.BoolVar(&cfg.NetworkAll, "network-all-states", false, "kind power: add the component in every latent state, not the first only")
+	flag.BoolVar(&cfg.LatentOnly, "latent-only", false, "only the reference of the simulator's truth (latent occupancy per rank), no ingest: seconds")
+	save := flag.String("json", "", "also write the counts to `FILE` (JSON), to print the tables again with -render")
+	render := flag.String("render", "", "print the tables from `FILE` written by -json, without running anything")
 	allWindow := flag.Bool("all-window", false, "also count the curve permutation test on the all-window Betti curves (the group test before core networks)")
 	flag.Parse()
 	if *allWindow {
@@ -70,6 +81,22 @@ func main() {
 		cfg.Extra = append(cfg.Extra, q)
 	}
 	cfg.Nulls = strings.Split(*nulls, ",")
+	if *render != "" {
+		f, err := os.Open(*render)
+		if err != nil {
+			fmt.Fprintln(os.Stderr, "calibrate:", err)
+			os.Exit(1)
+		}
+		res, err := Load(f)
+		f.Close()
+		if err != nil {
+			fmt.Fprintf(os.Stderr, "calibrate: %s: %v\n", *render, err)
+			os.Exit(1)
+		}
+		fails := writeAll(res, cfg.Nulls)
+		fmt.Printf("\n%d test(s) above the bound (tables printed from %s)\n", fails, *render)
+		return
+	}
 	cfg.Log = os.Stderr
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
 	defer stop()
@@ -84,10 +111,20 @@ func main() {
 	fmt.Printf("calibrate: %d replicates per null kind (%s), %d subjects x %d time points x %d regions, %d latent states, stickiness %g, group effect %g (null b), window %d, core time points %d (0: the window), %d fitted states, %d restarts, grid %s, n_perm %d, seed %d\n\n",
 		cfg.Replicates, *nulls, cfg.Subjects, cfg.Timepoints, cfg.Regions, cfg.States, cfg.Stickiness, cfg.GroupEffect,
 		cfg.Window, cfg.CoreTimepoints, cfg.FitStates, cfg.Restarts, cfg.Grid, cfg.NPerm, cfg.Seed)
-	fails := res.WriteTable(os.Stdout, cfg.Nulls, 0.05)
-	for _, s := range res.Skipped {
-		fmt.Printf("\nnot run: %s\n", s)
+	if *save != "" {
+		f, err := os.Create(*save)
+		if err == nil {
+			err = res.Save(f)
+			if cerr := f.Close(); err == nil {
+				err = cerr
+			}
+		}
+		if err != nil {
+			fmt.Fprintln(os.Stderr, "calibrate:", err)
+			os.Exit(1)
+		}
 	}
+	fails := writeAll(res, cfg.Nulls)
 	fmt.Printf("\n%d test(s) above the bound; wall time %s; load before: %s; after: %s\n", fails, wall.Round(time.Second), load0, uptime())
 }
 
@@ -101,4 +138,15 @@ func uptime() string {
 		return s[i:]
 	}
 	return s
+}
+
+// writeAll prints the calibration table, the queries counted and the
+// diagnostics, and returns the number of cells above their bound.
+func writeAll(res *Result, nulls []string) int {
+	fails := res.WriteTable(os.Stdout, nulls, 0.05)
+	fmt.Println()
+	res.WriteCoverage(os.Stdout)
+	fmt.Println()
+	res.WriteDiagnostics(os.Stdout, nulls, 0.05)
+	return fails
 }
