@@ -339,10 +339,11 @@ type stages struct {
 	sampleK              []int // windows per state in the fitting sample, after relabelling
 	totalWindows         int64
 
-	bufs     sync.Pool // *[]float32 window buffers, one per busy worker
-	work     workTimes // per-part times of the parallel stages
-	rowsDone time.Time // when stage 4 had turned the last subject into rows
-	fits     []FitStat
+	bufs      sync.Pool // *[]float32 window buffers, one per busy worker
+	surrPools sync.Pool // *[]float32 fitting pools of surrogate runs, one per busy worker
+	work      workTimes // per-part times of the parallel stages
+	rowsDone  time.Time // when stage 4 had turned the last subject into rows
+	fits      []FitStat
 }
 
 func (s *stages) setup() error {
@@ -748,8 +749,8 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 		}
 		if e.Rule == "strength" || s.o.AllRules {
 			halving := s.o.StrengthHalving
-			if halving == "" {
-				halving = "subject"
+			if halving == "" { // options stored before the choice existed
+				halving = "window"
 			}
 			strength := func(halving string) (compute.Strength, error) {
 				sopt := compute.StrengthOptions{Splits: s.o.StrengthSplits, Sample: s.o.StrengthWindows, Threshold: s.o.StrengthThreshold,

@@ -14,8 +14,8 @@
 // default options, among them the default window from --min-freq and the
 // scan from k = 1, and every rule's statistic computed, so one run yields
 // all four picks of the same fitting sample and W(k) scan). The prediction
-// strength is computed with both halvings (by subject, the default, and by
-// window) on the same fitting sample; -gap=false leaves out the gap
+// strength is computed with both halvings (by window, the default, and by
+// subject) on the same fitting sample; -gap=false leaves out the gap
 // statistic (its picks are then not printed), which halves the time.
 //
 //	nice -n 10 go run ./scripts/kchoice -states 1,2,3 -noise 0.3 -gap=false
