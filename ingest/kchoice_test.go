@@ -125,16 +125,17 @@ func makeStickyCohort(t *testing.T, subjects, regions, timepoints, states int, s
 // computed beside it: on 6 subjects the halvings must keep subjects whole
 // (6 groups halved; the default by window halves no groups), the pick must
 // be the by-subject strength's, and the stored parameters must say so. On
-// one subject the windows are halved by blocks of 4 window widths instead:
-// 281 windows of width 20 and step 1 (300 time points) fall in blocks of
-// 80 windows, 4 blocks (worked by hand), so 2 to 4 of them hold
-// fitting windows.
+// one subject the windows are halved by blocks of time instead: with the
+// default window at TR 1.5 s, ceil(1/(0.01 x 1.5)) = 67 time points, 300
+// time points give 234 windows, fewer than two blocks of 4 x 67 = 268, so
+// the series is cut in two halves of 117 windows: 2 groups (worked by
+// hand).
 func TestStrengthHalvingBySubject(t *testing.T) {
 	for _, subjects := range []int{6, 1} {
 		dir := makeCohort(t, subjects, 12, 300, 1, 23)
 		dbPath := filepath.Join(t.TempDir(), "w.duckdb")
 		o := Defaults()
-		o.Input, o.Window, o.Grid, o.Seed = dir, 20, "-0.5:1:31", 11
+		o.Input, o.Grid, o.Seed = dir, "-0.5:1:31", 11
 		o.StatesMax, o.StrengthHalving, o.CompareHalvings = 4, "subject", true
 		sum := ingestInto(t, dbPath, o)
 		e := sum.Elbow
@@ -144,7 +145,7 @@ func TestStrengthHalvingBySubject(t *testing.T) {
 		if sum.States != e.Strength.K || e.OtherStrength.Groups != 0 {
 			t.Errorf("%d subjects: picked %d, strength pick %d, groups of the other halving %d", subjects, sum.States, e.Strength.K, e.OtherStrength.Groups)
 		}
-		if g := e.Strength.Groups; (subjects > 1 && g != subjects) || (subjects == 1 && (g < 2 || g > 4)) {
+		if g := e.Strength.Groups; (subjects > 1 && g != subjects) || (subjects == 1 && g != 2) {
 			t.Errorf("%d subjects: %d groups halved", subjects, g)
 		}
 		db, err := schema.Open(dbPath, true, nil)

@@ -821,8 +821,9 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 // strength's halvings by subject (docs/methods.md §3.x): the subject's
 // position among the cohort's subjects when the sample holds windows of at
 // least two subjects. With one subject, each series' windows are cut into
-// blocks of strengthBlock window widths (by window start; the label is
-// the series and the block), so only windows near a block's edge overlap
+// blocks of strengthBlock window widths, or into two halves when the series
+// is shorter than two such blocks (by window start; the label is the
+// series and the block), so only windows near a block's edge overlap
 // windows of another block.
 func (s *stages) strengthGroups(rows int) ([]int, error) {
 	if len(s.fitSeries) != rows {
@@ -849,7 +850,11 @@ func (s *stages) strengthGroups(rows int) ([]int, error) {
 		if w < 0 {
 			return nil, fmt.Errorf("ingest: prediction strength: the fitting sample does not say which window of %s row %d is, needed to halve one subject by blocks of time", in.Rel, r+1)
 		}
-		block := max(1, strengthBlock*in.Window/max(in.Step, 1))
+		width, step := in.Window, in.Step
+		if width <= 0 { // the cohort's window, not one of its own
+			width, step = s.win.Width, s.win.Step
+		}
+		block := max(1, min(strengthBlock*width/max(step, 1), (in.Windows+1)/2))
 		g[r] = int(i)<<20 | int(w)/block
 	}
 	return g, nil
