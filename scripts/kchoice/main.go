@@ -36,6 +36,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/ingest"
 )
 
@@ -111,6 +112,7 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 		rules = slices.Delete(rules, 2, 3)
 	}
 	const kmax = 10
+	thresholds := []float64{0.7, 0.75, 0.8, 0.85, 0.9}
 	var gapSeconds, strengthSeconds float64
 	runs := 0
 	for _, noise := range noises {
@@ -120,6 +122,14 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 			table[r] = make([][]int, len(states))
 			for i := range states {
 				table[r][i] = make([]int, kmax+1)
+			}
+		}
+		// right[halving][true k index][threshold index]: cohorts whose
+		// prediction strength, read at that threshold, gives the true k.
+		right := [2][][]int{make([][]int, len(states)), make([][]int, len(states))}
+		for h := range right {
+			for si := range states {
+				right[h][si] = make([]int, len(thresholds))
 			}
 		}
 		for si, k := range states {
@@ -145,6 +155,17 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 				e := sum.Elbow
 				table[rules[0]][si][e.Strength.K]++
 				table[rules[1]][si][e.OtherStrength.K]++
+				for h, st := range []*compute.Strength{e.Strength, e.OtherStrength} {
+					ks, ps := make([]int, len(st.Points)), make([]float64, len(st.Points))
+					for i, p := range st.Points {
+						ks[i], ps[i] = p.K, p.Strength
+					}
+					for ti, th := range thresholds {
+						if compute.StrengthPick(ks, ps, th) == k {
+							right[h][si][ti]++
+						}
+					}
+				}
 				if withGap {
 					table["gap"][si][e.Gap.K]++
 				}
@@ -159,6 +180,21 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 					}
 				}
 				runs++
+			}
+		}
+		fmt.Printf("\nprediction strength read at other thresholds (same ps(k) values), noise %v: cohorts right of %d per true k\n", noise, cohorts)
+		fmt.Printf("| halving | threshold |")
+		for _, k := range states {
+			fmt.Printf(" true %d |", k)
+		}
+		fmt.Println()
+		for h := range right {
+			for ti, th := range thresholds {
+				fmt.Printf("| %s | %g |", rules[h], th)
+				for si := range states {
+					fmt.Printf(" %d |", right[h][si][ti])
+				}
+				fmt.Println()
 			}
 		}
 		for _, r := range rules {
