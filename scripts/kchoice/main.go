@@ -16,9 +16,13 @@
 // all four picks of the same fitting sample and W(k) scan). The prediction
 // strength is computed with both halvings (by window, the default, and by
 // subject) on the same fitting sample; -gap=false leaves out the gap
-// statistic (its picks are then not printed), which halves the time.
+// statistic (its picks are then not printed), which halves the time. A
+// table per noise level also counts, for both halvings, the cohorts whose
+// ps(k) values would give the true k at thresholds 0.7-0.9 (the same
+// values read at another threshold; a threshold chosen from it is chosen
+// on these cohorts).
 //
-//	nice -n 10 go run ./scripts/kchoice -states 1,2,3 -noise 0.3 -gap=false
+//	nice -n 10 go run ./scripts/kchoice -states 1,2,3,5 -noise 0.3 -gap=false -stickiness 0.99
 //
 // The uptime load average is printed before and after: the timings depend
 // on the machine and its load.
