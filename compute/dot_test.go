@@ -40,9 +40,14 @@ func TestDotKernels(t *testing.T) {
 				}
 				byIdx := make([]float64, k)
 				dotsIdx(x, widen(c), idx, byIdx)
+				by32 := make([]float64, k)
+				dotsIdx32(x, c, idx, by32)
 				for q, m := range idx {
 					if byIdx[q] != got[m] {
 						t.Fatalf("dotsIdx row %d: %v, dotsRow %v", m, byIdx[q], got[m])
+					}
+					if by32[q] != got[m] {
+						t.Fatalf("dotsIdx32 row %d: %v, dotsRow %v", m, by32[q], got[m])
 					}
 				}
 				for m := range k {

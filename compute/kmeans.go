@@ -727,6 +727,31 @@ func ElbowScan(x Matrix32, kmin, kmax int, opt KMeansOptions, seed uint64) (Elbo
 	}
 	for r := 0; r < restarts; r++ {
 		seeds, _ := f.seed(kmax, rand.New(rand.NewPCG(seed, uint64(opt.FirstRestart+r))), d)
+		if f.bounded() {
+			// Every k of this restart side by side: each iteration reads
+			// the rows once for all of them (runBoundedTogether); each fit
+			// is the one lloyd gives.
+			runs := make([]*boundedRun, 0, kmax-kmin+1)
+			for k := kmin; k <= kmax; k++ {
+				c := NewMatrix32(k, dim)
+				copy(c.Data, seeds.Data[:k*dim])
+				runs = append(runs, f.startBounded(c, d, kmax, maxIter, tol))
+			}
+			if !runBoundedTogether(runs, opt.Stop) {
+				return Elbow{}, nil, ErrStopped
+			}
+			for j, run := range runs {
+				res := run.result()
+				totals[j] += res.Iterations
+				if r == 0 || res.WCSS < fits[j].WCSS {
+					fits[j] = res
+				}
+				if opt.Done != nil {
+					opt.Done()
+				}
+			}
+			continue
+		}
 		for k := kmin; k <= kmax; k++ {
 			if opt.Stop != nil && opt.Stop() {
 				return Elbow{}, nil, ErrStopped

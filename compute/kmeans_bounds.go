@@ -60,6 +60,7 @@ type elkan struct {
 	half   []float64 // k x k: half the distance between two centres
 	near   []float64 // k: half the distance from each centre to the nearest other
 	moved  [][]move  // per row block: rows that changed centre, in row order
+	cnMax  float64   // the largest ||c||^2, set by update
 }
 
 // move records a row that changed centre and the centre it left.
@@ -69,6 +70,31 @@ type move struct{ row, from int }
 // place); d[i*stride+j] is row i's squared distance to centre j, as the
 // seeding computed it. See run for the contract.
 func (f *kmFit) runBounded(c Matrix32, d []float64, stride, maxIter int, tol float64) KMeansResult {
+	r := f.startBounded(c, d, stride, maxIter, tol)
+	for !r.done {
+		r.h.update()
+		r.next(r.h.assignBounded())
+	}
+	return r.result()
+}
+
+// boundedRun is one restart of runBounded between its iterations, so that
+// several can run side by side (runBoundedTogether).
+type boundedRun struct {
+	h       *elkan
+	dist    []float64
+	w       float64
+	res     KMeansResult
+	maxIter int
+	tol     float64
+	done    bool
+}
+
+// startBounded sets up runBounded's state: the first assignment from the
+// seeding's distances (the same values a fresh computation gives: dot32 and
+// dotsRow agree bit for bit), then the repair of empty clusters (as run
+// does), then the sums from scratch.
+func (f *kmFit) startBounded(c Matrix32, d []float64, stride, maxIter int, tol float64) *boundedRun {
 	n, dim, k := f.x.Rows, f.x.Cols, c.Rows
 	h := &elkan{f: f, k: k, c: c, cw: widen(c), old: make([]float32, k*dim), cn: rowNorms(c, 1),
 		sums: make([]float64, k*dim), counts: make([]int, k), sqn: make([]float64, k),
@@ -76,40 +102,79 @@ func (f *kmFit) runBounded(c Matrix32, d []float64, stride, maxIter int, tol flo
 		drift: make([]float64, k), half: make([]float64, k*k), near: make([]float64, k),
 		moved: make([][]move, blocks(n, rowBlock))}
 	dist := make([]float64, n)
-	// First assignment from the seeding's distances (the same values a
-	// fresh computation gives: dot32 and dotsRow agree bit for bit), then
-	// the repair of empty clusters (as run does), then the sums from
-	// scratch.
 	h.assignAll(d, stride, dist)
 	if f.repair(h.labels, dist, h.c, h.cn) {
 		h.resetBounds(dist)
 	}
 	h.cw = widen(h.c)
 	h.sumsFromScratch()
-	w := sumOrdered(dist)
-	res := KMeansResult{}
-	for res.Iterations < maxIter {
-		h.update()
-		changed := h.assignBounded()
-		if slices.Contains(h.counts, 0) {
-			h.exactDist(dist)
-			f.repair(h.labels, dist, h.c, h.cn)
-			h.cw = widen(h.c)
-			h.resetBounds(dist)
-			h.sumsFromScratch()
-			changed = true
+	return &boundedRun{h: h, dist: dist, w: sumOrdered(dist), maxIter: maxIter, tol: tol, done: maxIter <= 0}
+}
+
+// next ends an iteration whose assignment step reported changed: empty
+// clusters repaired, the objective and the stopping rules.
+func (r *boundedRun) next(changed bool) {
+	h := r.h
+	if slices.Contains(h.counts, 0) {
+		h.exactDist(r.dist)
+		h.f.repair(h.labels, r.dist, h.c, h.cn)
+		h.cw = widen(h.c)
+		h.resetBounds(r.dist)
+		h.sumsFromScratch()
+		changed = true
+	}
+	r.res.Iterations++
+	wOld := r.w
+	r.w = h.objective()
+	if !changed || r.w == 0 || wOld-r.w < r.tol*wOld {
+		r.res.Converged = true
+		r.done = true
+	}
+	if r.res.Iterations >= r.maxIter {
+		r.done = true
+	}
+}
+
+// result is the finished run: centres, labels and the WCSS from every
+// row's distance, summed in row order.
+func (r *boundedRun) result() KMeansResult {
+	h := r.h
+	h.exactDist(r.dist)
+	r.res.Centroids, r.res.Labels, r.res.WCSS = h.c, h.labels, sumOrdered(r.dist)
+	return r.res
+}
+
+// runBoundedTogether runs the iterations of several restarts (the k of one
+// elbow-scan restart) side by side: each iteration's assignment step reads
+// a few rows once for every unfinished run (assignBoundedMany) instead of
+// reading the whole pool once per run, the part of the scan that memory
+// bandwidth bounds. Every run does exactly the steps runBounded would, so
+// each result is bit-identical to its own runBounded. stop, when not nil,
+// is polled between iterations; it returning true ends the call with false.
+func runBoundedTogether(runs []*boundedRun, stop func() bool) bool {
+	for {
+		var active []*boundedRun
+		for _, r := range runs {
+			if !r.done {
+				active = append(active, r)
+			}
 		}
-		res.Iterations++
-		wOld := w
-		w = h.objective()
-		if !changed || w == 0 || wOld-w < tol*wOld {
-			res.Converged = true
-			break
+		if len(active) == 0 {
+			return true
+		}
+		if stop != nil && stop() {
+			return false
+		}
+		hs := make([]*elkan, len(active))
+		for j, r := range active {
+			r.h.update()
+			hs[j] = r.h
+		}
+		changed := assignBoundedMany(hs)
+		for j, r := range active {
+			r.next(changed[j])
 		}
 	}
-	h.exactDist(dist)
-	res.Centroids, res.Labels, res.WCSS = h.c, h.labels, sumOrdered(dist)
-	return res
 }
 
 // assignAll labels every row with its nearest centre (ties to the lowest
@@ -205,6 +270,7 @@ func (h *elkan) update() {
 		h.drift[l] = math.Sqrt(d)
 		h.cn[l] = dot32(dst, dst)
 	})
+	h.cnMax = slices.Max(h.cn)
 	for a := range h.near {
 		h.near[a] = math.Inf(1)
 	}
@@ -222,83 +288,121 @@ func (h *elkan) update() {
 
 // assignBounded is one bounded assignment step; it moves the rows that
 // change centre in the sums and reports whether any did.
-func (h *elkan) assignBounded() bool {
-	x, k := h.f.x, h.k
-	cnMax := slices.Max(h.cn)
-	type scratch struct {
-		idx  []int
-		dots []float64
+func (h *elkan) assignBounded() bool { return assignBoundedMany([]*elkan{h})[0] }
+
+// groupRows is how many rows assignBoundedMany takes through every run
+// before the next rows: a few windows of 200-400 regions stay in a core's
+// cache while every run's centres stream past them.
+const groupRows = 4
+
+// assignBoundedMany is one bounded assignment step of each of hs (runs on
+// the same rows): within each block of rows, groupRows rows at a time go
+// through every run in turn, each run's rows in index order, so every run
+// does what its own assignBounded would.
+func assignBoundedMany(hs []*elkan) []bool {
+	f := hs[0].f
+	x := f.x
+	kmax := 0
+	for _, h := range hs {
+		kmax = max(kmax, h.k)
 	}
-	bufs := make([]scratch, max(1, h.f.workers))
+	bufs := make([]scratch, max(1, f.workers))
 	for w := range bufs {
-		bufs[w] = scratch{make([]int, 0, k), make([]float64, k)}
+		bufs[w] = scratch{make([]int, 0, kmax), make([]float64, kmax)}
 	}
-	parallelFor(len(h.moved), h.f.workers, func(wk, b int) {
-		mv := h.moved[b][:0]
-		buf := &bufs[wk]
-		for i := b * rowBlock; i < min((b+1)*rowBlock, x.Rows); i++ {
-			a := h.labels[i]
-			lo := h.lower[i*k : (i+1)*k]
-			for c, d := range h.drift {
-				lo[c] = max(lo[c]-d, 0)
-			}
-			u := h.upper[i] + h.drift[a]
-			sc := h.f.xn[i] + cnMax
-			if skipSafe(u, h.near[a], sc) {
-				h.upper[i] = u
-				continue
-			}
-			// Centres the loose bound cannot rule out; if any, make u
-			// exact and test again; compute the survivors together.
-			cand := buf.idx[:0]
-			for c := range k {
-				if c != a && !skipSafe(u, max(lo[c], h.half[a*k+c]), sc) {
-					cand = append(cand, c)
+	group := rowBlock
+	if len(hs) > 1 {
+		group = groupRows
+	}
+	parallelFor(len(hs[0].moved), f.workers, func(wk, b int) {
+		for _, h := range hs {
+			h.moved[b] = h.moved[b][:0]
+		}
+		end := min((b+1)*rowBlock, x.Rows)
+		for g := b * rowBlock; g < end; g += group {
+			for _, h := range hs {
+				for i := g; i < min(g+group, end); i++ {
+					h.assignRow(i, &bufs[wk], b)
 				}
-			}
-			if len(cand) == 0 {
-				h.upper[i] = u
-				continue
-			}
-			bd := h.dist2(i, a)
-			u = math.Sqrt(bd)
-			lo[a] = u
-			keep := cand[:0]
-			for _, c := range cand {
-				if !skipSafe(u, max(lo[c], h.half[a*k+c]), sc) {
-					keep = append(keep, c)
-				}
-			}
-			best := a
-			if len(keep) > 0 {
-				dots := buf.dots[:len(keep)]
-				dotsIdx(x.Row(i), h.cw, keep, dots)
-				xn := h.f.xn[i]
-				for t, c := range keep {
-					dc := max(xn+h.cn[c]-2*dots[t], 0)
-					lo[c] = math.Sqrt(dc)
-					if dc < bd || (dc == bd && c < best) {
-						best, bd, u = c, dc, lo[c]
-					}
-				}
-			}
-			h.upper[i] = u
-			if best != a {
-				h.labels[i] = best
-				mv = append(mv, move{i, a})
 			}
 		}
-		h.moved[b] = mv
 	})
-	var moved []move
-	for _, mv := range h.moved {
-		moved = append(moved, mv...)
+	changed := make([]bool, len(hs))
+	for j, h := range hs {
+		var moved []move
+		for _, mv := range h.moved {
+			moved = append(moved, mv...)
+		}
+		if len(moved) > 0 {
+			h.moveRows(moved)
+			changed[j] = true
+		}
 	}
-	if len(moved) == 0 {
-		return false
+	return changed
+}
+
+// scratch is one worker's buffers for assignRow.
+type scratch struct {
+	idx  []int
+	dots []float64
+}
+
+// assignRow is the bounded assignment of row i (of row block b): the
+// bounds are loosened by the last drifts and tested; the distances they
+// cannot settle are computed; a row that changes centre is recorded in
+// h.moved[b].
+func (h *elkan) assignRow(i int, buf *scratch, b int) {
+	x, k := h.f.x, h.k
+	a := h.labels[i]
+	lo := h.lower[i*k : (i+1)*k]
+	for c, d := range h.drift {
+		lo[c] = max(lo[c]-d, 0)
 	}
-	h.moveRows(moved)
-	return true
+	u := h.upper[i] + h.drift[a]
+	sc := h.f.xn[i] + h.cnMax
+	if skipSafe(u, h.near[a], sc) {
+		h.upper[i] = u
+		return
+	}
+	// Centres the loose bound cannot rule out; if any, make u
+	// exact and test again; compute the survivors together.
+	cand := buf.idx[:0]
+	for c := range k {
+		if c != a && !skipSafe(u, max(lo[c], h.half[a*k+c]), sc) {
+			cand = append(cand, c)
+		}
+	}
+	if len(cand) == 0 {
+		h.upper[i] = u
+		return
+	}
+	xn := h.f.xn[i]
+	bd := max(xn+h.cn[a]-2*dot32(x.Row(i), h.c.Row(a)), 0) // dist2 from the float32 centre, the same value
+	u = math.Sqrt(bd)
+	lo[a] = u
+	keep := cand[:0]
+	for _, c := range cand {
+		if !skipSafe(u, max(lo[c], h.half[a*k+c]), sc) {
+			keep = append(keep, c)
+		}
+	}
+	best := a
+	if len(keep) > 0 {
+		dots := buf.dots[:len(keep)]
+		dotsIdx32(x.Row(i), h.c, keep, dots)
+		for t, c := range keep {
+			dc := max(xn+h.cn[c]-2*dots[t], 0)
+			lo[c] = math.Sqrt(dc)
+			if dc < bd || (dc == bd && c < best) {
+				best, bd, u = c, dc, lo[c]
+			}
+		}
+	}
+	h.upper[i] = u
+	if best != a {
+		h.labels[i] = best
+		h.moved[b] = append(h.moved[b], move{i, a})
+	}
 }
 
 // moveRows takes the moved rows out of their old centre's sums and into

@@ -6,6 +6,7 @@ import (
 	"math/rand/v2"
 	"reflect"
 	"slices"
+	"syscall"
 	"testing"
 )
 
@@ -157,4 +158,51 @@ func TestKMeansFirstRestart(t *testing.T) {
 			t.Fatalf("%v: iterations %d + %d, one fit %d", d, first.TotalIterations, rest.TotalIterations, all.TotalIterations)
 		}
 	}
+}
+
+// BenchmarkElbowScanWindows times the elbow scan (k = 1..10, one restart)
+// on 2,000 variance-peak windows of 200 regions (398 MB of float32, far
+// beyond any cache): the k side by side, as ElbowScan runs them, against
+// one k after another (KMeans per k, the same fits). The CPU seconds of the
+// process (user + system) are reported beside the wall time, which other
+// work on the machine inflates.
+func BenchmarkElbowScanWindows(b *testing.B) {
+	all := simulatedWindows(b, 8, 200, 1000, 4, 50, 3)
+	idx := LocalMaxima(WindowVariance(all))
+	r := rand.New(rand.NewPCG(1, 2))
+	r.Shuffle(len(idx), func(i, j int) { idx[i], idx[j] = idx[j], idx[i] })
+	idx = idx[:min(len(idx), 2000)]
+	x := NewMatrix32(len(idx), all.Cols)
+	for c, i := range idx {
+		copy(x.Row(c), all.Row(i))
+	}
+	all = Matrix32{}
+	opt := KMeansOptions{Restarts: 1, Workers: 2}
+	cpu := func() float64 {
+		var ru syscall.Rusage
+		syscall.Getrusage(syscall.RUSAGE_SELF, &ru)
+		return float64(ru.Utime.Nano()+ru.Stime.Nano()) / 1e9
+	}
+	b.Run("side-by-side", func(b *testing.B) {
+		c0 := cpu()
+		for b.Loop() {
+			if _, _, err := ElbowScan(x, 1, 10, opt, 5); err != nil {
+				b.Fatal(err)
+			}
+		}
+		b.ReportMetric((cpu()-c0)/float64(b.N), "cpu-s/op")
+	})
+	b.Run("one-k-after-another", func(b *testing.B) {
+		c0 := cpu()
+		for b.Loop() {
+			for k := 1; k <= 10; k++ {
+				o := opt
+				o.K = k
+				if _, err := KMeans(x, o, 5); err != nil {
+					b.Fatal(err)
+				}
+			}
+		}
+		b.ReportMetric((cpu()-c0)/float64(b.N), "cpu-s/op")
+	})
 }

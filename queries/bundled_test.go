@@ -280,7 +280,7 @@ func TestBettiCurvesByGroup(t *testing.T) {
 func TestFiltrationTestsByGroup(t *testing.T) {
 	d := openWarehouse(t)
 	got := runBundled(t, d, "filtration_tests_by_group", map[string]string{
-		"analysis": "first", "group_a": "night", "group_b": "day", "n_perm": "999", "seed": "11"})
+		"analysis": "first", "group_a": "night", "group_b": "day", "n_perm": "999", "seed": "11", "pooled_events": "1"})
 	groups := groupsOf(t, d, firstID)
 	side := map[string]int{"night": 0, "day": 1}
 	type key struct{ state, dim int }
@@ -357,6 +357,9 @@ func TestFiltrationTestsByGroup(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
+		if num(r["n_perm"]) != 999 {
+			t.Errorf("%s: n_perm %v, want the 999 relabellings asked for", name, r["n_perm"])
+		}
 		if num(r["curve_perm_p"]) != perm.PValue || int(num(r["n_subjects_a"])) != len(cv[0]) {
 			t.Errorf("%s: curve perm p %v, Go %v", name, r["curve_perm_p"], perm.PValue)
 		}
@@ -397,6 +400,50 @@ func TestFiltrationTestsByGroup(t *testing.T) {
 			t.Errorf("row %d: BH %v, Go %v", i, r["curve_perm_p_bh"], cq[j])
 		}
 		j++
+	}
+}
+
+// The pooled-event KS distance is computed only when asked for
+// (pooled_events = 1): by default its three columns are NULL and every other
+// column equals the run above; n_perm defaults to 999; pooled_events other
+// than 0 or 1 is refused.
+func TestFiltrationTestsPooledEventsOff(t *testing.T) {
+	d := openWarehouse(t)
+	params := map[string]string{"analysis": "first", "group_a": "night", "group_b": "day", "seed": "11"}
+	off := runBundled(t, d, "filtration_tests_by_group", params)
+	params["pooled_events"], params["n_perm"] = "1", "999"
+	on := runBundled(t, d, "filtration_tests_by_group", params)
+	if len(off) != len(on) || len(off) == 0 {
+		t.Fatalf("%d rows by default, %d with pooled_events = 1", len(off), len(on))
+	}
+	for i, r := range off {
+		for c, v := range r {
+			switch c {
+			case "n_events_a", "n_events_b", "pooled_events_ks_distance":
+				if v != nil || on[i][c] == nil {
+					t.Errorf("row %d: %s %v by default, %v when asked for", i, c, v, on[i][c])
+				}
+			default:
+				if fmt.Sprint(v) != fmt.Sprint(on[i][c]) {
+					t.Errorf("row %d: %s %v by default, %v with pooled_events = 1", i, c, v, on[i][c])
+				}
+			}
+		}
+	}
+	params["pooled_events"] = "2"
+	q, err := Lookup(FS, "filtration_tests_by_group")
+	if err != nil {
+		t.Fatal(err)
+	}
+	rows, err := Run(context.Background(), d.Conn, q, params)
+	if err == nil {
+		for rows.Next() {
+		}
+		err = rows.Err()
+		rows.Close()
+	}
+	if err == nil || !strings.Contains(err.Error(), "pooled_events is 0 or 1") {
+		t.Errorf("pooled_events = 2: err %v, want a refusal", err)
 	}
 }
 

@@ -1,12 +1,14 @@
 -- name: filtration_tests_by_group
--- description: Per state and dimension, a permutation test between the two groups' core Betti curves (the group test of topology, not confounded by dwell time) and, as a description only, the KS distance between the groups' pooled filtration events.
+-- description: Per state and dimension, a permutation test between the two groups' core Betti curves (the group test of topology, not confounded by dwell time); with pooled_events = 1 also, as a description only, the KS distance between the groups' pooled filtration events (slow on a large warehouse, so left out by default).
 -- param: analysis analysis -- analysis id, name or latest (the newest); may be left out when the warehouse holds one analysis
 -- param: group_column column = group -- subjects column that holds the group
 -- param: group_a text -- value of group_column for the first group
 -- param: group_b text -- value of group_column for the second group
--- param: n_perm integer = 9999 -- relabellings per curve permutation test
+-- param: n_perm integer = 999 -- relabellings per curve permutation test (the smallest p it can give is 1/(1 + n_perm))
 -- param: seed integer = 1 -- permutation seed; state s, dimension d use seed + 2s + d
--- One row per state and dimension (0: components, beta0; 1: cycles, beta1).
+-- param: pooled_events integer = 0 -- 1: also compute the descriptive n_events_a, n_events_b and pooled_events_ks_distance (a sort of every filtration event of the two groups); 0: leave them NULL
+-- One row per state and dimension (0: components, beta0; 1: cycles, beta1)
+-- that a subject of either group has a state network of.
 -- The test: curve_perm_p relabels whole subjects and compares the groups'
 -- core Betti curves (core_betti_curves): each subject's state network is
 -- the correlation over the same number N of core time points, those covered
@@ -16,8 +18,10 @@
 -- time points in a state are left out of that state's test:
 -- n_subjects_a and n_subjects_b count those tested. curve_distance is the
 -- largest gap between the two group mean core curves (the permutation
--- statistic); curve_perm_p_bh is BH-adjusted across all rows. A subject's
--- sessions are averaged. Descriptive only: pooled_events_ks_distance is the
+-- statistic); n_perm is the number of relabellings it was compared with
+-- (p = (1 + #{T* >= T}) / (1 + n_perm)); curve_perm_p_bh is BH-adjusted
+-- across all rows. A subject's sessions are averaged. Descriptive only, and
+-- computed only with pooled_events = 1: pooled_events_ks_distance is the
 -- two-sample KS distance between the filtration events (of the state
 -- networks averaged over all windows) of all subjects of a group pooled;
 -- the events of one subject are not independent, so no p-value is given.
@@ -26,13 +30,26 @@ WITH grp AS (
     FROM subject_groups(getvariable('analysis'), getvariable('group_column'),
                         getvariable('group_a'), getvariable('group_b'))
 ),
+cells AS (
+    SELECT DISTINCT n.state, d.dimension
+    FROM state_networks n JOIN grp g USING (subject_id)
+    CROSS JOIN (VALUES (0), (1)) d(dimension)
+    WHERE n.analysis_id = getvariable('analysis')
+),
 events AS (
-    SELECT e.state, e.dimension,
-           list(e.value) FILTER (WHERE g.side = 'a') AS a,
-           list(e.value) FILTER (WHERE g.side = 'b') AS b
-    FROM filtration_events e JOIN grp g USING (subject_id)
-    WHERE e.analysis_id = getvariable('analysis')
-    GROUP BY e.state, e.dimension
+    SELECT state, dimension, len(a) AS n_events_a, len(b) AS n_events_b,
+           ks_test(a, b).statistic AS pooled_events_ks_distance
+    FROM (
+        SELECT e.state, e.dimension,
+               list(e.value) FILTER (WHERE g.side = 'a') AS a,
+               list(e.value) FILTER (WHERE g.side = 'b') AS b
+        FROM filtration_events e JOIN grp g USING (subject_id)
+        WHERE e.analysis_id = getvariable('analysis')
+          AND CASE getvariable('pooled_events')
+                  WHEN 0 THEN false WHEN 1 THEN true
+                  ELSE error('filtration_tests_by_group: pooled_events is 0 or 1, not ' || getvariable('pooled_events')) END
+        GROUP BY e.state, e.dimension
+    )
 ),
 per_threshold AS (
     SELECT c.subject_id, g.side, c.state, c.dimension, c.threshold, avg(c.betti) AS betti
@@ -63,20 +80,21 @@ mean_curves AS (
     GROUP BY state, dimension
 ),
 tests AS (
-    SELECT e.state, e.dimension,
+    SELECT x.state, x.dimension,
            coalesce(len(c.a), 0) AS n_subjects_a, coalesce(len(c.b), 0) AS n_subjects_b,
-           len(e.a) AS n_events_a, len(e.b) AS n_events_b,
-           ks_test(e.a, e.b).statistic AS pooled_events_ks_distance,
+           e.n_events_a, e.n_events_b, e.pooled_events_ks_distance,
            curve_distance(mc.a, mc.b) AS curve_distance,
            curve_perm_test(c.a, c.b, getvariable('n_perm')::INTEGER,
-                           getvariable('seed') + 2 * e.state + e.dimension) AS cp
-    FROM events e
+                           getvariable('seed') + 2 * x.state + x.dimension) AS cp
+    FROM cells x
+    LEFT JOIN events e USING (state, dimension)
     LEFT JOIN curves c USING (state, dimension)
     LEFT JOIN mean_curves mc USING (state, dimension)
 )
 SELECT state, dimension, n_subjects_a, n_subjects_b,
        curve_distance, cp.pvalue AS curve_perm_p,
        bh_adjust(cp.pvalue, list(cp.pvalue) OVER ()) AS curve_perm_p_bh,
+       CASE WHEN cp IS NOT NULL THEN getvariable('n_perm') END AS n_perm,
        n_events_a, n_events_b, pooled_events_ks_distance
 FROM tests
 ORDER BY state, dimension;

@@ -30,7 +30,8 @@ func reportCommand() *cli.Command {
 			analysisFlag("left out: the only analysis in the warehouse (several: refused, listing them)"),
 			&cli.StringFlag{Name: "out", Aliases: []string{"o"}, Usage: "the HTML `FILE` to write"},
 			&cli.StringFlag{Name: "group", Value: "group", Usage: "subjects-table `COLUMN` whose values are the groups compared (\"\": one group)"},
-			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "`N` relabellings of every permutation test"},
+			&cli.IntFlag{Name: "n-perm", Value: 9999, Usage: "`N` relabellings of every permutation test but the Betti-curve test"},
+			&cli.IntFlag{Name: "curve-n-perm", Value: 999, Usage: "`N` relabellings of the Betti-curve test (filtration_tests_by_group; each relabelling sums whole curves)"},
 			&cli.Int64Flag{Name: "seed", Value: 1, Usage: "permutation `SEED`"},
 			&cli.StringFlag{Name: "adjust-all", Usage: "also adjust all inferential p-values of the report as one family: `METHOD` bh (Benjamini-Hochberg) or by (Benjamini-Yekutieli, any dependence)"},
 			&cli.StringFlag{Name: "adjust", Usage: "comma-separated subjects `COLUMNS` (e.g. age,sex,site): add group contrasts adjusted for them (bundled query adjusted_group_contrast)"},
@@ -43,8 +44,10 @@ func reportCommand() *cli.Command {
 			if out == "" {
 				return usagef("report: --out FILE is required")
 			}
-			if n := c.Int("n-perm"); n < 1 || n > 10_000_000 {
-				return usagef("report: --n-perm %d: want 1 to 10000000", n)
+			for _, f := range []string{"n-perm", "curve-n-perm"} {
+				if n := c.Int(f); n < 1 || n > 10_000_000 {
+					return usagef("report: --%s %d: want 1 to 10000000", f, n)
+				}
 			}
 			if a := c.String("adjust-all"); a != "" && a != "bh" && a != "by" {
 				return usagef("report: --adjust-all %q: want bh or by", a)
@@ -67,7 +70,7 @@ func reportCommand() *cli.Command {
 			}
 			r, err := report.Build(c.Context, db, conn, report.Options{
 				Analysis: c.String("analysis"), Group: c.String("group"), DefaultGroup: !c.IsSet("group"),
-				NPerm: c.Int("n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"), Adjust: adjustList(c.String("adjust")),
+				NPerm: c.Int("n-perm"), CurveNPerm: c.Int("curve-n-perm"), Seed: c.Int64("seed"), DBPath: c.String("db"), Adjust: adjustList(c.String("adjust")),
 				Caution: caution, Generator: "topostate " + ingest.Version, AdjustAll: c.String("adjust-all"),
 			})
 			var perr *queries.ParamError

@@ -23,9 +23,10 @@ func TestReportCommand(t *testing.T) {
 		{"unknown analysis", []string{"report", "--db", warehouse, "--out", out, "--analysis", "x"}, exitUsage, "", `no such analysis "x"`},
 		{"unknown group column", []string{"report", "--db", warehouse, "--out", out, "--group", "shift"}, exitUsage, "", `no column "shift"`},
 		{"bad --n-perm", []string{"report", "--db", warehouse, "--out", out, "--n-perm", "0"}, exitUsage, "", "--n-perm 0"},
+		{"bad --curve-n-perm", []string{"report", "--db", warehouse, "--out", out, "--curve-n-perm", "0"}, exitUsage, "", "--curve-n-perm 0"},
 		{"an argument", []string{"report", "--db", warehouse, "--out", out, "extra"}, exitUsage, "", "takes no arguments"},
 		{"missing warehouse", []string{"report", "--db", filepath.Join(dir, "none.duckdb"), "--out", out}, exitFailure, "", "none.duckdb"},
-		{"ok", []string{"report", "--db", warehouse, "--out", out, "--n-perm", "99"}, exitOK, "(1 group contrast)", ""},
+		{"ok", []string{"report", "--db", warehouse, "--out", out, "--n-perm", "99", "--curve-n-perm", "99"}, exitOK, "(1 group contrast)", ""},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			code, stdout, stderr := topostate(c.args...)

@@ -37,7 +37,10 @@ const (
 	analysisName = `quay "7" & <yard>`
 	lateGroup    = `late & "swing" <i>`
 	testNPerm    = 199
-	cautionText  = "Research use only: results are not a diagnosis and must not guide the care of a patient; defer to clinical judgement."
+	// testCurveNPerm differs from testNPerm so that the tables below show
+	// each reached its own query.
+	testCurveNPerm = 99
+	cautionText    = "Research use only: results are not a diagnosis and must not guide the care of a patient; defer to clinical judgement."
 )
 
 var (
@@ -143,7 +146,7 @@ func buildReport(path, group string, adjustAll ...string) (*Report, []byte, erro
 	if err := queries.Register(ctx, conn, queries.FS); err != nil {
 		return nil, nil, err
 	}
-	r, err := Build(ctx, db, conn, Options{Analysis: analysisName, Group: group, NPerm: testNPerm, Seed: 3,
+	r, err := Build(ctx, db, conn, Options{Analysis: analysisName, Group: group, NPerm: testNPerm, CurveNPerm: testCurveNPerm, Seed: 3,
 		DBPath: "my cohort.duckdb", Caution: cautionText, Generator: "topostate test", AdjustAll: strings.Join(adjustAll, "")})
 	if err != nil {
 		return nil, nil, err
@@ -652,7 +655,11 @@ func TestNumbersEqualBundledQueries(t *testing.T) {
 				t.Errorf("t-dwell-%s: %s under the headings %q, want %q", c.ID, col, got, head)
 			}
 		}
-		checked += matchTable(t, doc, "t-filtration-"+c.ID, runBundled(t, qdb, "filtration_tests_by_group", pp), "state", "dimension")
+		cp := map[string]string{"n_perm": strconv.Itoa(testCurveNPerm), "seed": "3"}
+		for k, v := range p {
+			cp[k] = v
+		}
+		checked += matchTable(t, doc, "t-filtration-"+c.ID, runBundled(t, qdb, "filtration_tests_by_group", cp), "state", "dimension")
 		// Transitions: a matrix; each cell holds both groups' means.
 		trs := tableRows(t, doc, "t-transitions-"+c.ID)
 		for _, row := range runBundled(t, qdb, "transitions_by_group", p) {
