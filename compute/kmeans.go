@@ -691,6 +691,10 @@ type Elbow struct {
 	// Strength is the prediction strength over the same k, when it was
 	// computed.
 	Strength *Strength `json:",omitempty"`
+	// OtherStrength is the prediction strength with the other halving
+	// (by window when Strength is by subject, and the reverse), when a
+	// caller asked for both; it is not stored.
+	OtherStrength *Strength `json:"-"`
 }
 
 // ElbowScan fits KMeans for k = kmin..kmax with opt (opt.K is ignored) and

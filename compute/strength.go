@@ -14,8 +14,14 @@ type StrengthOptions struct {
 	// estimates (each half predicting the other). 0 means 5.
 	Splits int
 	// Sample caps the rows used: when x has more rows, a subsample of Sample
-	// rows drawn without replacement stands for it. 0 means 1000.
+	// rows drawn without replacement stands for it (with Groups: each half
+	// is capped at Sample/2 rows). 0 means 1000.
 	Sample int
+	// Groups, when not nil, holds one label per row of x (any integers):
+	// rows with the same label always fall in the same half, so that rows
+	// which are not independent of each other (overlapping windows of one
+	// subject) cannot stand on both sides of a split. Nil halves by row.
+	Groups []int
 	// Threshold is the prediction strength a k must reach to be picked; 0
 	// means DefaultStrengthThreshold.
 	Threshold float64
@@ -46,7 +52,8 @@ type StrengthPoint struct {
 type Strength struct {
 	Points    []StrengthPoint
 	K         int     // StrengthPick of the points
-	Rows      int     // rows of the (sub)sample
+	Rows      int     // rows of the (sub)sample; with groups, of both halves of the first split
+	Groups    int     // distinct groups halved (0: halved by row)
 	Splits    int     // random halvings
 	Threshold float64 // the threshold of the pick
 }
@@ -68,8 +75,18 @@ const strengthStream = 0x5e7 << 40 // seed stream of the subsample and the halvi
 // left out of the minimum. Each split gives two estimates (each half as the
 // test half); Strength is their mean. ps(1) = 1.
 //
+// With opt.Groups the halving is by group instead (docs/methods.md §3.x):
+// split s permutes the distinct labels with rand.NewPCG(seed,
+// strengthStream+1+s) and gives each group in turn to the half with fewer
+// rows so far; a half with more than opt.Sample/2 rows is then subsampled
+// to that many from the same generator. The method assumes independent
+// observations (Tibshirani and Walther, 2005, section 2); overlapping
+// windows of one series are not, and when they fall on both sides of a
+// halving any partition of them "reproduces".
+//
 // The pick is StrengthPick with opt.Threshold. Errors: kmin < 1, kmax <
-// kmin, kmax larger than a half, any error of KMeans, ErrStopped.
+// kmin, kmax larger than a half, fewer than 2 groups or a label per row
+// missing, any error of KMeans, ErrStopped.
 func PredictionStrength(x Matrix32, kmin, kmax int, opt StrengthOptions, seed uint64) (Strength, error) {
 	checkMatrix("x", x)
 	if kmin < 1 || kmax < kmin {
@@ -88,16 +105,64 @@ func PredictionStrength(x Matrix32, kmin, kmax int, opt StrengthOptions, seed ui
 	if splits < 1 || m < 2 || !(th > 0 && th <= 1) || opt.Restarts < 0 || opt.MaxIter < 0 {
 		return Strength{}, fmt.Errorf("compute: prediction strength options out of range (splits %d, sample %d, threshold %v, restarts %d, max iterations %d)", splits, m, th, opt.Restarts, opt.MaxIter)
 	}
-	sub := x
-	if x.Rows > m {
-		r := rand.New(rand.NewPCG(seed, strengthStream))
-		idx := r.Perm(x.Rows)[:m]
-		slices.Sort(idx)
-		sub = subRows(x, idx)
-	}
-	half := sub.Rows / 2
-	if kmax > half {
-		return Strength{}, fmt.Errorf("compute: prediction strength at k = %d needs at least that many rows in each half, have %d", kmax, half)
+	var halve func(s int) (Matrix32, Matrix32, error)
+	rows, groups := 0, 0
+	if opt.Groups != nil {
+		if len(opt.Groups) != x.Rows {
+			return Strength{}, fmt.Errorf("compute: prediction strength has %d group labels for %d rows", len(opt.Groups), x.Rows)
+		}
+		members := map[int][]int{}
+		for i, g := range opt.Groups {
+			members[g] = append(members[g], i)
+		}
+		labels := make([]int, 0, len(members))
+		for g := range members {
+			labels = append(labels, g)
+		}
+		slices.Sort(labels)
+		if len(labels) < 2 {
+			return Strength{}, fmt.Errorf("compute: prediction strength by group needs at least 2 groups to halve, have %d", len(labels))
+		}
+		groups = len(labels)
+		halve = func(s int) (Matrix32, Matrix32, error) {
+			r := rand.New(rand.NewPCG(seed, strengthStream+1+uint64(s)))
+			var a, b []int
+			for _, g := range r.Perm(len(labels)) {
+				// Greedy: each group, in random order, joins the half
+				// with fewer rows, so the halves are as even as the
+				// group sizes allow.
+				if len(a) <= len(b) {
+					a = append(a, members[labels[g]]...)
+				} else {
+					b = append(b, members[labels[g]]...)
+				}
+			}
+			a, b = capRows(r, a, m/2), capRows(r, b, m/2)
+			if min(len(a), len(b)) < kmax {
+				return Matrix32{}, Matrix32{}, fmt.Errorf("compute: prediction strength at k = %d needs at least that many rows in each half, a halving by group has %d and %d", kmax, len(a), len(b))
+			}
+			return subRows(x, a), subRows(x, b), nil
+		}
+	} else {
+		sub := x
+		if x.Rows > m {
+			r := rand.New(rand.NewPCG(seed, strengthStream))
+			idx := r.Perm(x.Rows)[:m]
+			slices.Sort(idx)
+			sub = subRows(x, idx)
+		}
+		half := sub.Rows / 2
+		if kmax > half {
+			return Strength{}, fmt.Errorf("compute: prediction strength at k = %d needs at least that many rows in each half, have %d", kmax, half)
+		}
+		rows = sub.Rows
+		halve = func(s int) (Matrix32, Matrix32, error) {
+			perm := rand.New(rand.NewPCG(seed, strengthStream+1+uint64(s))).Perm(sub.Rows)
+			a, b := perm[:half], perm[half:]
+			slices.Sort(a)
+			slices.Sort(b)
+			return subRows(sub, a), subRows(sub, b), nil
+		}
 	}
 	km := KMeansOptions{Restarts: 5, MaxIter: opt.MaxIter, Distance: opt.Distance, Workers: opt.Workers, Stop: opt.Stop}
 	if opt.Restarts > 0 {
@@ -108,11 +173,13 @@ func PredictionStrength(x Matrix32, kmin, kmax int, opt StrengthOptions, seed ui
 		if opt.Stop != nil && opt.Stop() {
 			return Strength{}, ErrStopped
 		}
-		perm := rand.New(rand.NewPCG(seed, strengthStream+1+uint64(s))).Perm(sub.Rows)
-		a, b := perm[:half], perm[half:]
-		slices.Sort(a)
-		slices.Sort(b)
-		xa, xb := subRows(sub, a), subRows(sub, b)
+		xa, xb, err := halve(s)
+		if err != nil {
+			return Strength{}, err
+		}
+		if s == 0 && groups > 0 {
+			rows = xa.Rows + xb.Rows
+		}
 		_, fa, err := ElbowScan(xa, kmin, kmax, km, seed+2*uint64(s)+1)
 		if err != nil {
 			return Strength{}, fmt.Errorf("compute: prediction strength, split %d: %w", s+1, err)
@@ -131,7 +198,7 @@ func PredictionStrength(x Matrix32, kmin, kmax int, opt StrengthOptions, seed ui
 			opt.Done()
 		}
 	}
-	out := Strength{Rows: sub.Rows, Splits: splits, Threshold: th}
+	out := Strength{Rows: rows, Groups: groups, Splits: splits, Threshold: th}
 	for i, e := range est {
 		mu, sd := meanSD(e)
 		out.Points = append(out.Points, StrengthPoint{K: kmin + i, Strength: mu, SE: sd / math.Sqrt(float64(len(e)))})
@@ -197,6 +264,21 @@ func StrengthPick(ks []int, ps []float64, threshold float64) int {
 		}
 	}
 	return best
+}
+
+// capRows returns idx when it has at most m entries, else m of them drawn
+// uniformly without replacement from r, in increasing order.
+func capRows(r *rand.Rand, idx []int, m int) []int {
+	if len(idx) <= m {
+		slices.Sort(idx)
+		return idx
+	}
+	out := make([]int, m)
+	for i, p := range r.Perm(len(idx))[:m] {
+		out[i] = idx[p]
+	}
+	slices.Sort(out)
+	return out
 }
 
 // subRows returns a new matrix holding the rows idx of x, in that order.

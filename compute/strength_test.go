@@ -87,3 +87,82 @@ func TestPredictionStrengthKnownClusters(t *testing.T) {
 		t.Fatal("k larger than a half accepted")
 	}
 }
+
+// TestPredictionStrengthGroups: the method assumes independent rows
+// (Tibshirani and Walther, 2005, section 2). Ten elongated Gaussian clouds
+// (standard deviation 3 along one axis, 1 along seven) of 48 points, each
+// point repeated 5 times with a little jitter (as overlapping windows of
+// one series repeat each other): halved by row, near copies of every point
+// sit in both halves and a split of the cloud "reproduces"; halved by
+// group (the copies of a point share a label) the halves are independent
+// again. No cloud has clusters, so the right pick is 1: halving by group
+// must read at least 8 of the 10 as one cluster and more of them than
+// halving by row does (measured when written: 9 against 4). Three
+// separated blobs halved by groups of 4 rows are still read as 3. Fewer
+// than two groups, or a label count that does not match the rows, is
+// refused; each half is capped at Sample/2 rows.
+func TestPredictionStrengthGroups(t *testing.T) {
+	const points, copies = 48, 5
+	var x Matrix32
+	groups := make([]int, points*copies)
+	oneByRow, oneByGroup := 0, 0
+	for seed := uint64(1); seed <= 10; seed++ {
+		base := randomMatrix(points, 8, seed)
+		jitter := randomMatrix(points*copies, 8, seed+100)
+		x = NewMatrix32(points*copies, 8)
+		for i := range x.Rows {
+			groups[i] = i / copies
+			for j, v := range base.Row(i / copies) {
+				if j == 0 {
+					v *= 3
+				}
+				x.Row(i)[j] = v + 0.02*jitter.Row(i)[j]
+			}
+		}
+		byRow, err := PredictionStrength(x, 1, 6, StrengthOptions{}, 5)
+		if err != nil {
+			t.Fatal(err)
+		}
+		byGroup, err := PredictionStrength(x, 1, 6, StrengthOptions{Groups: groups}, 5)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if byGroup.Groups != points || byGroup.Rows != x.Rows || byRow.Groups != 0 {
+			t.Fatalf("%d groups and %d rows by group, %d groups by row; want %d, %d, 0", byGroup.Groups, byGroup.Rows, byRow.Groups, points, x.Rows)
+		}
+		if byRow.K == 1 {
+			oneByRow++
+		}
+		if byGroup.K == 1 {
+			oneByGroup++
+		}
+	}
+	if oneByGroup < 8 || oneByGroup <= oneByRow {
+		t.Fatalf("one elongated cloud read as one cluster %d of 10 times by group, %d by row; want at least 8 and more than by row", oneByGroup, oneByRow)
+	}
+	capped, err := PredictionStrength(x, 1, 6, StrengthOptions{Groups: groups, Sample: 100}, 5)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if capped.Rows != 100 {
+		t.Fatalf("halves capped at 50 rows each hold %d rows together, want 100", capped.Rows)
+	}
+	b, _ := blobs(3, 60, 8, 11)
+	bg := make([]int, b.Rows)
+	for i := range bg {
+		bg[i] = i / 4
+	}
+	s, err := PredictionStrength(b, 1, 6, StrengthOptions{Groups: bg}, 5)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.K != 3 {
+		t.Fatalf("blobs halved by group: pick %d, strengths %+v", s.K, s.Points)
+	}
+	if _, err := PredictionStrength(x, 1, 6, StrengthOptions{Groups: make([]int, x.Rows)}, 5); err == nil {
+		t.Fatal("one group accepted")
+	}
+	if _, err := PredictionStrength(x, 1, 6, StrengthOptions{Groups: groups[1:]}, 5); err == nil {
+		t.Fatal("a label missing accepted")
+	}
+}

@@ -88,9 +88,7 @@ func TemporalVariability(win Matrix32) float64 {
 	}
 	mean := make([]float64, D)
 	for r := 0; r < n; r++ {
-		for q, v := range win.Row(r) {
-			mean[q] += float64(v)
-		}
+		addWiden(mean, win.Row(r)) // the same sums, row by row, in AVX2
 	}
 	for q := range mean {
 		mean[q] /= float64(n)

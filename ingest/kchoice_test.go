@@ -119,3 +119,42 @@ func makeStickyCohort(t *testing.T, subjects, regions, timepoints, states int, s
 	}
 	return dir
 }
+
+// TestStrengthHalvingBySubject runs the real ingest path with
+// --strength-halving subject (docs/methods.md §3.x) and the other halving
+// computed beside it: on 6 subjects the halvings must keep subjects whole
+// (6 groups halved; the default by window halves no groups), the pick must
+// be the by-subject strength's, and the stored parameters must say so. On
+// one subject the windows are halved by blocks of time instead: with the
+// default window at TR 1.5 s, ceil(1/(0.01 x 1.5)) = 67 time points, 300
+// time points give 234 windows, fewer than two blocks of 4 x 67 = 268, so
+// the series is cut in two halves of 117 windows: 2 groups (worked by
+// hand).
+func TestStrengthHalvingBySubject(t *testing.T) {
+	for _, subjects := range []int{6, 1} {
+		dir := makeCohort(t, subjects, 12, 300, 1, 23)
+		dbPath := filepath.Join(t.TempDir(), "w.duckdb")
+		o := Defaults()
+		o.Input, o.Grid, o.Seed = dir, "-0.5:1:31", 11
+		o.StatesMax, o.StrengthHalving, o.CompareHalvings = 4, "subject", true
+		sum := ingestInto(t, dbPath, o)
+		e := sum.Elbow
+		if e == nil || e.Strength == nil || e.OtherStrength == nil {
+			t.Fatalf("%d subjects: no prediction strength (elbow %+v)", subjects, e)
+		}
+		if sum.States != e.Strength.K || e.OtherStrength.Groups != 0 {
+			t.Errorf("%d subjects: picked %d, strength pick %d, groups of the other halving %d", subjects, sum.States, e.Strength.K, e.OtherStrength.Groups)
+		}
+		if g := e.Strength.Groups; (subjects > 1 && g != subjects) || (subjects == 1 && g != 2) {
+			t.Errorf("%d subjects: %d groups halved", subjects, g)
+		}
+		db, err := schema.Open(dbPath, true, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if n := queryInt(t, db, `SELECT count(*) FROM analyses WHERE parameters->>'strength_halving' = 'subject'`); n != 1 {
+			t.Errorf("%d subjects: the stored parameters do not say strength_halving subject", subjects)
+		}
+		db.Close()
+	}
+}

@@ -60,6 +60,16 @@ type Options struct {
 	StrengthSplits    int     `json:"strength_splits"`
 	StrengthWindows   int     `json:"strength_windows"`
 	StrengthThreshold float64 `json:"strength_threshold"`
+	// StrengthHalving says what the halvings of the prediction strength
+	// keep together: "window" (windows halved at random one by one, the
+	// default) or "subject" (every window of a subject in one half; a
+	// cohort of one subject is halved by blocks of time, docs/methods.md
+	// §3.x). README "Number of states" has both measured.
+	StrengthHalving string `json:"strength_halving"`
+	// CompareHalvings also computes the prediction strength with the other
+	// halving, into Elbow.OtherStrength (scripts/kchoice compares them on
+	// one fitting sample); it does not change the pick.
+	CompareHalvings bool `json:"-"`
 	// AllRules computes both the gap statistic and the prediction strength
 	// whatever KRule is (scripts/kchoice compares the rules on one scan).
 	AllRules bool `json:"-"`
@@ -158,7 +168,7 @@ func Defaults() Options {
 	return Options{
 		Window: 0, MinFreq: DefaultMinFreq, Step: 1, Taper: "none", TaperSD: 0,
 		StatesMin: 1, StatesMax: 10, KRule: "strength", GapReferences: 10, GapWindows: 400,
-		StrengthSplits: 5, StrengthWindows: 1000, StrengthThreshold: compute.DefaultStrengthThreshold, Restarts: 3, MaxIter: 50, Seed: 1,
+		StrengthSplits: 5, StrengthWindows: 1000, StrengthThreshold: compute.DefaultStrengthThreshold, StrengthHalving: "window", Restarts: 3, MaxIter: 50, Seed: 1,
 		Distance: "euclidean", FitMax: 20000, FitMemory: DefaultFitMemory, FitSample: "peaks",
 		DBMemory:     DefaultDBMemory,
 		Grid:         "-1:1:101",
@@ -334,6 +344,9 @@ func (o Options) Check() error {
 		}
 		if !(o.StrengthThreshold > 0 && o.StrengthThreshold <= 1) {
 			bad("--strength-threshold %v: want a number in (0, 1]; 0.8-0.9 is the published range", o.StrengthThreshold)
+		}
+		if o.StrengthHalving != "subject" && o.StrengthHalving != "window" {
+			bad("--strength-halving %q: want window or subject", o.StrengthHalving)
 		}
 		if o.States == 0 && o.StrengthWindows < 2*o.StatesMax {
 			bad("--strength-windows %d: must be at least twice --states-max %d (each half needs more windows than states)", o.StrengthWindows, o.StatesMax)

@@ -18,7 +18,7 @@ func TestFitPoolUniform(t *testing.T) {
 	for seed := uint64(1); seed <= seeds; seed++ {
 		p := newFitPool(n, 2, 4, seed)
 		for r := range rows {
-			p.add([]float32{float32(r), float32(-r)})
+			p.add([]float32{float32(r), float32(-r)}, r, nil)
 		}
 		m := p.matrix()
 		if m.Rows != n || cap(p.data) > n*2 {
@@ -29,6 +29,9 @@ func TestFitPoolUniform(t *testing.T) {
 			row := m.Row(i)
 			if row[1] != -row[0] || seen[row[0]] {
 				t.Fatalf("seed %d: row %v torn or repeated", seed, row)
+			}
+			if p.series[i] != int32(row[0]) || p.window[i] != -1 {
+				t.Fatalf("seed %d: row %v labelled series %d window %d, want %v and -1", seed, row, p.series[i], p.window[i], row[0])
 			}
 			seen[row[0]] = true
 			kept[int(row[0])]++
@@ -50,11 +53,16 @@ func TestFitPoolKeepsAllInOrder(t *testing.T) {
 	for r := range 40 {
 		row := []float32{float32(r), 1, 2}
 		want = append(want, row...)
-		p.add(row)
+		p.add(row, 0, []int{r})
 	}
 	m := p.matrix()
 	if m.Rows != 40 {
 		t.Fatalf("%d rows, want 40", m.Rows)
+	}
+	for r := range 40 {
+		if p.series[r] != 0 || p.window[r] != int32(r) {
+			t.Fatalf("row %d labelled series %d window %d, want 0 and %d", r, p.series[r], p.window[r], r)
+		}
 	}
 	for i, v := range want {
 		if m.Data[i] != v {

@@ -323,23 +323,27 @@ type stages struct {
 	workers int
 	prog    Progress
 
-	pre          compute.PreprocessOptions
-	win          compute.WindowOptions
-	dist         compute.Distance
-	grid         []float64
-	core         int // N of the core networks (docs/methods.md §7)
-	p            int // regions analysed
-	k            int
-	cent         compute.Matrix32
-	elbow        *compute.Elbow
-	fitRows      int
-	sampleK      []int // windows per state in the fitting sample, after relabelling
-	totalWindows int64
+	pre     compute.PreprocessOptions
+	win     compute.WindowOptions
+	dist    compute.Distance
+	grid    []float64
+	core    int // N of the core networks (docs/methods.md §7)
+	p       int // regions analysed
+	k       int
+	cent    compute.Matrix32
+	elbow   *compute.Elbow
+	fitRows int
+	// fitSeries and fitWindow: the series (position in the cohort) and
+	// window index of each fitting-sample row (window -1: not known).
+	fitSeries, fitWindow []int32
+	sampleK              []int // windows per state in the fitting sample, after relabelling
+	totalWindows         int64
 
-	bufs     sync.Pool // *[]float32 window buffers, one per busy worker
-	work     workTimes // per-part times of the parallel stages
-	rowsDone time.Time // when stage 4 had turned the last subject into rows
-	fits     []FitStat
+	bufs      sync.Pool // *[]float32 window buffers, one per busy worker
+	surrPools sync.Pool // *[]float32 fitting pools of surrogate runs, one per busy worker
+	work      workTimes // per-part times of the parallel stages
+	rowsDone  time.Time // when stage 4 had turned the last subject into rows
+	fits      []FitStat
 }
 
 // coreDefault is N of the core networks when --core-timepoints is 0: the
@@ -550,8 +554,8 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 		hint = min(hint, s.totalWindows/4)
 	}
 	pool := s.newPool(hint)
-	err := s.sampleRange(ctx, 0, n, func(i int, rowsOf []float32) error {
-		pool.add(rowsOf)
+	err := s.sampleRange(ctx, 0, n, func(i int, rowsOf []float32, win []int) error {
+		pool.add(rowsOf, i, win)
 		s.prog.Add(1)
 		return nil
 	})
@@ -581,6 +585,7 @@ func (s *stages) newPool(hint int64) *fitPool {
 func (s *stages) takePool(p *fitPool) compute.Matrix32 {
 	m := p.matrix()
 	s.fitRows = m.Rows
+	s.fitSeries, s.fitWindow = p.series, p.window
 	return m
 }
 
@@ -596,6 +601,10 @@ type fitPool struct {
 	seen   int64 // rows offered so far
 	data   []float32
 	rng    *rand.Rand
+	// series and window say where each kept row came from: the series'
+	// position in the cohort and the window's index in that series (-1
+	// when not known).
+	series, window []int32
 }
 
 func newFitPool(most, d int, hint int64, seed uint64) *fitPool {
@@ -603,10 +612,15 @@ func newFitPool(most, d int, hint int64, seed uint64) *fitPool {
 	return &fitPool{max: most, d: d, data: make([]float32, 0, rows*d), rng: rand.New(rand.NewPCG(seed, 0))}
 }
 
-// add offers rows (a whole number of rows of d values) to the pool.
-func (p *fitPool) add(rows []float32) {
-	for off := 0; off+p.d <= len(rows); off += p.d {
+// add offers rows (a whole number of rows of d values) of series i to the
+// pool; win holds their window indices in the series (nil: not known).
+func (p *fitPool) add(rows []float32, i int, win []int) {
+	for r, off := 0, 0; off+p.d <= len(rows); r, off = r+1, off+p.d {
 		row := rows[off : off+p.d]
+		w := int32(-1)
+		if win != nil {
+			w = int32(win[r])
+		}
 		p.seen++
 		if n := len(p.data) / p.d; n < p.max {
 			if len(p.data)+p.d > cap(p.data) {
@@ -616,10 +630,12 @@ func (p *fitPool) add(rows []float32) {
 				p.data = grown
 			}
 			p.data = append(p.data, row...)
+			p.series, p.window = append(p.series, int32(i)), append(p.window, w)
 			continue
 		}
 		if j := p.rng.Int64N(p.seen); j < int64(p.max) {
 			copy(p.data[int(j)*p.d:], row)
+			p.series[j], p.window[j] = int32(i), w
 		}
 	}
 }
@@ -633,14 +649,20 @@ func (p *fitPool) matrix() compute.Matrix32 {
 // series order. A shard of a sharded run calls it for its own range; the
 // series index i is the position in the whole cohort, so the draws do not
 // depend on the sharding.
-func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, rows []float32) error) error {
+//
+// sink also gets the rows' window indices in the series.
+func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, rows []float32, win []int) error) error {
 	perSubject := s.perSeries()
 	D := compute.PairCount(s.p)
-	return parallel(ctx, hi-lo, s.workers, func(j int) ([]float32, error) {
+	type sampled struct {
+		rows []float32
+		win  []int
+	}
+	return parallel(ctx, hi-lo, s.workers, func(j int) (sampled, error) {
 		i := lo + j
 		m, err := s.windows("sample", s.c.Inputs[i])
 		if err != nil {
-			return nil, err
+			return sampled{}, err
 		}
 		defer s.work.since("sample: peaks", time.Now())
 		idx := fitCandidates(m, s.o.FitSample)
@@ -653,9 +675,9 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 			out = append(out, m.Row(r)...)
 		}
 		s.release(m)
-		return out, nil
-	}, func(j int, rowsOf []float32) error {
-		return sink(lo+j, rowsOf)
+		return sampled{out, idx}, nil
+	}, func(j int, got sampled) error {
+		return sink(lo+j, got.rows, got.win)
 	})
 }
 
@@ -744,16 +766,42 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 			}
 		}
 		if e.Rule == "strength" || s.o.AllRules {
-			sopt := compute.StrengthOptions{Splits: s.o.StrengthSplits, Sample: s.o.StrengthWindows, Threshold: s.o.StrengthThreshold,
-				Restarts: scan.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
-			s.prog.Stage(fmt.Sprintf("prediction strength, %d random halvings", s.o.StrengthSplits), s.o.StrengthSplits)
-			ts := time.Now()
-			ps, err := compute.PredictionStrength(x, s.o.StatesMin, s.o.StatesMax, sopt, s.o.Seed)
-			if err != nil {
-				return fmt.Errorf("ingest: prediction strength: %w", stopped(ctx, err))
+			halving := s.o.StrengthHalving
+			if halving == "" { // options stored before the choice existed
+				halving = "window"
 			}
-			t = s.work.since("fit: prediction strength", ts)
+			strength := func(halving string) (compute.Strength, error) {
+				sopt := compute.StrengthOptions{Splits: s.o.StrengthSplits, Sample: s.o.StrengthWindows, Threshold: s.o.StrengthThreshold,
+					Restarts: scan.Restarts, MaxIter: s.o.MaxIter, Distance: s.dist, Workers: s.workers, Done: func() { s.prog.Add(1) }, Stop: opt.Stop}
+				if halving == "subject" {
+					g, err := s.strengthGroups(x.Rows)
+					if err != nil {
+						return compute.Strength{}, err
+					}
+					sopt.Groups = g
+				}
+				s.prog.Stage(fmt.Sprintf("prediction strength, %d random halvings by %s", s.o.StrengthSplits, halving), s.o.StrengthSplits)
+				ts := time.Now()
+				ps, err := compute.PredictionStrength(x, s.o.StatesMin, s.o.StatesMax, sopt, s.o.Seed)
+				if err != nil {
+					return ps, fmt.Errorf("ingest: prediction strength: %w", stopped(ctx, err))
+				}
+				t = s.work.since("fit: prediction strength", ts)
+				return ps, nil
+			}
+			ps, err := strength(halving)
+			if err != nil {
+				return err
+			}
 			e.Strength = &ps
+			if s.o.CompareHalvings {
+				other := map[string]string{"subject": "window", "window": "subject"}[halving]
+				ops, err := strength(other)
+				if err != nil {
+					return err
+				}
+				e.OtherStrength = &ops
+			}
 			if e.Rule == "strength" {
 				s.k = ps.K
 			}
@@ -786,6 +834,56 @@ func (s *stages) fit(ctx context.Context, x compute.Matrix32) error {
 	}
 	return nil
 }
+
+// strengthGroups labels the rows of the fitting sample for the prediction
+// strength's halvings by subject (docs/methods.md §3.x): the subject's
+// position among the cohort's subjects when the sample holds windows of at
+// least two subjects. With one subject, each series' windows are cut into
+// blocks of strengthBlock window widths, or into two halves when the series
+// is shorter than two such blocks (by window start; the label is the
+// series and the block), so only windows near a block's edge overlap
+// windows of another block.
+func (s *stages) strengthGroups(rows int) ([]int, error) {
+	if len(s.fitSeries) != rows {
+		return nil, fmt.Errorf("ingest: prediction strength: the fitting sample has %d rows but %d series labels", rows, len(s.fitSeries))
+	}
+	subject := map[string]int{}
+	for _, in := range s.c.Inputs {
+		if _, ok := subject[in.Subject]; !ok {
+			subject[in.Subject] = len(subject)
+		}
+	}
+	g := make([]int, rows)
+	seen := map[int]bool{}
+	for r, i := range s.fitSeries {
+		g[r] = subject[s.c.Inputs[i].Subject]
+		seen[g[r]] = true
+	}
+	if len(seen) >= 2 {
+		return g, nil
+	}
+	for r, i := range s.fitSeries {
+		in := s.c.Inputs[i]
+		w := s.fitWindow[r]
+		if w < 0 {
+			return nil, fmt.Errorf("ingest: prediction strength: the fitting sample does not say which window of %s row %d is, needed to halve one subject by blocks of time", in.Rel, r+1)
+		}
+		width, step := in.Window, in.Step
+		if width <= 0 { // the cohort's window, not one of its own
+			width, step = s.win.Width, s.win.Step
+		}
+		block := max(1, min(strengthBlock*width/max(step, 1), (in.Windows+1)/2))
+		g[r] = int(i)<<20 | int(w)/block
+	}
+	return g, nil
+}
+
+// strengthBlock is the length of the time blocks, in window widths, that
+// halve a one-subject cohort for the prediction strength: windows start
+// every Step points and overlap up to one width, so about 1/strengthBlock
+// of a block's windows overlap a neighbouring block's (our choice, common
+// practice, no source).
+const strengthBlock = 4
 
 // writeStatic writes the analysis-level tables: regions, elbow, centroids,
 // subjects, excluded inputs.

@@ -520,7 +520,8 @@ func (w *Work) checkShard(sh Shard) error {
 
 // Sample is stage 1 for one shard: the fitting-sample windows of its series, in
 // series order, to sample/shard=<i>/data.parquet (columns series_index, the
-// series' position in the cohort, and window, its p(p-1)/2 correlations).
+// series' position in the cohort, window, its p(p-1)/2 correlations, and
+// window_index, its index in the series).
 func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress) (*ShardSummary, error) {
 	start := time.Now()
 	if err := w.checkShard(sh); err != nil {
@@ -543,11 +544,13 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 	sc := arrow.NewSchema([]arrow.Field{
 		{Name: "series_index", Type: arrow.PrimitiveTypes.Int32},
 		{Name: "window", Type: arrow.ListOf(arrow.PrimitiveTypes.Float32)},
+		{Name: "window_index", Type: arrow.PrimitiveTypes.Int32},
 	}, nil)
 	rb := array.NewRecordBuilder(memory.DefaultAllocator, sc)
 	defer rb.Release()
 	idx := rb.Field(0).(*array.Int32Builder)
 	lb := rb.Field(1).(*array.ListBuilder)
+	wb := rb.Field(2).(*array.Int32Builder)
 	vb := lb.ValueBuilder().(*array.Float32Builder)
 	pending := 0
 	flush := func() error {
@@ -556,9 +559,10 @@ func (w *Work) Sample(ctx context.Context, sh Shard, workers int, prog Progress)
 		pending = 0
 		return pw.AppendRecord(ctx, sampleTable, rec)
 	}
-	err = st.sampleRange(ctx, lo, hi, func(i int, rows []float32) error {
+	err = st.sampleRange(ctx, lo, hi, func(i int, rows []float32, win []int) error {
 		for r := 0; r < len(rows)/D; r++ {
 			idx.Append(int32(i))
+			wb.Append(int32(win[r]))
 			lb.Append(true)
 			vb.AppendValues(rows[r*D:(r+1)*D], nil)
 		}
@@ -608,10 +612,14 @@ func (w *Work) readSample(ctx context.Context, st *stages) (compute.Matrix32, er
 		path := w.tablePath(i)(sampleTable)
 		got := 0
 		err := schema.ReadParquet(ctx, path, 0, func(rec arrow.Record) error {
+			if rec.NumCols() != 3 {
+				return fmt.Errorf("ingest: %s: columns %s, want series_index, window and window_index (a sample written by an older version: run stage sample --shard %d/%d again)", path, rec.Schema(), i, w.Manifest.Shards)
+			}
 			si, ok1 := rec.Column(0).(*array.Int32)
 			l, ok2 := rec.Column(1).(*array.List)
-			if !ok1 || !ok2 {
-				return fmt.Errorf("ingest: %s: columns %s, want series_index INT32 and window LIST<FLOAT>", path, rec.Schema())
+			wi, ok3 := rec.Column(2).(*array.Int32)
+			if !ok1 || !ok2 || !ok3 {
+				return fmt.Errorf("ingest: %s: columns %s, want series_index INT32, window LIST<FLOAT> and window_index INT32", path, rec.Schema())
 			}
 			vals, ok := l.ListValues().(*array.Float32)
 			if !ok {
@@ -627,7 +635,7 @@ func (w *Work) readSample(ctx context.Context, st *stages) (compute.Matrix32, er
 					return fmt.Errorf("ingest: %s: series %d after series %d", path, s, next)
 				}
 				next = s
-				pool.add(vals.Float32Values()[a:b])
+				pool.add(vals.Float32Values()[a:b], s, []int{int(wi.Value(r))})
 			}
 			got += l.Len()
 			return nil

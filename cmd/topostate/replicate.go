@@ -19,7 +19,7 @@ func replicationFlags() []cli.Flag {
 }
 
 // fitFlags have no effect when the states are reused.
-var fitFlags = []string{"states", "states-min", "states-max", "k-rule", "gap-references", "gap-windows", "strength-splits", "strength-windows", "strength-threshold", "fit-windows", "fit-memory", "fit-sample", "restarts", "scan-restarts", "max-iter"}
+var fitFlags = []string{"states", "states-min", "states-max", "k-rule", "gap-references", "gap-windows", "strength-splits", "strength-windows", "strength-threshold", "strength-halving", "fit-windows", "fit-memory", "fit-sample", "restarts", "scan-restarts", "max-iter"}
 
 // checkReplicationFlags refuses --states-db without --states-from and the
 // fitting options beside --states-from.

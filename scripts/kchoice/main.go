@@ -13,7 +13,17 @@
 // generator) and runs the real ingest path (ingest.IntoFile with the
 // default options, among them the default window from --min-freq and the
 // scan from k = 1, and every rule's statistic computed, so one run yields
-// all four picks of the same fitting sample and W(k) scan).
+// all four picks of the same fitting sample and W(k) scan). The prediction
+// strength is computed with both halvings (by window, the default, and by
+// subject) on the same fitting sample; -gap=false leaves out the gap
+// statistic (its picks are then not printed), which halves the time. A
+// table per noise level also counts, for both halvings, the cohorts whose
+// ps(k) values would give the true k at thresholds 0.7-0.9 (the same
+// values read at another threshold; a threshold chosen from it is chosen
+// on these cohorts).
+//
+//	nice -n 10 go run ./scripts/kchoice -states 1,2,3,5 -noise 0.3 -gap=false -stickiness 0.99
+//
 // The uptime load average is printed before and after: the timings depend
 // on the machine and its load.
 package main
@@ -25,10 +35,12 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"time"
 
+	"github.com/topostate/topostate/compute"
 	"github.com/topostate/topostate/ingest"
 )
 
@@ -41,8 +53,9 @@ func main() {
 	timepoints := flag.Int("timepoints", 400, "time points per series")
 	workers := flag.Int("workers", 2, "ingest workers")
 	stickiness := flag.Float64("stickiness", 0.97, "per-time-point probability of staying in a state (topostate simulate --stickiness; mean dwell 1/(1-q) time points)")
+	gap := flag.Bool("gap", true, "compute the gap statistic too")
 	flag.Parse()
-	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers, *stickiness); err != nil {
+	if err := run(*cohorts, *statesList, *noiseList, *subjects, *regions, *timepoints, *workers, *stickiness, *gap); err != nil {
 		fmt.Fprintln(os.Stderr, "kchoice:", err)
 		os.Exit(1)
 	}
@@ -68,7 +81,7 @@ func uptime() string {
 	return strings.Join(strings.Fields(string(b))[:3], " ")
 }
 
-func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int, stickiness float64) error {
+func run(cohorts int, statesList, noiseList string, subjects, regions, timepoints, workers int, stickiness float64, withGap bool) error {
 	states, err := ints(statesList)
 	if err != nil {
 		return err
@@ -93,12 +106,17 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 	d := ingest.Defaults()
 	fmt.Printf("cohorts: %d subjects x %d time points x %d regions, TR 2 s, stickiness %g (mean dwell %.0f time points), latent autocorrelation 0.5 (simulate's default), %d cohorts per true k and noise level\n",
 		subjects, timepoints, regions, stickiness, 1/(1-stickiness), cohorts)
-	fmt.Printf("ingest defaults: window %d time points (1/min-freq = %g s at TR 2 s), k = %d..%d, %d restarts, %d iterations; strength %d halvings of at most %d windows, threshold %g; gap B = %d on at most %d windows\n",
-		ingest.WindowFor(2, d.MinFreq), 1/d.MinFreq, d.StatesMin, d.StatesMax, d.Restarts, d.MaxIter, d.StrengthSplits, d.StrengthWindows, d.StrengthThreshold, d.GapReferences, d.GapWindows)
+	fmt.Printf("ingest defaults: window %d time points (1/min-freq = %g s at TR 2 s), k = %d..%d, %d restarts, %d iterations; strength %d halvings (default by %s) of at most %d windows, threshold %g; gap B = %d on at most %d windows\n",
+		ingest.WindowFor(2, d.MinFreq), 1/d.MinFreq, d.StatesMin, d.StatesMax, d.Restarts, d.MaxIter, d.StrengthSplits, d.StrengthHalving, d.StrengthWindows, d.StrengthThreshold, d.GapReferences, d.GapWindows)
 	fmt.Printf("load average before: %s\n", uptime())
 	start := time.Now()
-	rules := []string{"strength", "gap", "chord", "second-diff"}
+	other := map[string]string{"subject": "window", "window": "subject"}[d.StrengthHalving]
+	rules := []string{"strength by " + d.StrengthHalving, "strength by " + other, "gap", "chord", "second-diff"}
+	if !withGap {
+		rules = slices.Delete(rules, 2, 3)
+	}
 	const kmax = 10
+	thresholds := []float64{0.7, 0.75, 0.8, 0.85, 0.9}
 	var gapSeconds, strengthSeconds float64
 	runs := 0
 	for _, noise := range noises {
@@ -108,6 +126,14 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 			table[r] = make([][]int, len(states))
 			for i := range states {
 				table[r][i] = make([]int, kmax+1)
+			}
+		}
+		// right[halving][true k index][threshold index]: cohorts whose
+		// prediction strength, read at that threshold, gives the true k.
+		right := [2][][]int{make([][]int, len(states)), make([][]int, len(states))}
+		for h := range right {
+			for si := range states {
+				right[h][si] = make([]int, len(thresholds))
 			}
 		}
 		for si, k := range states {
@@ -123,7 +149,7 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 					return fmt.Errorf("simulate: %v\n%s", err, out)
 				}
 				o := ingest.Defaults()
-				o.Input, o.AllRules, o.Workers, o.Seed = dir, true, workers, seed
+				o.Input, o.AllRules, o.CompareHalvings, o.Workers, o.Seed = dir, withGap, true, workers, seed
 				db := filepath.Join(tmp, "w.duckdb")
 				os.Remove(db)
 				sum, err := ingest.IntoFile(context.Background(), db, o, nil)
@@ -131,8 +157,22 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 					return fmt.Errorf("ingest (k=%d noise %v seed %d): %w", k, noise, seed, err)
 				}
 				e := sum.Elbow
-				table["strength"][si][e.Strength.K]++
-				table["gap"][si][e.Gap.K]++
+				table[rules[0]][si][e.Strength.K]++
+				table[rules[1]][si][e.OtherStrength.K]++
+				for h, st := range []*compute.Strength{e.Strength, e.OtherStrength} {
+					ks, ps := make([]int, len(st.Points)), make([]float64, len(st.Points))
+					for i, p := range st.Points {
+						ks[i], ps[i] = p.K, p.Strength
+					}
+					for ti, th := range thresholds {
+						if compute.StrengthPick(ks, ps, th) == k {
+							right[h][si][ti]++
+						}
+					}
+				}
+				if withGap {
+					table["gap"][si][e.Gap.K]++
+				}
 				table["chord"][si][e.ChordK]++
 				table["second-diff"][si][e.SecondDiffK]++
 				for _, p := range sum.WorkerTimes {
@@ -144,6 +184,21 @@ func run(cohorts int, statesList, noiseList string, subjects, regions, timepoint
 					}
 				}
 				runs++
+			}
+		}
+		fmt.Printf("\nprediction strength read at other thresholds (same ps(k) values), noise %v: cohorts right of %d per true k\n", noise, cohorts)
+		fmt.Printf("| halving | threshold |")
+		for _, k := range states {
+			fmt.Printf(" true %d |", k)
+		}
+		fmt.Println()
+		for h := range right {
+			for ti, th := range thresholds {
+				fmt.Printf("| %s | %g |", rules[h], th)
+				for si := range states {
+					fmt.Printf(" %d |", right[h][si][ti])
+				}
+				fmt.Println()
 			}
 		}
 		for _, r := range rules {

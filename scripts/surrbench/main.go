@@ -5,8 +5,13 @@
 // surrogates` runs) for each N in -n, timing each and printing the load
 // average and the peak resident memory beside the times.
 //
-//	nice -n 10 go run ./scripts/surrbench                        # 100 x 1,000 x 100, N = 19 and 99
+//	go run ./scripts/surrbench                                   # the benchmark: 100 x 1,000 x 100, N = 99, 2 workers
 //	go run ./scripts/surrbench -subjects 10 -timepoints 300 -regions 20 -n 19
+//	go run ./scripts/surrbench -subjects 20 -n 1 -workers 1 -cpuprofile /tmp/surr.pprof
+//
+// Each test prints its wall time, its CPU time (getrusage, user + system)
+// and the load average before and after; the ingest before it is timed
+// apart.
 //
 // With -compare it also runs N = -n's first value with the analysis's own
 // fit settings (-fit-windows 20000, -restarts 5 unless given) and prints
@@ -21,6 +26,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime/pprof"
 	"strconv"
 	"strings"
 	"syscall"
@@ -36,12 +42,13 @@ func main() {
 	timepoints := flag.Int("timepoints", 1000, "time points per series")
 	regions := flag.Int("regions", 100, "regions")
 	states := flag.Int("states", 3, "latent states of the simulated cohort, also the k fitted")
-	nList := flag.String("n", "19,99", "numbers of surrogates to time")
+	nList := flag.String("n", "99", "numbers of surrogates to time (comma-separated)")
 	workers := flag.Int("workers", 2, "workers")
 	compare := flag.Bool("compare", false, "also run the first N with the analysis's fit settings")
 	fitWindows := flag.Int("fit-windows", 20000, "fitting-window cap of the -compare run")
 	restarts := flag.Int("restarts", 5, "restarts of the -compare run")
 	dir := flag.String("dir", "", "work folder (default: a temporary one, removed at the end)")
+	flag.StringVar(&cpuProfile, "cpuprofile", "", "write a CPU profile of the surrogate tests (not the ingest) to `FILE` (go tool pprof)")
 	flag.Parse()
 	if err := run(*subjects, *timepoints, *regions, *states, *nList, *workers, *compare, *fitWindows, *restarts, *dir); err != nil {
 		fmt.Fprintln(os.Stderr, "surrbench:", err)
@@ -154,8 +161,21 @@ func run(subjects, timepoints, regions, states int, nList string, workers int, c
 	return nil
 }
 
+var cpuProfile string
+
 func timed(db interface{}, what string, set ingest.SurrogateSettings, workers int) error {
 	conn := db.(*sqlDB)
+	if cpuProfile != "" {
+		f, err := os.Create(cpuProfile)
+		if err != nil {
+			return err
+		}
+		defer f.Close()
+		if err := pprof.StartCPUProfile(f); err != nil {
+			return err
+		}
+		defer pprof.StopCPUProfile()
+	}
 	fmt.Printf("\nsurrogates, %s: load before %s\n", what, load())
 	start := time.Now()
 	cpu := cpuSeconds()

@@ -257,6 +257,7 @@ var settingMeaning = map[string]string{
 	"strength_splits":    "prediction strength: random halvings of the fitting windows",
 	"strength_windows":   "prediction strength: most fitting windows used",
 	"strength_threshold": "prediction strength a k must reach to be picked",
+	"strength_halving":   "prediction strength: what a halving keeps together: window (each window on its own) or subject (all of a subject's windows in one half)",
 	"scan_restarts":      "k-means restarts per k of the scan (0: restarts)",
 	"min_freq_hz":        "slowest frequency the series keep, Hz; sets the default window (1 / (min_freq_hz x TR) time points)",
 	"fit_memory_bytes":   "most bytes of fitting windows (0: only fit_windows bounds them)",
