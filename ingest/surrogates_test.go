@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"math"
+	"os"
 	"path/filepath"
 	"testing"
 
@@ -111,5 +112,55 @@ func TestSurrogateSettings(t *testing.T) {
 	}
 	if (SurrogateSettings{}).Check() != nil || (SurrogateSettings{N: 99}).Check() != nil {
 		t.Error("valid settings refused")
+	}
+}
+
+// TestSurrogateWindowsOwnWidth: with --window-seconds every series has its
+// own width in points, and the surrogate test must window each series as
+// the analysis does (run 0 is the series as read, so its windows equal the
+// analysis's). It used the cohort's single width for every series.
+func TestSurrogateWindowsOwnWidth(t *testing.T) {
+	dir := makeCohort(t, 4, 6, 120, 2, 5)
+	side := filepath.Join(dir, "sub-002", "func", "sub-002_task-rest_timeseries.json")
+	if _, err := os.Stat(side); err != nil {
+		t.Fatalf("the cohort's layout changed: %v", err)
+	}
+	if err := os.WriteFile(side, []byte(`{"RepetitionTime": 3, "TaskName": "rest"}`+"\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	o := testOptions(dir)
+	o.Window, o.WindowSeconds = 0, 30
+	c, err := LoadCohort(o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	st := &stages{o: o, c: c, workers: 1, k: 2}
+	if err := st.setup(); err != nil {
+		t.Fatal(err)
+	}
+	cache := newSeriesCache(st)
+	widths := map[int]bool{}
+	for i, in := range c.Inputs {
+		widths[in.Window] = true
+		want, err := st.windows("test", in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, err := st.surrogateWindows(cache, 0, i, nil, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got.Rows != want.Rows || got.Cols != want.Cols {
+			t.Fatalf("%s (TR %v, own width %d): surrogate windows %d x %d, analysis %d x %d", in.Rel, in.TR, in.Window, got.Rows, got.Cols, want.Rows, want.Cols)
+		}
+		for j := range want.Data {
+			if got.Data[j] != want.Data[j] {
+				t.Fatalf("%s: window value %d differs: %v against %v", in.Rel, j, got.Data[j], want.Data[j])
+			}
+		}
+	}
+	// 30 s is 20 points at TR 1.5 and 10 at TR 3: the case needs both.
+	if !widths[20] || !widths[10] {
+		t.Fatalf("widths in points %v, want 20 (TR 1.5) and 10 (TR 3)", widths)
 	}
 }
