@@ -92,7 +92,7 @@ func demoCommand() *cli.Command {
 			fmt.Fprintln(out)
 			fmt.Fprintln(out, demoFound(sum.States, demoStates))
 			fmt.Fprintln(out)
-			if err := demoSurrogates(c, out, dbPath, o.Analysis, c.Int("surrogates")); err != nil {
+			if err := demoSurrogates(c, out, self, dbPath, o.Analysis, c.Int("surrogates")); err != nil {
 				return err
 			}
 			if err := demoContrasts(c.Context, out, dbPath, sum.AnalysisID, self); err != nil {

@@ -232,12 +232,13 @@ func writeSurrogateTests(ctx context.Context, db *sql.DB, dbPath string, w io.Wr
 }
 
 // demoSurrogates adds the surrogate test to the demo's analysis, as
-// 'topostate surrogates' would, and prints it in plain words (n = 0: skip).
-func demoSurrogates(c *cli.Context, out io.Writer, dbPath, name string, n int) error {
+// 'topostate surrogates' would, and prints it in plain words (n = 0: skip);
+// self is how the user calls this program (selfCommand).
+func demoSurrogates(c *cli.Context, out io.Writer, self, dbPath, name string, n int) error {
 	if n == 0 {
 		return nil
 	}
-	fmt.Fprintf(out, "2b. topostate surrogates --db %s --analysis %s --n %d\n", shellWord(dbPath), name, n)
+	fmt.Fprintf(out, "2b. %s surrogates --db %s --analysis %s --n %d\n", self, shellWord(dbPath), name, n)
 	fmt.Fprintln(out, "   Do the states exist? Every series is replaced by phase-randomised copies that keep its")
 	fmt.Fprintln(out, "   spectra and static correlations but have no states; the same fit is run on each.")
 	db, err := schema.Open(dbPath, false, nil)
