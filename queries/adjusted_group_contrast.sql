@@ -8,7 +8,9 @@
 -- param: n_perm integer = 9999 -- permutations per Freedman-Lane test
 -- param: seed integer = 1 -- permutation seed; row k uses seed + 100 * measure number + state
 -- One row per measure and state: occupancy (share of windows, 0-1) and
--- dwell_seconds (mean dwell time, s) per state, switch_rate (switches per
+-- dwell_seconds (mean dwell time, s, over all of the subject's runs of the
+-- state, runs cut by the scan's start or end included, where
+-- state_dwell_by_group uses complete runs only) per state, switch_rate (switches per
 -- window step; state NULL: one per subject), betti0_area (area under the
 -- subject's Betti-0 curve of the state over the threshold grid, trapezoid
 -- rule). Subjects are the unit: a subject's sessions are averaged first.
