@@ -73,20 +73,26 @@ func simulatedWindows(tb testing.TB, subjects, regions, timepoints, states, widt
 	return out
 }
 
+// peakSample returns at most n variance-peak windows of all, in a shuffled
+// order (seed 1, 2), as the fitting sample of the benchmarks.
+func peakSample(all Matrix32, n int) Matrix32 {
+	idx := LocalMaxima(WindowVariance(all))
+	r := rand.New(rand.NewPCG(1, 2))
+	r.Shuffle(len(idx), func(i, j int) { idx[i], idx[j] = idx[j], idx[i] })
+	idx = idx[:min(len(idx), n)]
+	x := NewMatrix32(len(idx), all.Cols)
+	for c, i := range idx {
+		copy(x.Row(c), all.Row(i))
+	}
+	return x
+}
+
 // BenchmarkKMeansWindows fits k-means to 5,000 window vectors of 100
 // regions (4,950 values each; a quarter of the default fitting sample),
 // variance-peak windows of a generated cohort, one restart: bounded Lloyd (the package's
 // path) against plain Lloyd iterations.
 func BenchmarkKMeansWindows(b *testing.B) {
-	all := simulatedWindows(b, 16, 100, 1000, 4, 50, 3)
-	idx := LocalMaxima(WindowVariance(all))
-	r := rand.New(rand.NewPCG(1, 2))
-	r.Shuffle(len(idx), func(i, j int) { idx[i], idx[j] = idx[j], idx[i] })
-	idx = idx[:min(len(idx), 5000)]
-	x := NewMatrix32(len(idx), all.Cols)
-	for c, i := range idx {
-		copy(x.Row(c), all.Row(i))
-	}
+	x := peakSample(simulatedWindows(b, 16, 100, 1000, 4, 50, 3), 5000)
 	for _, k := range []int{4, 10} {
 		for _, plain := range []bool{false, true} {
 			name := fmt.Sprintf("k=%d/bounded", k)
@@ -167,16 +173,7 @@ func TestKMeansFirstRestart(t *testing.T) {
 // process (user + system) are reported beside the wall time, which other
 // work on the machine inflates.
 func BenchmarkElbowScanWindows(b *testing.B) {
-	all := simulatedWindows(b, 8, 200, 1000, 4, 50, 3)
-	idx := LocalMaxima(WindowVariance(all))
-	r := rand.New(rand.NewPCG(1, 2))
-	r.Shuffle(len(idx), func(i, j int) { idx[i], idx[j] = idx[j], idx[i] })
-	idx = idx[:min(len(idx), 2000)]
-	x := NewMatrix32(len(idx), all.Cols)
-	for c, i := range idx {
-		copy(x.Row(c), all.Row(i))
-	}
-	all = Matrix32{}
+	x := peakSample(simulatedWindows(b, 8, 200, 1000, 4, 50, 3), 2000)
 	opt := KMeansOptions{Restarts: 1, Workers: 2}
 	cpu := func() float64 {
 		var ru syscall.Rusage

@@ -397,6 +397,16 @@ func (s *stages) windows(stage string, in SubjectInput) (compute.Matrix32, error
 	return m, err
 }
 
+// seriesWindow is the window of series in: its own width and step in
+// points when it has them (--window-seconds), else the cohort's.
+func (s *stages) seriesWindow(in SubjectInput) compute.WindowOptions {
+	win := s.win
+	if in.Window > 0 {
+		win.Width, win.Step = in.Window, in.Step
+	}
+	return win
+}
+
 // windowsAndSeries is windows that also returns the preprocessed series.
 func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix32, compute.Series, error) {
 	t := time.Now()
@@ -428,11 +438,7 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	if b, ok := s.bufs.Get().(*[]float32); ok {
 		buf = *b
 	}
-	win := s.win
-	if in.Window > 0 { // this series' own width and step (--window-seconds)
-		win.Width, win.Step = in.Window, in.Step
-	}
-	m, err := compute.SlidingCorrelationsInto(buf, y, win)
+	m, err := compute.SlidingCorrelationsInto(buf, y, s.seriesWindow(in))
 	if err != nil {
 		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
 	}
@@ -868,10 +874,8 @@ func (s *stages) strengthGroups(rows int) ([]int, error) {
 		if w < 0 {
 			return nil, fmt.Errorf("ingest: prediction strength: the fitting sample does not say which window of %s row %d is, needed to halve one subject by blocks of time", in.Rel, r+1)
 		}
-		width, step := in.Window, in.Step
-		if width <= 0 { // the cohort's window, not one of its own
-			width, step = s.win.Width, s.win.Step
-		}
+		win := s.seriesWindow(in)
+		width, step := win.Width, win.Step
 		block := max(1, min(strengthBlock*width/max(step, 1), (in.Windows+1)/2))
 		g[r] = int(i)<<20 | int(w)/block
 	}
@@ -1055,11 +1059,8 @@ func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
 	}
 	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
 	sums, counts := compute.SumRowsByLabel(m, labels, s.k)
-	window, step := s.o.Window, s.o.Step
-	if in.Window > 0 { // this series' own window (--window-seconds)
-		window, step = in.Window, in.Step
-	}
-	core, err := compute.CoreTimepoints(labels, s.k, y.T, window, step)
+	win := s.seriesWindow(in)
+	core, err := compute.CoreTimepoints(labels, s.k, y.T, win.Width, win.Step)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}

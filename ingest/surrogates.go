@@ -203,11 +203,7 @@ func (s *stages) surrogateWindows(cache *seriesCache, run, i int, buf []float32,
 			kept[i] = y
 		}
 	}
-	win := s.win
-	if in := s.c.Inputs[i]; in.Window > 0 { // this series' own width and step (--window-seconds), as the analysis
-		win.Width, win.Step = in.Window, in.Step
-	}
-	m, err := compute.SlidingCorrelationsInto(buf, y, win)
+	m, err := compute.SlidingCorrelationsInto(buf, y, s.seriesWindow(s.c.Inputs[i]))
 	if err != nil {
 		return compute.Matrix32{}, fmt.Errorf("ingest: %s (surrogate %d): %w", path, run, err)
 	}
