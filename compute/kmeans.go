@@ -175,37 +175,101 @@ func assignRows(x Matrix32, xn []float64, c Matrix32, cn []float64, d Distance, 
 		dots := bufs[w]
 		for i := b * rowBlock; i < min((b+1)*rowBlock, x.Rows); i++ {
 			xi := x.Row(i)
-			best, bd := -1, math.Inf(1)
+			n := math.NaN() // unused for Manhattan
 			if d == SquaredEuclidean {
-				var n float64
 				if xn != nil {
 					n = xn[i]
 				} else {
 					n = dot32(xi, xi)
 				}
 				dotsRow(xi, cw, dots)
-				for k, dk := range dots {
-					v := n + cn[k] - 2*dk
-					if v < 0 {
-						v = 0
-					}
-					if v < bd {
-						best, bd = k, v
-					}
-				}
-			} else {
-				for k := 0; k < c.Rows; k++ {
-					if v := l1Dist(xi, c.Row(k)); v < bd {
-						best, bd = k, v
-					}
-				}
 			}
-			if best < 0 {
-				bd = math.NaN()
-			}
-			labels[i], dist[i] = best, bd
+			labels[i], dist[i] = nearest(xi, n, dots, c, cn, d)
 		}
 	})
+}
+
+// nearest picks the nearest of the centroids c for row xi: under
+// SquaredEuclidean from its squared norm n, the centroids' squared norms cn
+// and the dot products dots[k] = xi . c_k, as n + cn[k] - 2 dots[k] clamped
+// at 0; under Manhattan by the L1 distance (n and dots unused). Ties go to
+// the lowest index; no finite distance gives label -1 and distance NaN.
+func nearest(xi []float32, n float64, dots []float64, c Matrix32, cn []float64, d Distance) (int, float64) {
+	best, bd := -1, math.Inf(1)
+	if d == SquaredEuclidean {
+		for k, dk := range dots {
+			v := n + cn[k] - 2*dk
+			if v < 0 {
+				v = 0
+			}
+			if v < bd {
+				best, bd = k, v
+			}
+		}
+	} else {
+		for k := 0; k < c.Rows; k++ {
+			if v := l1Dist(xi, c.Row(k)); v < bd {
+				best, bd = k, v
+			}
+		}
+	}
+	if best < 0 {
+		bd = math.NaN()
+	}
+	return best, bd
+}
+
+// Assigner labels rows one at a time exactly as Assign labels the rows of
+// a matrix (the same label and the same distance, bit for bit), for a
+// caller that computes its rows one by one and does not keep them
+// (SlidingCorrelationsEach). It is read-only after NewAssigner, so one
+// Assigner may serve several goroutines, each with its own scratch.
+type Assigner struct {
+	c   Matrix32
+	cn  []float64
+	idx []int
+	d   Distance
+}
+
+// NewAssigner prepares the labelling of rows of centroids.Cols values with
+// the nearest of centroids under d. It panics when Assign would: no
+// centroids or an unknown distance.
+func NewAssigner(centroids Matrix32, d Distance) *Assigner {
+	checkMatrix("centroids", centroids)
+	if centroids.Rows < 1 {
+		panic("compute: Assign: no centroids")
+	}
+	if d != SquaredEuclidean && d != Manhattan {
+		panic(fmt.Sprintf("compute: Assign: unknown distance %d", int(d)))
+	}
+	a := &Assigner{c: centroids, cn: make([]float64, centroids.Rows), idx: make([]int, centroids.Rows), d: d}
+	if d == SquaredEuclidean {
+		a.cn = rowNorms(centroids, 1)
+	}
+	for k := range a.idx {
+		a.idx[k] = k
+	}
+	return a
+}
+
+// Scratch returns a scratch slice for Nearest (one per goroutine).
+func (a *Assigner) Scratch() []float64 { return make([]float64, a.c.Rows) }
+
+// Nearest returns the label and distance Assign gives row xi, using dots
+// (from Scratch) as scratch. It panics if len(xi) differs from the
+// centroids' columns.
+func (a *Assigner) Nearest(xi []float32, dots []float64) (int, float64) {
+	if len(xi) != a.c.Cols {
+		panic(fmt.Sprintf("compute: Assign: x has %d columns, centroids %d", len(xi), a.c.Cols))
+	}
+	n := math.NaN()
+	if a.d == SquaredEuclidean {
+		n = dot32(xi, xi)
+		// The float32 centres, widened in the kernel: bit-identical to
+		// Assign's float64 copy (TestDotKernels), half the bytes.
+		dotsIdx32(xi, a.c, a.idx, dots)
+	}
+	return nearest(xi, n, dots, a.c, a.cn, a.d)
 }
 
 // Assign labels each row of x with its nearest centroid under d, ties going

@@ -163,52 +163,99 @@ func SlidingCorrelations(y Series, opt WindowOptions) (Matrix32, error) {
 // capacity suffices (a new matrix otherwise), so that a caller computing the
 // windows of many series can reuse one buffer. The result aliases buf.
 func SlidingCorrelationsInto(buf []float32, y Series, opt WindowOptions) (Matrix32, error) {
-	if err := opt.Validate(); err != nil {
-		return Matrix32{}, err
-	}
-	if len(y.Data) != y.T*y.P || y.T < 0 || y.P < 0 {
-		return Matrix32{}, fmt.Errorf("compute: series holds %d values, want T*P = %d*%d", len(y.Data), y.T, y.P)
-	}
-	if y.T < opt.Width {
-		return Matrix32{}, fmt.Errorf("compute: series has %d time points, fewer than the window width %d", y.T, opt.Width)
-	}
-	if err := checkSeriesValues(y); err != nil {
-		return Matrix32{}, err
-	}
-
-	sl, err := newWindowSlider(y, opt)
+	sl, W, err := prepareWindows(y, opt)
 	if err != nil {
 		return Matrix32{}, err
 	}
-	W := NumWindows(y.T, opt.Width, opt.Step)
 	var out Matrix32
 	if D := PairCount(y.P); cap(buf) >= W*D {
 		out = Matrix32{Rows: W, Cols: D, Data: buf[:W*D]} // every value is written below
 	} else {
 		out = NewMatrix32(W, D)
 	}
-	if opt.Taper == TaperGauss || 2*opt.Step >= opt.Width {
-		var g []float64
-		if opt.Taper == TaperGauss {
-			sigma := opt.GaussSigma
-			if sigma == 0 {
-				sigma = DefaultGaussSigma
-			}
-			g = TaperWeights(opt.Width, sigma)
-		}
-		for i := 0; i < W; i++ {
-			if err := sl.direct(i, g, out.Row(i)); err != nil {
-				return Matrix32{}, err
-			}
-		}
-		return out, nil
-	}
-	for i := 0; i < W; i++ {
-		if err := sl.running(i, out.Row(i)); err != nil {
-			return Matrix32{}, err
-		}
+	if err := sl.slide(W, opt, out.Row, nil); err != nil {
+		return Matrix32{}, err
 	}
 	return out, nil
+}
+
+// SlidingCorrelationsEach computes the windows of SlidingCorrelations one
+// at a time, in window order, into row (a scratch of at least
+// PairCount(y.P) values; nil: one is allocated) and hands each to fn with
+// its index. Every row holds exactly the values SlidingCorrelations would
+// store in that row. fn must not keep row: the next window overwrites it.
+// A caller that needs each window once (to label it and add it to a sum)
+// thus never holds all of them, and reads each while it is still in the
+// processor's cache. An error from fn stops the windows and is returned;
+// SlidingCorrelations' errors are returned as it returns them: those about
+// the options and the values before fn is first called, a window in which
+// a region is constant when that window is reached (fn has then seen the
+// windows before it).
+func SlidingCorrelationsEach(y Series, opt WindowOptions, row []float32, fn func(i int, row []float32) error) error {
+	sl, W, err := prepareWindows(y, opt)
+	if err != nil {
+		return err
+	}
+	D := PairCount(y.P)
+	if len(row) < D {
+		row = make([]float32, D)
+	}
+	row = row[:D]
+	return sl.slide(W, opt, func(int) []float32 { return row }, fn)
+}
+
+// prepareWindows checks y and opt for SlidingCorrelations and returns the
+// slider and the number of windows.
+func prepareWindows(y Series, opt WindowOptions) (*windowSlider, int, error) {
+	if err := opt.Validate(); err != nil {
+		return nil, 0, err
+	}
+	if len(y.Data) != y.T*y.P || y.T < 0 || y.P < 0 {
+		return nil, 0, fmt.Errorf("compute: series holds %d values, want T*P = %d*%d", len(y.Data), y.T, y.P)
+	}
+	if y.T < opt.Width {
+		return nil, 0, fmt.Errorf("compute: series has %d time points, fewer than the window width %d", y.T, opt.Width)
+	}
+	if err := checkSeriesValues(y); err != nil {
+		return nil, 0, err
+	}
+	sl, err := newWindowSlider(y, opt)
+	if err != nil {
+		return nil, 0, err
+	}
+	return sl, NumWindows(y.T, opt.Width, opt.Step), nil
+}
+
+// slide computes windows 0..W-1 in order, window i into rowOf(i), calling
+// each (when not nil) after every window.
+func (sl *windowSlider) slide(W int, opt WindowOptions, rowOf func(i int) []float32, each func(i int, row []float32) error) error {
+	direct := opt.Taper == TaperGauss || 2*opt.Step >= opt.Width
+	var g []float64
+	if opt.Taper == TaperGauss {
+		sigma := opt.GaussSigma
+		if sigma == 0 {
+			sigma = DefaultGaussSigma
+		}
+		g = TaperWeights(opt.Width, sigma)
+	}
+	for i := 0; i < W; i++ {
+		row := rowOf(i)
+		var err error
+		if direct {
+			err = sl.direct(i, g, row)
+		} else {
+			err = sl.running(i, row)
+		}
+		if err != nil {
+			return err
+		}
+		if each != nil {
+			if err := each(i, row); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
 }
 
 // windowSlider holds one series prepared for windowed correlation.
@@ -614,26 +661,34 @@ func WindowVariance(win Matrix32) []float64 {
 	if win.Cols == 0 {
 		return out
 	}
-	n := float64(win.Cols)
 	for i := range out {
-		r := win.Row(i)
-		k := float64(r[0])
-		var s0, s1, s2, s3, q0, q1, q2, q3 float64
-		j := 0
-		for ; j+4 <= len(r); j += 4 {
-			d0, d1, d2, d3 := float64(r[j])-k, float64(r[j+1])-k, float64(r[j+2])-k, float64(r[j+3])-k
-			s0, s1, s2, s3 = s0+d0, s1+d1, s2+d2, s3+d3
-			q0, q1, q2, q3 = q0+d0*d0, q1+d1*d1, q2+d2*d2, q3+d3*d3
-		}
-		for ; j < len(r); j++ {
-			d := float64(r[j]) - k
-			s0 += d
-			q0 += d * d
-		}
-		sum, sq := (s0+s1)+(s2+s3), (q0+q1)+(q2+q3)
-		out[i] = max(sq-sum*sum/n, 0) / n
+		out[i] = RowVariance(win.Row(i))
 	}
 	return out
+}
+
+// RowVariance is WindowVariance of one row r (bit-identical): the
+// population variance of its values, 0 for no values.
+func RowVariance(r []float32) float64 {
+	if len(r) == 0 {
+		return 0
+	}
+	n := float64(len(r))
+	k := float64(r[0])
+	var s0, s1, s2, s3, q0, q1, q2, q3 float64
+	j := 0
+	for ; j+4 <= len(r); j += 4 {
+		d0, d1, d2, d3 := float64(r[j])-k, float64(r[j+1])-k, float64(r[j+2])-k, float64(r[j+3])-k
+		s0, s1, s2, s3 = s0+d0, s1+d1, s2+d2, s3+d3
+		q0, q1, q2, q3 = q0+d0*d0, q1+d1*d1, q2+d2*d2, q3+d3*d3
+	}
+	for ; j < len(r); j++ {
+		d := float64(r[j]) - k
+		s0 += d
+		q0 += d * d
+	}
+	sum, sq := (s0+s1)+(s2+s3), (q0+q1)+(q2+q3)
+	return max(sq-sum*sum/n, 0) / n
 }
 
 // LocalMaxima returns, in increasing order, the indices i at which v has a

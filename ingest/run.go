@@ -341,6 +341,7 @@ type stages struct {
 
 	bufs      sync.Pool // *[]float32 window buffers, one per busy worker
 	surrPools sync.Pool // *[]float32 fitting pools of surrogate runs, one per busy worker
+	peakBufs  freeList  // the variance-peak rows of a series being sampled, one per busy worker
 	work      workTimes // per-part times of the parallel stages
 	rowsDone  time.Time // when stage 4 had turned the last subject into rows
 	fits      []FitStat
@@ -409,31 +410,11 @@ func (s *stages) seriesWindow(in SubjectInput) compute.WindowOptions {
 
 // windowsAndSeries is windows that also returns the preprocessed series.
 func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix32, compute.Series, error) {
-	t := time.Now()
-	var y compute.Series
-	var err error
-	if in.cache != "" {
-		if y, err = readSeriesCache(in.cache, in.Timepoints, len(s.c.Regions)); err != nil {
-			return compute.Matrix32{}, compute.Series{}, err
-		}
-	} else {
-		sf, err := s.c.Source.Read(in.Input)
-		if err != nil {
-			return compute.Matrix32{}, compute.Series{}, err
-		}
-		if sf.SHA256 != in.SHA256 {
-			return compute.Matrix32{}, compute.Series{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
-		}
-		y = sf.Series
-	}
-	t = s.work.since(stage+": read", t)
-	if len(s.c.Keep) != y.P {
-		y = subset(y, s.c.Keep)
-	}
-	y, err = compute.Preprocess(y, s.pre)
+	y, err := s.series(stage, in)
 	if err != nil {
-		return compute.Matrix32{}, compute.Series{}, s.regionError(in.Path, err)
+		return compute.Matrix32{}, compute.Series{}, err
 	}
+	t := time.Now()
 	var buf []float32
 	if b, ok := s.bufs.Get().(*[]float32); ok {
 		buf = *b
@@ -444,6 +425,38 @@ func (s *stages) windowsAndSeries(stage string, in SubjectInput) (compute.Matrix
 	}
 	s.work.since(stage+": windows", t)
 	return m, y, nil
+}
+
+// series reads one series again (from the parsed-series cache when the
+// cohort has one) and returns it preprocessed, its analysed regions only.
+func (s *stages) series(stage string, in SubjectInput) (compute.Series, error) {
+	t := time.Now()
+	var y compute.Series
+	var err error
+	if in.cache != "" {
+		if y, err = readSeriesCache(in.cache, in.Timepoints, len(s.c.Regions)); err != nil {
+			return compute.Series{}, err
+		}
+	} else {
+		sf, err := s.c.Source.Read(in.Input)
+		if err != nil {
+			return compute.Series{}, err
+		}
+		if sf.SHA256 != in.SHA256 {
+			return compute.Series{}, fmt.Errorf("ingest: %s changed while being analysed; run again", in.Path)
+		}
+		y = sf.Series
+	}
+	t = s.work.since(stage+": read", t)
+	if len(s.c.Keep) != y.P {
+		y = subset(y, s.c.Keep)
+	}
+	y, err = compute.Preprocess(y, s.pre)
+	if err != nil {
+		return compute.Series{}, s.regionError(in.Path, err)
+	}
+	s.work.since(stage+": preprocess", t)
+	return y, nil
 }
 
 // regionError names the region of a compute.RegionError (an index into
@@ -565,6 +578,7 @@ func (s *stages) sample(ctx context.Context) (compute.Matrix32, error) {
 		s.prog.Add(1)
 		return nil
 	})
+	s.peakBufs.drop()
 	if err != nil {
 		return compute.Matrix32{}, err
 	}
@@ -666,6 +680,26 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 	}
 	return parallel(ctx, hi-lo, s.workers, func(j int) (sampled, error) {
 		i := lo + j
+		if s.o.FitSample == "peaks" {
+			rows, idx, err := s.peakWindows(s.c.Inputs[i])
+			if err != nil {
+				return sampled{}, err
+			}
+			if len(idx) > perSubject {
+				rng := rand.New(rand.NewPCG(s.o.Seed, uint64(i)+1))
+				pos := pickPositions(rng, len(idx), perSubject)
+				kept := make([]int, len(pos))
+				for n, q := range pos {
+					kept[n] = idx[q]
+					copy(rows[n*D:(n+1)*D], rows[q*D:(q+1)*D]) // q >= n: moves rows forward only
+				}
+				idx, rows = kept, rows[:len(pos)*D]
+			}
+			out := make([]float32, len(rows)) // the series' share, without the spare capacity
+			copy(out, rows)
+			s.peakBufs.put(rows)
+			return sampled{out, idx}, nil
+		}
 		m, err := s.windows("sample", s.c.Inputs[i])
 		if err != nil {
 			return sampled{}, err
@@ -687,16 +721,112 @@ func (s *stages) sampleRange(ctx context.Context, lo, hi int, sink func(i int, r
 	})
 }
 
+// peakWindows computes the windows of series in one at a time and keeps
+// only its variance-peak windows (fitCandidates with "peaks": the local
+// maxima of the window variance, or the middle window when there is none),
+// returning their rows back to back and their window indices. A window is
+// kept tentatively when its variance exceeds the one before and dropped
+// when the next one's is higher, so at most one window more than the
+// peaks is held, instead of every window of the series.
+func (s *stages) peakWindows(in SubjectInput) ([]float32, []int, error) {
+	y, err := s.series("sample", in)
+	if err != nil {
+		return nil, nil, err
+	}
+	t := time.Now()
+	win := s.seriesWindow(in)
+	W := compute.NumWindows(y.T, win.Width, win.Step)
+	D := compute.PairCount(s.p)
+	v := make([]float64, W)
+	rows := s.peakBufs.get()
+	var mid []float32
+	var idx []int
+	tentative := false
+	err = compute.SlidingCorrelationsEach(y, win, nil, func(i int, r []float32) error {
+		v[i] = compute.RowVariance(r)
+		// LocalMaxima's test, one window late: window i-1 stays a peak
+		// when v[i-1] >= v[i].
+		if tentative && !(v[i-1] >= v[i]) {
+			rows, idx = rows[:len(rows)-D], idx[:len(idx)-1]
+		}
+		tentative = (i == 0 || v[i] > v[i-1]) && !math.IsNaN(v[i])
+		if tentative {
+			rows, idx = append(rows, r...), append(idx, i)
+		}
+		if i == W/2 {
+			mid = append(mid, r...)
+		}
+		return nil
+	})
+	if err != nil {
+		s.peakBufs.put(rows)
+		return nil, nil, s.regionError(in.Path, err)
+	}
+	if want := compute.LocalMaxima(v); !slices.Equal(idx, want) {
+		return nil, nil, fmt.Errorf("ingest: %s: variance peaks %v kept while windows went by, %v afterwards (a bug: please report it)", in.Path, idx, want)
+	}
+	if len(idx) == 0 {
+		rows, idx = append(rows[:0], mid...), []int{W / 2}
+	}
+	s.work.since("sample: windows and peaks", t)
+	return rows, idx, nil
+}
+
+// freeList holds buffers for reuse. Unlike a sync.Pool, which the garbage
+// collector empties, it keeps them: the peak rows of a series are ~15 MB
+// at 200 regions, and allocating (and zeroing) them afresh for every series
+// cost more CPU than computing them.
+type freeList struct {
+	mu   sync.Mutex
+	free [][]float32
+}
+
+// get returns an empty buffer, with the capacity of one put back earlier
+// when there is one.
+func (l *freeList) get() []float32 {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	if n := len(l.free); n > 0 {
+		b := l.free[n-1]
+		l.free = l.free[:n-1]
+		return b[:0]
+	}
+	return nil
+}
+
+// put hands b back; it must not be used afterwards.
+func (l *freeList) put(b []float32) {
+	if cap(b) == 0 {
+		return
+	}
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	l.free = append(l.free, b)
+}
+
+// drop lets the garbage collector have every buffer.
+func (l *freeList) drop() {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	l.free = nil
+}
+
 // pick returns k of idx chosen uniformly without replacement, in their
 // original order.
 func pick(rng *rand.Rand, idx []int, k int) []int {
-	perm := rng.Perm(len(idx))[:k]
-	sort.Ints(perm)
-	out := make([]int, k)
-	for i, p := range perm {
+	out := pickPositions(rng, len(idx), k)
+	for i, p := range out {
 		out[i] = idx[p]
 	}
 	return out
+}
+
+// pickPositions returns k of the positions 0..n-1 chosen uniformly without
+// replacement, in increasing order (pick's draws).
+func pickPositions(rng *rand.Rand, n, k int) []int {
+	perm := rng.Perm(n)[:k]
+	sort.Ints(perm)
+	return perm
 }
 
 // fit is stage 2: the elbow scan (or a fixed k) and the final centroids,
@@ -1045,21 +1175,41 @@ type stateNet struct {
 }
 
 func (s *stages) subject(in SubjectInput) (*subjectResult, error) {
-	m, y, err := s.windowsAndSeries("subjects", in)
+	y, err := s.series("subjects", in)
 	if err != nil {
 		return nil, err
 	}
-	defer s.release(m)
 	t := time.Now()
-	labels, dist := compute.Assign(m, s.cent, s.dist, 1)
-	t = s.work.since("subjects: assign", t)
+	// Each window is labelled and added to its state's sum as soon as it
+	// is computed, while it is in the processor's cache; the windows of
+	// the series are never held together (the same labels, distances and
+	// sums as compute.Assign and compute.SumRowsByLabel on the matrix:
+	// compute's TestAssignerEqualsAssign and TestRowSumsAndVarianceEqualMatrixForms).
+	win := s.seriesWindow(in)
+	W := compute.NumWindows(y.T, win.Width, win.Step)
+	labels, dist := make([]int, W), make([]float64, W)
+	as := compute.NewAssigner(s.cent, s.dist)
+	dots := as.Scratch()
+	rs := compute.NewRowSums(s.k, compute.PairCount(s.p))
+	err = compute.SlidingCorrelationsEach(y, win, nil, func(i int, row []float32) error {
+		l, d := as.Nearest(row, dots)
+		if l < 0 {
+			return fmt.Errorf("window %d has no finite distance to any state", i+1)
+		}
+		labels[i], dist[i] = l, d
+		rs.Add(row, l)
+		return nil
+	})
+	if err != nil {
+		return nil, s.regionError(in.Path, err)
+	}
+	t = s.work.since("subjects: windows, assign and sums", t)
 	dyn, err := compute.Dynamics(labels, s.k)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)
 	}
 	r := &subjectResult{labels: labels, dist: dist, dyn: dyn, nets: make([]*stateNet, s.k)}
-	sums, counts := compute.SumRowsByLabel(m, labels, s.k)
-	win := s.seriesWindow(in)
+	sums, counts := rs.Sums, rs.Counts
 	core, err := compute.CoreTimepoints(labels, s.k, y.T, win.Width, win.Step)
 	if err != nil {
 		return nil, fmt.Errorf("ingest: %s: %w", in.Path, err)

@@ -31,7 +31,7 @@ func TestScanRestartsFinalFitIsFullFit(t *testing.T) {
 	for _, p := range sum.WorkerTimes {
 		parts[p.Phase] = true
 	}
-	for _, p := range []string{"sample: read", "sample: windows", "fit: elbow scan", "fit: final restarts", "subjects: assign", "write: inserts"} {
+	for _, p := range []string{"sample: read", "sample: windows and peaks", "fit: elbow scan", "fit: final restarts", "subjects: windows, assign and sums", "write: inserts"} {
 		if !parts[p] {
 			t.Errorf("worker times lack %q: %v", p, sum.WorkerTimes)
 		}
