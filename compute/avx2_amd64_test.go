@@ -89,3 +89,57 @@ func TestDotKernelsMatchPortable(t *testing.T) {
 		t.Fatal("addWiden differs between AVX2 and portable code")
 	}
 }
+
+// RowVariance's kernel repeats its four-lane loop's operations, so the
+// variances, and with them the variance-peak windows, must not depend on
+// the machine.
+func TestRowVarianceKernelMatchesPortable(t *testing.T) {
+	if !useAVX2 {
+		t.Skip("no AVX2 and FMA on this machine")
+	}
+	r := rand.New(rand.NewPCG(23, 23))
+	var rows [][]float32
+	for _, n := range []int{1, 3, 4, 5, 8, 13, 64, 1001, 19900} {
+		row := make([]float32, n)
+		for j := range row {
+			row[j] = float32(0.3 + 0.2*r.NormFloat64())
+		}
+		rows = append(rows, row)
+	}
+	fast := make([]float64, len(rows))
+	for i, row := range rows {
+		fast[i] = RowVariance(row)
+	}
+	useAVX2 = false
+	defer func() { useAVX2 = true }()
+	for i, row := range rows {
+		if slow := RowVariance(row); slow != fast[i] {
+			t.Fatalf("%d values: kernel %v, portable %v", len(row), fast[i], slow)
+		}
+	}
+}
+
+func BenchmarkRowVariance(b *testing.B) {
+	row := make([]float32, 19900) // 200 regions
+	r := rand.New(rand.NewPCG(24, 24))
+	for j := range row {
+		row[j] = float32(r.NormFloat64())
+	}
+	for _, avx := range []bool{true, false} {
+		name := "portable"
+		if avx {
+			name = "avx2"
+		}
+		b.Run(name, func(b *testing.B) {
+			if avx && !useAVX2 {
+				b.Skip("no AVX2")
+			}
+			old := useAVX2
+			useAVX2 = avx
+			defer func() { useAVX2 = old }()
+			for b.Loop() {
+				RowVariance(row)
+			}
+		})
+	}
+}

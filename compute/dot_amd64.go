@@ -35,3 +35,6 @@ func ddot2mAVX2(n int, x *float32, c0, c1 *float64) (d0, d1 float64)
 
 //go:noescape
 func ddot1mAVX2(n int, x *float32, c *float64) float64
+
+//go:noescape
+func varSumsAVX2(n int, r *float32, k float64, out *[8]float64)

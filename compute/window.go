@@ -677,6 +677,13 @@ func RowVariance(r []float32) float64 {
 	k := float64(r[0])
 	var s0, s1, s2, s3, q0, q1, q2, q3 float64
 	j := 0
+	if useAVX2 && len(r) >= 4 {
+		j = len(r) &^ 3
+		var lanes [8]float64
+		varSumsAVX2(j, &r[0], k, &lanes)
+		s0, s1, s2, s3 = lanes[0], lanes[1], lanes[2], lanes[3]
+		q0, q1, q2, q3 = lanes[4], lanes[5], lanes[6], lanes[7]
+	}
 	for ; j+4 <= len(r); j += 4 {
 		d0, d1, d2, d3 := float64(r[j])-k, float64(r[j+1])-k, float64(r[j+2])-k, float64(r[j+3])-k
 		s0, s1, s2, s3 = s0+d0, s1+d1, s2+d2, s3+d3

@@ -70,3 +70,34 @@ looprank:
 donerank:
 	VZEROUPPER
 	RET
+
+// func varSumsAVX2(n int, r *float32, k float64, out *[8]float64)
+// For m < n (a multiple of 4), lane l = m mod 4: d = float64(r[m]) - k,
+// s_l += d, q_l += d*d, in order of m; out = s_0..s_3, q_0..q_3 (both
+// from 0). The same operations as RowVariance's four-lane loop.
+TEXT ·varSumsAVX2(SB), NOSPLIT, $0-32
+	MOVQ n+0(FP), CX
+	MOVQ r+8(FP), SI
+	VBROADCASTSD k+16(FP), Y15
+	MOVQ out+24(FP), DI
+	VXORPD Y0, Y0, Y0
+	VXORPD Y1, Y1, Y1
+	XORQ AX, AX
+	CMPQ CX, $0
+	JLE  donevar
+
+loopvar:
+	VCVTPS2PD (SI)(AX*4), Y2
+	VSUBPD Y15, Y2, Y2
+	VADDPD Y2, Y0, Y0
+	VMULPD Y2, Y2, Y3
+	VADDPD Y3, Y1, Y1
+	ADDQ $4, AX
+	CMPQ AX, CX
+	JLT  loopvar
+
+donevar:
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, 32(DI)
+	VZEROUPPER
+	RET
