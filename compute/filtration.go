@@ -3,7 +3,6 @@ package compute
 import (
 	"fmt"
 	"math"
-	"slices"
 	"sort"
 )
 
@@ -136,14 +135,34 @@ func GraphFiltration(p int, upper []float64) (Filtration, error) {
 		isTree[PairIndex(p, e.I, e.J)] = true
 		b0 = append(b0, e.Weight)
 	}
-	b1 := make([]float64, 0, len(upper)-(p-1))
-	for k, w := range upper {
-		if !isTree[k] {
-			b1 = append(b1, w)
+	sortFloat64s(b0)
+	b1 := make([]float64, len(upper)-(p-1))
+	if len(b1) < radixMinN {
+		b1 = b1[:0]
+		for k, w := range upper {
+			if !isTree[k] {
+				b1 = append(b1, w)
+			}
 		}
+		sortFloat64s(b1)
+	} else {
+		// The radix sort's keys are written straight from the weights and
+		// read back into b1 (sortFloat64s, without its two copies). See
+		// radixsort.go on the order of -0 and +0.
+		s := getRadixScratch(len(b1))
+		i := 0
+		for k, w := range upper {
+			if !isTree[k] {
+				s.keys[i] = floatKey(w)
+				i++
+			}
+		}
+		s.sortKeys()
+		for i, key := range s.keys {
+			b1[i] = keyFloat(key)
+		}
+		radixPool.Put(s)
 	}
-	slices.Sort(b0)
-	slices.Sort(b1)
 	return Filtration{P: p, Beta0Events: b0, Beta1Events: b1}, nil
 }
 
