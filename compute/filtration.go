@@ -53,44 +53,63 @@ func MaxSpanningTree(p int, upper []float64) ([]TreeEdge, error) {
 	keyPair := make([]int, p)
 	parent := make([]int, p)
 	inTree := make([]bool, p)
+	// off[i] + j is PairIndex(p, i, j) for i < j, without PairIndex's
+	// checks and division in the inner loop.
+	off := make([]int, p)
+	for i := range p {
+		off[i] = i*(2*p-i-1)/2 - i - 1
+	}
 	// better reports whether edge (w1, k1) beats edge (w2, k2) under the
 	// strict order described above.
 	better := func(w1 float64, k1 int, w2 float64, k2 int) bool {
 		return w1 > w2 || (w1 == w2 && k1 < k2)
 	}
 	inTree[0] = true
+	best := 1
 	for v := 1; v < p; v++ {
-		k := PairIndex(p, 0, v)
+		k := off[0] + v
 		key[v], keyPair[v], parent[v] = upper[k], k, 0
+		if better(key[v], keyPair[v], key[best], keyPair[best]) {
+			best = v
+		}
 	}
 	tree := make([]TreeEdge, 0, p-1)
 	for range p - 1 {
-		best := -1
-		for v := 1; v < p; v++ {
+		// best is the vertex outside the tree with the best edge to it;
+		// the order is strict, so which vertex that is does not depend on
+		// the order of the search.
+		u := best
+		inTree[u] = true
+		i, j := parent[u], u
+		if i > j {
+			i, j = j, i
+		}
+		tree = append(tree, TreeEdge{I: i, J: j, Weight: key[u]})
+		// Update the edges to the vertices outside the tree through u, and
+		// find the next best among them in the same pass: pairs (v, u) for
+		// v < u, then (u, v) for v > u (consecutive in upper).
+		best = -1
+		for v := 1; v < u; v++ {
 			if inTree[v] {
 				continue
+			}
+			if k := off[v] + u; better(upper[k], k, key[v], keyPair[v]) {
+				key[v], keyPair[v], parent[v] = upper[k], k, u
 			}
 			if best < 0 || better(key[v], keyPair[v], key[best], keyPair[best]) {
 				best = v
 			}
 		}
-		inTree[best] = true
-		i, j := parent[best], best
-		if i > j {
-			i, j = j, i
-		}
-		tree = append(tree, TreeEdge{I: i, J: j, Weight: key[best]})
-		for v := 1; v < p; v++ {
+		row := upper[off[u]+u+1 : off[u]+p]
+		for v := u + 1; v < p; v++ {
 			if inTree[v] {
 				continue
 			}
-			a, b := best, v
-			if a > b {
-				a, b = b, a
+			if k := off[u] + v; better(row[v-u-1], k, key[v], keyPair[v]) {
+				key[v], keyPair[v], parent[v] = row[v-u-1], k, u
 			}
-			k := PairIndex(p, a, b)
-			if better(upper[k], k, key[v], keyPair[v]) {
-				key[v], keyPair[v], parent[v] = upper[k], k, best
+			if best < 0 || better(key[v], keyPair[v], key[best], keyPair[best]) {
+				best = v
 			}
 		}
 	}

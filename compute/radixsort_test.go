@@ -233,10 +233,10 @@ func TestRadixSortKeysDigitWidths(t *testing.T) {
 }
 
 // graphFiltrationSlicesSort is GraphFiltration as it was before the radix
-// sort (slices.Sort of both event sets): the baseline of the benchmarks and
+// sort (slices.Sort of both event sets) and the fused Prim: the baseline of the benchmarks and
 // the reference of TestGraphFiltrationRadixUnchanged.
 func graphFiltrationSlicesSort(p int, upper []float64) (Filtration, error) {
-	tree, err := MaxSpanningTree(p, upper)
+	tree, err := maxSpanningTreePrim(p, upper)
 	if err != nil {
 		return Filtration{}, err
 	}
@@ -255,6 +255,114 @@ func graphFiltrationSlicesSort(p int, upper []float64) (Filtration, error) {
 	slices.Sort(b0)
 	slices.Sort(b1)
 	return Filtration{P: p, Beta0Events: b0, Beta1Events: b1}, nil
+}
+
+// maxSpanningTreePrim is MaxSpanningTree as it was before its update and
+// search loops were fused (a separate search of the best vertex, PairIndex
+// for every pair): the reference of TestMaxSpanningTreeUnchanged and the
+// baseline of BenchmarkMaxSpanningTree.
+func maxSpanningTreePrim(p int, upper []float64) ([]TreeEdge, error) {
+	if err := checkNetwork(p, upper); err != nil {
+		return nil, err
+	}
+	// key[v], keyPair[v]: the best edge from the tree to v so far, and its
+	// pair index; parent[v] is the tree end of that edge.
+	key := make([]float64, p)
+	keyPair := make([]int, p)
+	parent := make([]int, p)
+	inTree := make([]bool, p)
+	// better reports whether edge (w1, k1) beats edge (w2, k2) under the
+	// strict order described above.
+	better := func(w1 float64, k1 int, w2 float64, k2 int) bool {
+		return w1 > w2 || (w1 == w2 && k1 < k2)
+	}
+	inTree[0] = true
+	for v := 1; v < p; v++ {
+		k := PairIndex(p, 0, v)
+		key[v], keyPair[v], parent[v] = upper[k], k, 0
+	}
+	tree := make([]TreeEdge, 0, p-1)
+	for range p - 1 {
+		best := -1
+		for v := 1; v < p; v++ {
+			if inTree[v] {
+				continue
+			}
+			if best < 0 || better(key[v], keyPair[v], key[best], keyPair[best]) {
+				best = v
+			}
+		}
+		inTree[best] = true
+		i, j := parent[best], best
+		if i > j {
+			i, j = j, i
+		}
+		tree = append(tree, TreeEdge{I: i, J: j, Weight: key[best]})
+		for v := 1; v < p; v++ {
+			if inTree[v] {
+				continue
+			}
+			a, b := best, v
+			if a > b {
+				a, b = b, a
+			}
+			k := PairIndex(p, a, b)
+			if better(upper[k], k, key[v], keyPair[v]) {
+				key[v], keyPair[v], parent[v] = upper[k], k, best
+			}
+		}
+	}
+	return tree, nil
+}
+
+// MaxSpanningTree returns the same edges in the same order as the version
+// before its loops were fused, on networks with and without ties (whose
+// order among equal weights is the tie rule's).
+func TestMaxSpanningTreeUnchanged(t *testing.T) {
+	rng := rand.New(rand.NewPCG(15, 16))
+	for _, p := range []int{2, 3, 4, 7, 30, 101, 200} {
+		for _, levels := range []int{0, 2, 3, 7, 50} {
+			w := randomNetwork(rng, p, levels)
+			got, err := MaxSpanningTree(p, w)
+			if err != nil {
+				t.Fatal(err)
+			}
+			want, err := maxSpanningTreePrim(p, w)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if !slices.Equal(got, want) {
+				t.Fatalf("p=%d levels=%d: tree differs from the unfused Prim", p, levels)
+			}
+		}
+	}
+	// All weights equal: the tie rule alone decides.
+	w := make([]float64, PairCount(40))
+	got, _ := MaxSpanningTree(40, w)
+	want, _ := maxSpanningTreePrim(40, w)
+	if !slices.Equal(got, want) {
+		t.Fatal("all-tied p=40: tree differs from the unfused Prim")
+	}
+}
+
+// BenchmarkMaxSpanningTree: the fused Prim against the version before, in
+// the same run.
+func BenchmarkMaxSpanningTree(b *testing.B) {
+	for _, p := range []int{100, 200, 400} {
+		w := benchNetwork(p)
+		for _, impl := range []struct {
+			name string
+			f    func(int, []float64) ([]TreeEdge, error)
+		}{{"before", maxSpanningTreePrim}, {"fused", MaxSpanningTree}} {
+			b.Run(fmt.Sprintf("p=%d/%s", p, impl.name), func(b *testing.B) {
+				for b.Loop() {
+					if _, err := impl.f(p, w); err != nil {
+						b.Fatal(err)
+					}
+				}
+			})
+		}
+	}
 }
 
 // GraphFiltration gives bit-identical events to the slices.Sort version on
