@@ -210,7 +210,7 @@ func TestRadixSortKeysDigitWidths(t *testing.T) {
 		"few values":    func() uint64 { return uint64(rng.IntN(3)) << 62 },
 		"constant":      func() uint64 { return 42 },
 	}
-	for _, bits := range []int{0, 1, 4, 8, 11, 13, 16} { // 0: sortKeys
+	for _, bits := range []int{0, -8, 1, 4, 8, 11, 13, 16} { // 0: sortKeys, -8: sortKeys8
 		for name, gen := range gens {
 			for _, n := range []int{1, 2, 300, 5000} {
 				s := &radixScratch{keys: make([]uint64, n), tmp: make([]uint64, n)}
@@ -219,9 +219,12 @@ func TestRadixSortKeysDigitWidths(t *testing.T) {
 				}
 				want := slices.Clone(s.keys)
 				slices.Sort(want)
-				if bits == 0 {
+				switch bits {
+				case 0:
 					s.sortKeys()
-				} else {
+				case -8:
+					s.sortKeys8()
+				default:
 					s.sortKeysBits(bits)
 				}
 				if !slices.Equal(s.keys, want) {
@@ -455,7 +458,9 @@ func BenchmarkGraphFiltrationSort(b *testing.B) {
 }
 
 // BenchmarkRadixDigits: the sort alone on n = 19,701 beta1-sized inputs
-// (p = 200), digit widths 8, 11 and 16 against slices.Sort.
+// (p = 200): sortKeys (11-bit digits, fixed) against slices.Sort,
+// sortKeys8 (8-bit digits, fixed) and sortKeysBits at digit widths 8, 11,
+// 13 and 16.
 func BenchmarkRadixDigits(b *testing.B) {
 	for _, data := range []struct {
 		name string
@@ -481,7 +486,19 @@ func BenchmarkRadixDigits(b *testing.B) {
 				}
 			}
 		})
-		for _, bits := range []int{8, 11, 16} {
+		b.Run(data.name+"/sortKeys8", func(b *testing.B) {
+			s := &radixScratch{keys: make([]uint64, len(x)), tmp: make([]uint64, len(x))}
+			for b.Loop() {
+				for i, v := range x {
+					s.keys[i] = floatKey(v)
+				}
+				s.sortKeys8()
+				for i, k := range s.keys {
+					buf[i] = keyFloat(k)
+				}
+			}
+		})
+		for _, bits := range []int{8, 11, 13, 16} {
 			b.Run(fmt.Sprintf("%s/bits=%d", data.name, bits), func(b *testing.B) {
 				s := &radixScratch{keys: make([]uint64, len(x)), tmp: make([]uint64, len(x))}
 				for b.Loop() {
@@ -566,6 +583,49 @@ func (s *radixScratch) sortKeysBits(bits int) {
 		dst = dst[:n]
 		for _, k := range src {
 			b := (k >> shift) & mask
+			dst[c[b]] = k
+			c[b]++
+		}
+		src, dst = dst, src
+	}
+	if &src[0] != &s.keys[0] {
+		copy(s.keys, src)
+	}
+}
+
+// sortKeys8 is sortKeys with 8 fixed digits of 8 bits, for
+// BenchmarkRadixDigits to compare with sortKeys's 6 digits of 11 bits on
+// equal terms (both widths constant).
+func (s *radixScratch) sortKeys8() {
+	n := len(s.keys)
+	if n < 2 {
+		return
+	}
+	var h [8][256]uint32
+	for _, k := range s.keys {
+		h[0][uint8(k)]++
+		h[1][uint8(k>>8)]++
+		h[2][uint8(k>>16)]++
+		h[3][uint8(k>>24)]++
+		h[4][uint8(k>>32)]++
+		h[5][uint8(k>>40)]++
+		h[6][uint8(k>>48)]++
+		h[7][uint8(k>>56)]++
+	}
+	src, dst := s.keys, s.tmp[:n]
+	for d := range 8 {
+		c := &h[d]
+		shift := uint(8 * d)
+		if c[uint8(src[0]>>shift)] == uint32(n) {
+			continue
+		}
+		var sum uint32
+		for b, v := range c {
+			c[b] = sum
+			sum += v
+		}
+		for _, k := range src {
+			b := uint8(k >> shift)
 			dst[c[b]] = k
 			c[b]++
 		}
