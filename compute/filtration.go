@@ -21,7 +21,8 @@ type TreeEdge struct {
 //	beta1(e) = #{b in Beta1Events : b > e}       (independent cycles)
 //
 // Beta0Events holds the p-1 maximum-spanning-tree edge weights and
-// Beta1Events the (p-1)(p-2)/2 remaining edge weights, both ascending. The
+// Beta1Events the (p-1)(p-2)/2 remaining edge weights, both ascending, a
+// weight of -0 before one of +0 (they are equal as thresholds). The
 // two multisets do not depend on which maximum spanning tree is chosen when
 // weights tie, so the Betti curves are unique.
 type Filtration struct {
