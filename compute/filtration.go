@@ -166,9 +166,10 @@ func GraphFiltration(p int, upper []float64) (Filtration, error) {
 		}
 		sortFloat64s(b1)
 	} else {
-		// The radix sort's keys are written straight from the weights and
-		// read back into b1 (sortFloat64s, without its two copies). See
-		// radixsort.go on the order of -0 and +0.
+		// sortFloat64s inlined: the radix sort's keys are made straight
+		// from the weights and decoded straight into b1, without an
+		// intermediate float64 copy. See radixsort.go on the order of -0
+		// and +0.
 		s := getRadixScratch(len(b1))
 		i := 0
 		for k, w := range upper {
