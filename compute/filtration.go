@@ -3,7 +3,6 @@ package compute
 import (
 	"fmt"
 	"math"
-	"slices"
 	"sort"
 )
 
@@ -22,7 +21,8 @@ type TreeEdge struct {
 //	beta1(e) = #{b in Beta1Events : b > e}       (independent cycles)
 //
 // Beta0Events holds the p-1 maximum-spanning-tree edge weights and
-// Beta1Events the (p-1)(p-2)/2 remaining edge weights, both ascending. The
+// Beta1Events the (p-1)(p-2)/2 remaining edge weights, both ascending, a
+// weight of -0 before one of +0 (they are equal as thresholds). The
 // two multisets do not depend on which maximum spanning tree is chosen when
 // weights tie, so the Betti curves are unique.
 type Filtration struct {
@@ -54,44 +54,63 @@ func MaxSpanningTree(p int, upper []float64) ([]TreeEdge, error) {
 	keyPair := make([]int, p)
 	parent := make([]int, p)
 	inTree := make([]bool, p)
+	// off[i] + j is PairIndex(p, i, j) for i < j, without PairIndex's
+	// checks and division in the inner loop.
+	off := make([]int, p)
+	for i := range p {
+		off[i] = i*(2*p-i-1)/2 - i - 1
+	}
 	// better reports whether edge (w1, k1) beats edge (w2, k2) under the
 	// strict order described above.
 	better := func(w1 float64, k1 int, w2 float64, k2 int) bool {
 		return w1 > w2 || (w1 == w2 && k1 < k2)
 	}
 	inTree[0] = true
+	best := 1
 	for v := 1; v < p; v++ {
-		k := PairIndex(p, 0, v)
+		k := off[0] + v
 		key[v], keyPair[v], parent[v] = upper[k], k, 0
+		if better(key[v], keyPair[v], key[best], keyPair[best]) {
+			best = v
+		}
 	}
 	tree := make([]TreeEdge, 0, p-1)
 	for range p - 1 {
-		best := -1
-		for v := 1; v < p; v++ {
+		// best is the vertex outside the tree with the best edge to it;
+		// the order is strict, so which vertex that is does not depend on
+		// the order of the search.
+		u := best
+		inTree[u] = true
+		i, j := parent[u], u
+		if i > j {
+			i, j = j, i
+		}
+		tree = append(tree, TreeEdge{I: i, J: j, Weight: key[u]})
+		// Update the edges to the vertices outside the tree through u, and
+		// find the next best among them in the same pass: pairs (v, u) for
+		// v < u, then (u, v) for v > u (consecutive in upper).
+		best = -1
+		for v := 1; v < u; v++ {
 			if inTree[v] {
 				continue
+			}
+			if k := off[v] + u; better(upper[k], k, key[v], keyPair[v]) {
+				key[v], keyPair[v], parent[v] = upper[k], k, u
 			}
 			if best < 0 || better(key[v], keyPair[v], key[best], keyPair[best]) {
 				best = v
 			}
 		}
-		inTree[best] = true
-		i, j := parent[best], best
-		if i > j {
-			i, j = j, i
-		}
-		tree = append(tree, TreeEdge{I: i, J: j, Weight: key[best]})
-		for v := 1; v < p; v++ {
+		row := upper[off[u]+u+1 : off[u]+p]
+		for v := u + 1; v < p; v++ {
 			if inTree[v] {
 				continue
 			}
-			a, b := best, v
-			if a > b {
-				a, b = b, a
+			if k := off[u] + v; better(row[v-u-1], k, key[v], keyPair[v]) {
+				key[v], keyPair[v], parent[v] = row[v-u-1], k, u
 			}
-			k := PairIndex(p, a, b)
-			if better(upper[k], k, key[v], keyPair[v]) {
-				key[v], keyPair[v], parent[v] = upper[k], k, best
+			if best < 0 || better(key[v], keyPair[v], key[best], keyPair[best]) {
+				best = v
 			}
 		}
 	}
@@ -136,14 +155,35 @@ func GraphFiltration(p int, upper []float64) (Filtration, error) {
 		isTree[PairIndex(p, e.I, e.J)] = true
 		b0 = append(b0, e.Weight)
 	}
-	b1 := make([]float64, 0, len(upper)-(p-1))
-	for k, w := range upper {
-		if !isTree[k] {
-			b1 = append(b1, w)
+	sortFloat64s(b0)
+	b1 := make([]float64, len(upper)-(p-1))
+	if len(b1) < radixMinN {
+		b1 = b1[:0]
+		for k, w := range upper {
+			if !isTree[k] {
+				b1 = append(b1, w)
+			}
 		}
+		sortFloat64s(b1)
+	} else {
+		// sortFloat64s inlined: the radix sort's keys are made straight
+		// from the weights and decoded straight into b1, without an
+		// intermediate float64 copy. See radixsort.go on the order of -0
+		// and +0.
+		s := getRadixScratch(len(b1))
+		i := 0
+		for k, w := range upper {
+			if !isTree[k] {
+				s.keys[i] = floatKey(w)
+				i++
+			}
+		}
+		s.sortKeys()
+		for i, key := range s.keys {
+			b1[i] = keyFloat(key)
+		}
+		radixPool.Put(s)
 	}
-	slices.Sort(b0)
-	slices.Sort(b1)
 	return Filtration{P: p, Beta0Events: b0, Beta1Events: b1}, nil
 }
 
