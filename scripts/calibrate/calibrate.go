@@ -131,6 +131,47 @@ var pColumn = regexp.MustCompile(`^p$|_p$`)
 // rows, in this order.
 var keyColumns = []string{"measure", "term", "feature", "state", "state_a", "state_b", "from_state", "to_state", "dimension"}
 
+// nullKeyLabels is how a row key writes a NULL in a key column. A NULL
+// there marks a row over every value of the column: adjusted_group_contrast's
+// switch rate has state NULL (one rate per subject, over all states), and
+// its key is "measure switch_rate, all states". Every column of keyColumns
+// has a label (TestKeyPartNull).
+var nullKeyLabels = map[string]string{
+	"measure":    "all measures",
+	"term":       "all terms",
+	"feature":    "all features",
+	"state":      "all states",
+	"state_a":    "any state_a",
+	"state_b":    "any state_b",
+	"from_state": "from any state",
+	"to_state":   "to any state",
+	"dimension":  "all dimensions",
+}
+
+// keyPart writes the value v of key column col in a row key: "state 2",
+// or for a NULL the column's label of nullKeyLabels.
+func keyPart(col string, v any) string {
+	if v == nil {
+		if l, ok := nullKeyLabels[col]; ok {
+			return l
+		}
+		return "all " + col
+	}
+	return fmt.Sprintf("%s %v", col, v)
+}
+
+// relabelNull rewrites, in a row key of a result saved before the NULL
+// labels, the parts "<column> <nil>" (Go's %v of a NULL) as keyPart does.
+func relabelNull(row string) string {
+	parts := strings.Split(row, ", ")
+	for i, p := range parts {
+		if col, ok := strings.CutSuffix(p, " <nil>"); ok && slices.Contains(keyColumns, col) {
+			parts[i] = keyPart(col, nil)
+		}
+	}
+	return strings.Join(parts, ", ")
+}
+
 // Key is one test: a p column of a bundled query, on one row (state,
 // dimension, measure...), under one null kind.
 type Key struct {
@@ -685,7 +726,7 @@ func tally(rs *sql.Rows, null, query string, alpha float64, out *Result) error {
 		row++
 		var parts []string
 		for _, i := range kcols {
-			parts = append(parts, fmt.Sprintf("%s %v", cols[i], v[i]))
+			parts = append(parts, keyPart(cols[i], v[i]))
 		}
 		rk := strings.Join(parts, ", ")
 		if len(kcols) == 0 {
@@ -995,6 +1036,7 @@ func Load(rd io.Reader) (*Result, error) {
 	r := &Result{Tallies: map[Key]*Tally{}, Differences: map[Key]*Moments{}, Latent: map[Key]*Tally{},
 		LatentDiff: map[Key]*Moments{}, PColumns: s.PColumns, Skipped: s.Skipped}
 	for _, rec := range s.Records {
+		rec.Row = relabelNull(rec.Row)
 		switch rec.Kind {
 		case "test":
 			addTally(r.Tallies, rec.Key, rec.Tally)
