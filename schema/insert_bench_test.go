@@ -65,7 +65,10 @@ func cpuTime() time.Duration {
 // process CPU time per million rows of the inserts (cpu-s/Mrow), of the
 // commit (commit-cpu-s/Mrow) and of building the Arrow rows
 // (build-cpu-s/Mrow). TOPOSTATE_BENCH_SUBJECTS sets the number of subjects
-// (default 50, 4 million rows).
+// (default 50, 4 million rows); for comparisons, TOPOSTATE_BENCH_AUTO=1
+// leaves every table to DuckDB's automatic compression choice
+// (dictionaryStrings empty) and TOPOSTATE_BENCH_SQL runs a statement in the
+// transaction before the inserts (a setting to try).
 func BenchmarkAppendEvents(b *testing.B) {
 	subjects := 50
 	if s := os.Getenv("TOPOSTATE_BENCH_SUBJECTS"); s != "" {
@@ -73,6 +76,10 @@ func BenchmarkAppendEvents(b *testing.B) {
 	}
 	perSubject := benchStates * (benchDim0 + benchDim1)
 	batchSubjects := max(1, int(math.Round(1e6/float64(perSubject))))
+	if os.Getenv("TOPOSTATE_BENCH_AUTO") != "" { // compare: DuckDB's automatic choice for every table
+		defer func(d map[string]bool) { dictionaryStrings = d }(dictionaryStrings)
+		dictionaryStrings = nil
+	}
 	ctx := context.Background()
 	var insert, commit, build time.Duration
 	rows := 0
