@@ -132,3 +132,31 @@ func BenchmarkAppendEvents(b *testing.B) {
 	b.ReportMetric(commit.Seconds()/m, "commit-cpu-s/Mrow")
 	b.ReportMetric(build.Seconds()/m, "build-cpu-s/Mrow")
 }
+
+// BenchmarkBuildEvents builds the Arrow rows of BenchmarkAppendEvents'
+// first batch (about 1M rows) without inserting them.
+func BenchmarkBuildEvents(b *testing.B) {
+	perSubject := benchStates * (benchDim0 + benchDim1)
+	subjects := max(1, int(math.Round(1e6/float64(perSubject))))
+	vals := make([][2][]float64, subjects*benchStates)
+	for i := range vals {
+		vals[i] = [2][]float64{benchValues(benchDim0, i), benchValues(benchDim1, i+1)}
+	}
+	rows := 0
+	b.ResetTimer()
+	for range b.N {
+		bt := NewBatch(FiltrationEvts)
+		for s := range subjects {
+			sub := fmt.Sprintf("sub-%04d", s+1)
+			for st := 1; st <= benchStates; st++ {
+				v := vals[s*benchStates+st-1]
+				bt.AppendEvents(1, sub, "ses-1", st, 0, v[0])
+				bt.AppendEvents(1, sub, "ses-1", st, 1, v[1])
+			}
+		}
+		rows += bt.Len()
+		bt.Record().Release()
+		bt.Release()
+	}
+	b.ReportMetric(b.Elapsed().Seconds()/(float64(rows)/1e6), "s/Mrow")
+}
