@@ -182,18 +182,26 @@ func (b *Batch) AppendEvents(analysisID int, subject, session string, state, dim
 	}
 	n := len(values)
 	b.b.Field(0).(*array.Int32Builder).AppendValues(repeat(int32(analysisID), n), nil)
-	sb := b.b.Field(1).(*array.StringBuilder)
-	eb := b.b.Field(2).(*array.StringBuilder)
-	sb.Reserve(n)
-	eb.Reserve(n)
-	for range n {
-		sb.Append(subject)
-		eb.Append(session)
-	}
+	appendRepeated(b.b.Field(1).(*array.StringBuilder), subject, n)
+	appendRepeated(b.b.Field(2).(*array.StringBuilder), session, n)
 	b.b.Field(3).(*array.Int16Builder).AppendValues(repeat(int16(state), n), nil)
 	b.b.Field(4).(*array.Int8Builder).AppendValues(repeat(int8(dim), n), nil)
 	b.b.Field(5).(*array.Float64Builder).AppendValues(values, nil)
 	b.n += n
+}
+
+// appendRepeated appends s n times, with the room for all of them
+// reserved first (the data buffer at least doubled when it grows, as the
+// builder's own Append would, so that many small calls stay linear).
+func appendRepeated(sb *array.StringBuilder, s string, n int) {
+	sb.Reserve(n)
+	if need := n * len(s); sb.DataCap()-sb.DataLen() < need {
+		sb.ReserveData(max(need, sb.DataCap()))
+	}
+	v := []byte(s)
+	for range n {
+		sb.UnsafeAppend(v)
+	}
 }
 
 func repeat[T any](v T, n int) []T {

@@ -267,6 +267,22 @@ func (w *Writer) Append(ctx context.Context, b *Batch) error {
 	return w.AppendRecord(ctx, b.Table, rec)
 }
 
+// dictionaryStrings are the tables whose inserts run with DuckDB's
+// force_compression set to dictionary. A large insert inside a transaction
+// compresses each full row group as it goes (DuckDB's optimistic write),
+// and for a VARCHAR column DuckDB first analyses every candidate method; on
+// filtration_events, whose subject_id and session_id repeat over some
+// 20,000 rows, the FSST analysis (building a symbol table per row group
+// and column) took about a quarter of the insert's CPU time, only for
+// DuckDB to choose dictionary compression for both columns anyway (perf on
+// BenchmarkAppendEvents; pragma_storage_info). The setting changes how
+// string columns are stored, never what they hold; columns of other types
+// have no dictionary method and are compressed as usual, and a string that
+// dictionary compression cannot take is stored uncompressed
+// (TestDictionaryStringsSameRows). The setting belongs to the database
+// instance and is reset after the insert.
+var dictionaryStrings = map[string]bool{FiltrationEvts: true}
+
 // AppendRecord inserts an Arrow record into table. On a Parquet-only
 // writer a record without rows still creates the table's file, so that
 // every table a stage owns is present.
@@ -293,6 +309,12 @@ func (w *Writer) AppendRecord(ctx context.Context, table string, rec arrow.Recor
 		}
 		defer release()
 		ex := dc.(driver.ExecerContext)
+		if dictionaryStrings[table] {
+			if _, err := ex.ExecContext(ctx, "SET force_compression = 'dictionary'", nil); err != nil {
+				return err
+			}
+			defer ex.ExecContext(context.Background(), "RESET force_compression", nil)
+		}
 		if _, err := ex.ExecContext(ctx, fmt.Sprintf("INSERT INTO %s BY NAME SELECT * FROM %s", Quote(table), view), nil); err != nil {
 			return err
 		}
