@@ -232,3 +232,108 @@ func TestFreedmanLaneEqualsSerialRefit(t *testing.T) {
 		t.Logf("%s: t %.4f, perm p %v (serial refit %d of %d)", c.name, r.T, r.PermP, count, nPerm)
 	}
 }
+
+// The t* of one relabelling computed by flNull (projections on the thin Q
+// of the full design, docs/methods.md §8) equals the direct refit of
+// y* = fitted + P e with gonum (refitAbsT) to 1e-10 relative, for random
+// permutations of rows and of blocks, designs with numeric covariates and
+// factors, and a near-perfect fit, where the identity and single swaps
+// leave a residual sum of squares about 1e-10 of ||e||^2 (the case in
+// which ||e||^2 - sum (q_j'P e)^2 cancels).
+func TestFreedmanLaneTStarEqualsRefit(t *testing.T) {
+	rng := rand.New(rand.NewPCG(41, 42))
+	type design struct {
+		name        string
+		y, g        []float64
+		covs        []Covariate
+		facs        []Factor
+		size        int // rows per block (sessions), rows sorted by block
+		nearPerfect bool
+	}
+	var cases []design
+	y, g, covs, facs := lmData(rng, 40)
+	cases = append(cases, design{name: "40 rows, 2 covariates, 2 factors", y: y, g: g, covs: covs, facs: facs, size: 1})
+	{
+		ys, gs, cs, fs, ids := sessionData(rng, 20, 3, 0.5)
+		order := make([]int, len(ys))
+		for i := range order {
+			order[i] = i
+		}
+		slices.SortStableFunc(order, func(a, b int) int { return strings.Compare(ids[a], ids[b]) })
+		pick := func(v []float64) []float64 {
+			out := make([]float64, len(v))
+			for k, i := range order {
+				out[k] = v[i]
+			}
+			return out
+		}
+		sc := make([]string, len(ys))
+		for k, i := range order {
+			sc[k] = fs[0].Values[i]
+		}
+		cases = append(cases, design{name: "20 subjects x 3 sessions, session factor, whole blocks", y: pick(ys), g: pick(gs),
+			covs: []Covariate{{"age", pick(cs[0].Values)}, {"motion", pick(cs[1].Values)}}, facs: []Factor{{"scanner", sc}}, size: 3})
+	}
+	{
+		n := 30
+		y, g, age := make([]float64, n), make([]float64, n), make([]float64, n)
+		for i := range n {
+			g[i], age[i] = float64(i%2), 20+40*rng.Float64()
+			y[i] = 1 + 3*g[i] + 0.05*age[i] + 1e-5*rng.NormFloat64()
+		}
+		cases = append(cases, design{name: "near-perfect fit", y: y, g: g, covs: []Covariate{{"age", age}}, size: 1, nearPerfect: true})
+	}
+	for _, c := range cases {
+		n := len(c.y)
+		full, nuis, _, err := testDesign(c.g, c.covs, c.facs)
+		if err != nil {
+			t.Fatal(err)
+		}
+		fast, err := newFLNull(nuis, c.g, c.y)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sc := fast.scratch()
+		fitted, resid := reducedFit(t, nuis, c.y)
+		nb := n / c.size
+		var perms [][]int
+		perms = append(perms, identityPerm(nb))
+		for range 20 { // single swaps of two blocks
+			p := identityPerm(nb)
+			i, j := rng.IntN(nb), rng.IntN(nb)
+			p[i], p[j] = p[j], p[i]
+			perms = append(perms, p)
+		}
+		for range 200 {
+			perms = append(perms, rng.Perm(nb))
+		}
+		u, ystar := make([]float64, n), make([]float64, n)
+		worst := 0.0
+		for k, p := range perms {
+			for b, src := range p {
+				for r := range c.size {
+					u[b*c.size+r] = fast.resid[src*c.size+r]
+					ystar[b*c.size+r] = fitted[b*c.size+r] + resid[src*c.size+r]
+				}
+			}
+			got, want := fast.absT(u, sc), refitAbsT(t, full, ystar, 1)
+			if k == 0 && c.nearPerfect && want < 1e4 {
+				t.Fatalf("%s: |t| %v at the identity: not a near-perfect fit", c.name, want)
+			}
+			rel := math.Abs(got-want) / want
+			worst = max(worst, rel)
+			if !(rel <= 1e-10) {
+				t.Errorf("%s, permutation %d: |t*| %v, refit %v (relative difference %.2g)", c.name, k, got, want, rel)
+			}
+		}
+		t.Logf("%s: largest relative difference %.2g over %d permutations", c.name, worst, len(perms))
+	}
+}
+
+func identityPerm(n int) []int {
+	p := make([]int, n)
+	for i := range p {
+		p[i] = i
+	}
+	return p
+}
