@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"slices"
 	"strings"
 
@@ -363,31 +364,8 @@ func FreedmanLaneTest(y, tested []float64, covs []Covariate, factors []Factor, b
 		return LMTest{}, err
 	}
 	threshold := math.Abs(tObs) * (1 - permRelTol)
-	// v holds the permuted residuals P e: v[b*size+k] = e[perm[b]*size+k]
-	// for the block order perm of the Fisher-Yates shuffle, which continues
-	// from one relabelling to the next. Swapping the values of v as the
-	// shuffle swaps block numbers keeps that equality, so the relabellings
-	// are the same draws as with an explicit perm, without the gather.
-	nb := len(starts)
-	v := slices.Clone(null.resid)
-	sc := null.scratch()
-	count := 0
-	for range nPerm {
-		for i := nb - 1; i > 0; i-- { // Fisher-Yates
-			j := rng.IntN(i + 1)
-			if size == 1 {
-				v[i], v[j] = v[j], v[i]
-			} else if i != j {
-				a, b := v[i*size:(i+1)*size], v[j*size:(j+1)*size]
-				for k := range a {
-					a[k], b[k] = b[k], a[k]
-				}
-			}
-		}
-		if null.absT(v, sc) >= threshold {
-			count++
-		}
-	}
+	pipelined := runtime.GOMAXPROCS(0) > 1 && float64(nPerm)*float64(n) >= flPipelineMin
+	count := null.count(len(starts), size, nPerm, threshold, rng, pipelined)
 	res.PermP = float64(1+count) / float64(1+nPerm)
 	return res, nil
 }
@@ -452,15 +430,17 @@ func blockLen(starts []int, b, n int) int {
 //     triangular R^-1 is 1/r_pp at the diagonal),
 //
 // so |t*| = |q_p'P e| / sqrt(RSS* / (n - p)): p dot products of length n
-// per relabelling. The difference ||e||^2 - sum_j c_j^2 loses digits when
-// the model explains nearly all of P e: each dot product is within
-// n eps ||u||^2-ish of its value (Higham, Accuracy and Stability of
-// Numerical Algorithms, 2nd ed., 2002, §3.1), so the relative error of
-// RSS* is of order (2p + 1) n eps ||e||^2 / RSS*. When RSS* is below
-// flDirectBelow ||e||^2, the residual P e - Q c is formed instead and
-// orthogonalised against Q once more ("twice is enough", from memory), as
-// accurate as the direct refit. Tested against gonum refits:
-// TestFreedmanLaneTStarEqualsRefit, TestFreedmanLaneEqualsSerialRefit.
+// per relabelling. The difference ||e||^2 - sum_j c_j^2 (c_j = q_j'P e)
+// loses digits when the model explains nearly all of P e: a computed dot
+// product x'y is within about n eps |x|'|y| of its value (Higham, Accuracy
+// and Stability of Numerical Algorithms, 2nd ed., 2002, §3.1), so with
+// ||q_j|| = 1 each of ||e||^2 and the c_j^2 is within about n eps ||e||^2,
+// and RSS* within a relative (2p + 1) n eps ||e||^2 / RSS*. When RSS* is
+// below flDirectBelow ||e||^2, the residual P e - Q c is formed instead and
+// orthogonalised against Q once more ("twice is enough": Giraud, Langou
+// and Rozloznik, 2005, from memory), as accurate as the direct refit.
+// Tested against gonum refits: TestFreedmanLaneTStarEqualsRefit (which
+// fails without the direct residual) and TestFreedmanLaneEqualsSerialRefit.
 type flNull struct {
 	n, p  int
 	df    float64
@@ -470,10 +450,101 @@ type flNull struct {
 }
 
 // flDirectBelow is the share of ||e||^2 below which flNull forms the
-// residual of a relabelling directly: at it, (2p + 1) n eps / 0.05 is
-// 1e-10 for n = 1,000 and p = 4 in the worst case of the bound, and random
-// relabellings of n >> p rows almost never fall below it.
+// residual of a relabelling directly: at it, the bound (2p + 1) n eps / 0.05
+// is 4e-11 for n = 1,000 and p = 4, and random relabellings of n >> p rows
+// almost never fall below it (the model explains about p/n of P e).
 const flDirectBelow = 0.05
+
+// flPipelineMin is the work (relabellings x rows) from which
+// flNull.count draws in one goroutine and evaluates in another: about 2 ms
+// of drawing at 2-3 ns per draw, well above the cost of starting a
+// goroutine and passing a few batches.
+const flPipelineMin = 1e6
+
+// count returns the number of relabellings whose |t*| reaches threshold,
+// for nPerm relabellings of nb blocks of size rows each drawn from rng.
+//
+// Each relabelling shuffles the block order perm of the previous one by
+// Fisher-Yates (rng.IntN(i + 1) for i = nb - 1 down to 1), and its permuted
+// residuals are v[b*size+k] = e[perm[b]*size+k]. Swapping the values of v
+// as the shuffle swaps block numbers keeps that equality, so v is shuffled
+// in place with no index array and no gather.
+//
+// The draws are half of the work and are serial by nature (one rng). With
+// pipelined, this goroutine only draws, batch after batch, the indices j
+// of the shuffles, and a second goroutine replays the swaps in the same
+// order and evaluates t*: every t* and the count are bit-identical to the
+// serial loop's (TestFreedmanLanePipelineEqualsSerial), and the draws
+// overlap the evaluations on two cores.
+func (f *flNull) count(nb, size, nPerm int, threshold float64, rng *rand.Rand, pipelined bool) int {
+	v := slices.Clone(f.resid)
+	sc := f.scratch()
+	swap := func(i, j int) {
+		if size == 1 {
+			v[i], v[j] = v[j], v[i]
+		} else if i != j {
+			a, b := v[i*size:(i+1)*size], v[j*size:(j+1)*size]
+			for k := range a {
+				a[k], b[k] = b[k], a[k]
+			}
+		}
+	}
+	count := 0
+	if !pipelined || nb < 2 {
+		for range nPerm {
+			for i := nb - 1; i > 0; i-- { // Fisher-Yates
+				swap(i, rng.IntN(i+1))
+			}
+			if f.absT(v, sc) >= threshold {
+				count++
+			}
+		}
+		return count
+	}
+	per := max(1, (1<<15)/(nb-1)) // relabellings per batch: 128 KiB of draws
+	type batch struct {
+		js []int32
+		m  int
+	}
+	const nbuf = 3
+	free, full := make(chan []int32, nbuf), make(chan batch, nbuf)
+	for range nbuf {
+		free <- make([]int32, per*(nb-1))
+	}
+	done := make(chan int)
+	go func() {
+		c := 0
+		for b := range full {
+			js := b.js
+			for range b.m {
+				for i := nb - 1; i > 0; i-- {
+					swap(i, int(js[nb-1-i]))
+				}
+				js = js[nb-1:]
+				if f.absT(v, sc) >= threshold {
+					c++
+				}
+			}
+			free <- b.js
+		}
+		done <- c
+	}()
+	for drawn := 0; drawn < nPerm; {
+		m := min(per, nPerm-drawn)
+		js := <-free
+		k := 0
+		for range m {
+			for i := nb - 1; i > 0; i-- {
+				js[k] = int32(rng.IntN(i + 1))
+				k++
+			}
+		}
+		full <- batch{js, m}
+		drawn += m
+	}
+	close(full)
+	return <-done
+}
 
 // flScratch is one goroutine's scratch for flNull.absT.
 type flScratch struct{ c, r []float64 }

@@ -337,3 +337,60 @@ func identityPerm(n int) []int {
 	}
 	return p
 }
+
+// The pipelined count of flNull (draws in one goroutine, swaps and t* in
+// another) equals the serial loop exactly: same draws, same swaps, same
+// t*, with rows and with whole blocks.
+func TestFreedmanLanePipelineEqualsSerial(t *testing.T) {
+	rng := rand.New(rand.NewPCG(51, 52))
+	y, g, covs, facs := lmData(rng, 300)
+	ys, gs, scovs, sfacs, sids := sessionData(rng, 100, 3, 0.3)
+	order := identityPerm(len(ys))
+	slices.SortStableFunc(order, func(a, b int) int { return strings.Compare(sids[a], sids[b]) })
+	pick := func(v []float64) []float64 {
+		out := make([]float64, len(v))
+		for k, i := range order {
+			out[k] = v[i]
+		}
+		return out
+	}
+	sc := make([]string, len(ys))
+	for k, i := range order {
+		sc[k] = sfacs[0].Values[i]
+	}
+	for _, c := range []struct {
+		name string
+		y, g []float64
+		covs []Covariate
+		facs []Factor
+		size int
+	}{
+		{"300 rows", y, g, covs, facs, 1},
+		{"100 subjects x 3 sessions", pick(ys), pick(gs), []Covariate{{"age", pick(scovs[0].Values)}, {"motion", pick(scovs[1].Values)}}, []Factor{{"scanner", sc}}, 3},
+	} {
+		full, nuis, names, err := testDesign(c.g, c.covs, c.facs)
+		if err != nil {
+			t.Fatal(err)
+		}
+		fit, err := FitOLS(full, names, c.y)
+		if err != nil {
+			t.Fatal(err)
+		}
+		f, err := newFLNull(nuis, c.g, c.y)
+		if err != nil {
+			t.Fatal(err)
+		}
+		const nPerm = 2999 // several batches of drawn indices
+		threshold := math.Abs(fit.Terms[1].T) * (1 - permRelTol)
+		nb := len(c.y) / c.size
+		serial := f.count(nb, c.size, nPerm, threshold, rand.New(rand.NewPCG(8, 0)), false)
+		piped := f.count(nb, c.size, nPerm, threshold, rand.New(rand.NewPCG(8, 0)), true)
+		if piped != serial {
+			t.Errorf("%s: pipelined count %d, serial %d", c.name, piped, serial)
+		}
+		if serial == 0 || serial == nPerm {
+			t.Errorf("%s: count %d of %d: the check needs a p strictly inside (0, 1)", c.name, serial, nPerm)
+		}
+		t.Logf("%s: %d of %d", c.name, serial, nPerm)
+	}
+}
