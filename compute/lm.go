@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
-	"runtime"
 	"slices"
 	"strings"
 
@@ -364,8 +363,7 @@ func FreedmanLaneTest(y, tested []float64, covs []Covariate, factors []Factor, b
 		return LMTest{}, err
 	}
 	threshold := math.Abs(tObs) * (1 - permRelTol)
-	pipelined := runtime.GOMAXPROCS(0) > 1 && float64(nPerm)*float64(n) >= flPipelineMin
-	count := null.count(len(starts), size, nPerm, threshold, rng, pipelined)
+	count := null.count(len(starts), size, nPerm, threshold, rng)
 	res.PermP = float64(1+count) / float64(1+nPerm)
 	return res, nil
 }
@@ -455,12 +453,6 @@ type flNull struct {
 // almost never fall below it (the model explains about p/n of P e).
 const flDirectBelow = 0.05
 
-// flPipelineMin is the work (relabellings x rows) from which
-// flNull.count draws in one goroutine and evaluates in another: about 2 ms
-// of drawing at 2-3 ns per draw, well above the cost of starting a
-// goroutine and passing a few batches.
-const flPipelineMin = 1e6
-
 // count returns the number of relabellings whose |t*| reaches threshold,
 // for nPerm relabellings of nb blocks of size rows each drawn from rng.
 //
@@ -470,80 +462,31 @@ const flPipelineMin = 1e6
 // as the shuffle swaps block numbers keeps that equality, so v is shuffled
 // in place with no index array and no gather.
 //
-// The draws are half of the work and are serial by nature (one rng). With
-// pipelined, this goroutine only draws, batch after batch, the indices j
-// of the shuffles, and a second goroutine replays the swaps in the same
-// order and evaluates t*: every t* and the count are bit-identical to the
-// serial loop's (TestFreedmanLanePipelineEqualsSerial), and the draws
-// overlap the evaluations on two cores.
-func (f *flNull) count(nb, size, nPerm int, threshold float64, rng *rand.Rand, pipelined bool) int {
+// The draws are about half of the work (n rng.IntN per relabelling) and
+// are serial by nature; drawing in one goroutine and evaluating in another
+// gave no gain on a loaded two-core machine and cost 60-90 % more CPU, so
+// the loop is serial.
+func (f *flNull) count(nb, size, nPerm int, threshold float64, rng *rand.Rand) int {
 	v := slices.Clone(f.resid)
 	sc := f.scratch()
-	swap := func(i, j int) {
-		if size == 1 {
-			v[i], v[j] = v[j], v[i]
-		} else if i != j {
-			a, b := v[i*size:(i+1)*size], v[j*size:(j+1)*size]
-			for k := range a {
-				a[k], b[k] = b[k], a[k]
-			}
-		}
-	}
 	count := 0
-	if !pipelined || nb < 2 {
-		for range nPerm {
-			for i := nb - 1; i > 0; i-- { // Fisher-Yates
-				swap(i, rng.IntN(i+1))
-			}
-			if f.absT(v, sc) >= threshold {
-				count++
-			}
-		}
-		return count
-	}
-	per := max(1, (1<<15)/(nb-1)) // relabellings per batch: 128 KiB of draws
-	type batch struct {
-		js []int32
-		m  int
-	}
-	const nbuf = 3
-	free, full := make(chan []int32, nbuf), make(chan batch, nbuf)
-	for range nbuf {
-		free <- make([]int32, per*(nb-1))
-	}
-	done := make(chan int)
-	go func() {
-		c := 0
-		for b := range full {
-			js := b.js
-			for range b.m {
-				for i := nb - 1; i > 0; i-- {
-					swap(i, int(js[nb-1-i]))
-				}
-				js = js[nb-1:]
-				if f.absT(v, sc) >= threshold {
-					c++
+	for range nPerm {
+		for i := nb - 1; i > 0; i-- { // Fisher-Yates
+			j := rng.IntN(i + 1)
+			if size == 1 {
+				v[i], v[j] = v[j], v[i]
+			} else if i != j {
+				a, b := v[i*size:(i+1)*size], v[j*size:(j+1)*size]
+				for k := range a {
+					a[k], b[k] = b[k], a[k]
 				}
 			}
-			free <- b.js
 		}
-		done <- c
-	}()
-	for drawn := 0; drawn < nPerm; {
-		m := min(per, nPerm-drawn)
-		js := <-free
-		k := 0
-		for range m {
-			for i := nb - 1; i > 0; i-- {
-				js[k] = int32(rng.IntN(i + 1))
-				k++
-			}
+		if f.absT(v, sc) >= threshold {
+			count++
 		}
-		full <- batch{js, m}
-		drawn += m
 	}
-	close(full)
-	return <-done
+	return count
 }
 
 // flScratch is one goroutine's scratch for flNull.absT.
