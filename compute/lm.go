@@ -198,11 +198,6 @@ func (o *olsFit) fit(y, beta, resid []float64) float64 {
 	return rss
 }
 
-func (o *olsFit) t(j int, beta []float64, rss float64) float64 {
-	s2 := rss / float64(o.n-o.p)
-	return beta[j] / math.Sqrt(s2*o.xtxInvDiag[j])
-}
-
 // FitOLS fits y on the columns of x by least squares (Householder QR) after
 // CheckDesign, and returns every coefficient with its standard error, t and
 // two-sided Student t p-value on n - p degrees of freedom.
