@@ -84,18 +84,20 @@ metrics AS (
     WHERE analysis_id = getvariable('analysis')
     GROUP BY ALL
 ),
-b0 AS (
-    SELECT subject_id, state, threshold, avg(betti) AS betti
-    FROM betti_curves
-    WHERE analysis_id = getvariable('analysis') AND dimension = 0
-    GROUP BY ALL
-),
 b0_area AS (
-    SELECT subject_id, state, sum(segment) AS area
+    -- the area under each session's Betti-0 curve (trapezoid rule over its
+    -- thresholds), averaged over the subject's sessions: the same as the
+    -- area under the averaged curve, since every curve of an analysis has
+    -- the same thresholds; one list per session keeps the grouping small
+    SELECT subject_id, state, avg(area) AS area
     FROM (SELECT subject_id, state,
-                 (threshold - lag(threshold) OVER w) * (betti + lag(betti) OVER w) / 2 AS segment
-          FROM b0
-          WINDOW w AS (PARTITION BY subject_id, state ORDER BY threshold))
+                 list_sum(list_transform(range(2, len(t) + 1),
+                                         i -> (t[i] - t[i - 1]) * (b[i] + b[i - 1]) / 2)) AS area
+          FROM (SELECT subject_id, session_id, state,
+                       list(threshold ORDER BY threshold) AS t, list(betti ORDER BY threshold) AS b
+                FROM betti_curves
+                WHERE analysis_id = getvariable('analysis') AND dimension = 0
+                GROUP BY ALL))
     GROUP BY ALL
 ),
 long AS (

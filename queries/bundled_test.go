@@ -797,3 +797,115 @@ func TestParamErrors(t *testing.T) {
 		t.Errorf("group column GROUP: %d rows", n)
 	}
 }
+
+// A subject's sessions are averaged threshold by threshold before its
+// curve enters the test (the query groups curve points by session, then
+// averages the sessions' lists). A copy of the test warehouse gets a second
+// session, with different Betti numbers, for every other subject; the
+// query's p-value must equal compute.PermutationTestCurves on curves
+// averaged here, and curve_distance the largest gap between the group means
+// of those curves.
+func TestFiltrationTestsSessionsAveraged(t *testing.T) {
+	src, err := os.ReadFile(warehousePath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(t.TempDir(), "sessions.duckdb")
+	if err := os.WriteFile(path, src, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	db, err := sql.Open("duckdb", path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The second session's curve: the first's Betti numbers plus the row's
+	// threshold index modulo 3, so the average is not a constant shift.
+	if _, err := db.Exec(`INSERT INTO core_betti_curves
+		SELECT analysis_id, subject_id, 'two', state, dimension, threshold,
+		       betti + (row_number() OVER (PARTITION BY subject_id, state, dimension ORDER BY threshold)) % 3
+		FROM core_betti_curves
+		WHERE analysis_id = ? AND hash(subject_id) % 2 = 0`, firstID); err != nil {
+		t.Fatal(err)
+	}
+	db.Close()
+	d, err := Open(context.Background(), path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer d.Close()
+	got := runBundled(t, d, "filtration_tests_by_group", map[string]string{
+		"analysis": "first", "group_a": "night", "group_b": "day", "n_perm": "199", "seed": "5"})
+	groups := groupsOf(t, d, firstID)
+	side := map[string]int{"night": 0, "day": 1}
+	type key struct{ state, dim int }
+	type sk struct {
+		key
+		subject, session string
+	}
+	sessions := map[sk][]float64{}
+	for _, r := range raw(t, d, `SELECT subject_id, session_id, state, dimension, betti FROM core_betti_curves WHERE analysis_id = ? ORDER BY threshold`, firstID) {
+		k := sk{key{int(num(r["state"])), int(num(r["dimension"]))}, r["subject_id"].(string), r["session_id"].(string)}
+		sessions[k] = append(sessions[k], num(r["betti"]))
+	}
+	type subj struct {
+		key
+		subject string
+	}
+	sum, count := map[subj][]float64{}, map[subj]int{}
+	twice := 0
+	for k, c := range sessions {
+		s := subj{k.key, k.subject}
+		if sum[s] == nil {
+			sum[s] = make([]float64, len(c))
+		}
+		for g, v := range c {
+			sum[s][g] += v
+		}
+		count[s]++
+		if count[s] == 2 {
+			twice++
+		}
+	}
+	if twice == 0 {
+		t.Fatal("no subject got a second session: the test does not exercise the averaging")
+	}
+	var subjects []subj
+	for s := range sum {
+		subjects = append(subjects, s)
+	}
+	sort.Slice(subjects, func(i, j int) bool { return subjects[i].subject < subjects[j].subject })
+	curves := map[key][2][][]float64{}
+	for _, s := range subjects {
+		g, ok := side[groups[s.subject]]
+		if !ok {
+			continue
+		}
+		avg := make([]float64, len(sum[s]))
+		for i, v := range sum[s] {
+			avg[i] = v / float64(count[s])
+		}
+		v := curves[s.key]
+		v[g] = append(v[g], avg)
+		curves[s.key] = v
+	}
+	tested := 0
+	for _, r := range got {
+		k := key{int(num(r["state"])), int(num(r["dimension"]))}
+		cv := curves[k]
+		if len(cv[0]) == 0 || len(cv[1]) == 0 {
+			continue
+		}
+		tested++
+		perm, err := compute.PermutationTestCurves(cv[0], cv[1], 199, rand.New(rand.NewPCG(uint64(5+2*k.state+k.dim), 0)))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if num(r["curve_perm_p"]) != perm.PValue || !close(num(r["curve_distance"]), perm.Statistic, 1e-12) {
+			t.Errorf("state %d dim %d: p %v, distance %v; Go on session-averaged curves: %v, %v",
+				k.state, k.dim, r["curve_perm_p"], r["curve_distance"], perm.PValue, perm.Statistic)
+		}
+	}
+	if tested == 0 {
+		t.Fatal("no row was tested")
+	}
+}

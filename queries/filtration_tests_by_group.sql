@@ -51,30 +51,39 @@ events AS (
         GROUP BY e.state, e.dimension
     )
 ),
-per_threshold AS (
-    SELECT c.subject_id, g.side, c.state, c.dimension, c.threshold, avg(c.betti) AS betti
+session_curves AS (
+    -- one list per session, state and dimension: grouping the curve points
+    -- by session (thousands of groups) instead of by threshold (hundreds of
+    -- thousands) is what keeps this query fast on a large warehouse
+    SELECT c.subject_id, g.side, c.state, c.dimension, list(c.betti ORDER BY c.threshold) AS curve
     FROM core_betti_curves c JOIN grp g USING (subject_id)
     WHERE c.analysis_id = getvariable('analysis')
-    GROUP BY ALL
+    GROUP BY c.subject_id, c.session_id, g.side, c.state, c.dimension
+),
+subject_curves AS (
+    -- a subject's curve: its sessions' curves averaged threshold by
+    -- threshold (every curve of an analysis has the same thresholds)
+    SELECT subject_id, side, state, dimension,
+           list_transform(range(1, len(cs[1]) + 1), i -> list_avg(list_transform(cs, c -> c[i]))) AS curve
+    FROM (SELECT subject_id, side, state, dimension, list(curve) AS cs
+          FROM session_curves
+          GROUP BY ALL)
 ),
 curves AS (
     SELECT state, dimension,
            list(curve ORDER BY subject_id) FILTER (WHERE side = 'a') AS a,
            list(curve ORDER BY subject_id) FILTER (WHERE side = 'b') AS b
-    FROM (
-        SELECT subject_id, side, state, dimension, list(betti ORDER BY threshold) AS curve
-        FROM per_threshold
-        GROUP BY ALL
-    )
+    FROM subject_curves
     GROUP BY state, dimension
 ),
 mean_curves AS (
     SELECT state, dimension,
-           list(m ORDER BY threshold) FILTER (WHERE side = 'a') AS a,
-           list(m ORDER BY threshold) FILTER (WHERE side = 'b') AS b
+           list(m ORDER BY i) FILTER (WHERE side = 'a') AS a,
+           list(m ORDER BY i) FILTER (WHERE side = 'b') AS b
     FROM (
-        SELECT side, state, dimension, threshold, avg(betti) AS m
-        FROM per_threshold
+        SELECT side, state, dimension, i, avg(v) AS m
+        FROM (SELECT side, state, dimension, unnest(curve) AS v, generate_subscripts(curve, 1) AS i
+              FROM subject_curves)
         GROUP BY ALL
     )
     GROUP BY state, dimension
