@@ -60,11 +60,13 @@ session_curves AS (
     WHERE c.analysis_id = getvariable('analysis')
     GROUP BY c.subject_id, c.session_id, g.side, c.state, c.dimension
 ),
-subject_curves AS (
+subject_curves AS MATERIALIZED (
     -- a subject's curve: its sessions' curves averaged threshold by
-    -- threshold (every curve of an analysis has the same thresholds)
+    -- threshold (every curve of an analysis has the same thresholds);
+    -- computed once for curves and mean_curves
     SELECT subject_id, side, state, dimension,
-           list_transform(range(1, len(cs[1]) + 1), i -> list_avg(list_transform(cs, c -> c[i]))) AS curve
+           CASE WHEN len(cs) = 1 THEN cs[1]::DOUBLE[] -- one session: the curve itself
+                ELSE list_transform(range(1, len(cs[1]) + 1), i -> list_avg(list_transform(cs, c -> c[i]))) END AS curve
     FROM (SELECT subject_id, side, state, dimension, list(curve) AS cs
           FROM session_curves
           GROUP BY ALL)
