@@ -1397,8 +1397,10 @@ func IntoFile(ctx context.Context, path string, o Options, prog Progress) (*Summ
 // fitCandidates returns the windows (rows of m) of one series that may enter
 // the fitting sample: every window with --fit-sample all, else the local
 // maxima of window variance, or the middle window when there is none
-// (docs/methods.md §3). The analysis's sample and every surrogate run draw
-// from it.
+// (docs/methods.md §3). Every surrogate run and the analysis's sample with
+// --fit-sample all draw from it; with peaks the analysis's sample applies
+// the same rule window by window (peakWindows, which checks its peaks
+// against LocalMaxima).
 func fitCandidates(m compute.Matrix32, fitSample string) []int {
 	if fitSample == "peaks" {
 		if idx := compute.LocalMaxima(compute.WindowVariance(m)); len(idx) > 0 {
