@@ -18,14 +18,7 @@ import (
 
 func TestSlidingCorrelationsEachEqualsMatrix(t *testing.T) {
 	rng := rand.New(rand.NewPCG(41, 42))
-	step := winMixedSeries(rng, 400, 5, 0, 1)
-	for tp := 0; tp < step.T; tp++ { // a level shift: the two-pass fallback inside the running path
-		v := 1e-3 * rng.NormFloat64()
-		if tp >= step.T/2 {
-			v += 1e6
-		}
-		step.Data[tp*step.P] = v
-	}
+	step := winLevelShiftSeries(rng) // the two-pass fallback inside the running path
 	for _, tc := range []struct {
 		name string
 		y    Series

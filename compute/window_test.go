@@ -96,6 +96,22 @@ func winMixedSeries(rng *rand.Rand, T, p int, offset, amp float64) Series {
 	return y
 }
 
+// winLevelShiftSeries is winMixedSeries (400 x 5) whose region 0 jumps by
+// 1e6 halfway and otherwise varies by ~1e-3: a window's spread is then
+// ~1e-9 of the series spread, so the running-sum formula would cancel away
+// and SlidingCorrelations takes its two-pass fallback there.
+func winLevelShiftSeries(rng *rand.Rand) Series {
+	y := winMixedSeries(rng, 400, 5, 0, 1)
+	for tp := 0; tp < y.T; tp++ {
+		v := 1e-3 * rng.NormFloat64()
+		if tp >= y.T/2 {
+			v += 1e6
+		}
+		y.Data[tp*y.P] = v
+	}
+	return y
+}
+
 // winCheckAgainstGonum compares every window and pair with gonum's
 // stat.Correlation on the raw window (weights g, nil for the rectangle),
 // optionally through math.Atanh.
@@ -144,17 +160,7 @@ func winCheckAgainstGonum(t *testing.T, y Series, opt WindowOptions, g []float64
 // step 1, and a series on an offset of 1000 with a 1 % signal.
 func TestSlidingCorrelationsMatchGonum(t *testing.T) {
 	rng := rand.New(rand.NewPCG(10, 10))
-	// Step change: region 0 jumps by 1e6 halfway and otherwise varies by
-	// ~1e-3, so a window's spread is ~1e-9 of the series spread and the
-	// running-sum formula would cancel away; the two-pass fallback is used.
-	step := winMixedSeries(rng, 400, 5, 0, 1)
-	for tp := 0; tp < step.T; tp++ {
-		v := 1e-3 * rng.NormFloat64()
-		if tp >= step.T/2 {
-			v += 1e6
-		}
-		step.Data[tp*step.P] = v
-	}
+	step := winLevelShiftSeries(rng) // the two-pass fallback is used in some windows
 	for _, tc := range []struct {
 		name string
 		y    Series
